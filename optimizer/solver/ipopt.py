@@ -1,0 +1,163 @@
+"""Thin adapter from an NLP as data to Ipopt through CasADi.
+
+The adapter knows nothing of robots: it takes ``{'x','p','f','g'}``, builds
+the solver once, and solves for any parameter vector, bounds and start.
+Ipopt's return codes map to a few neutral statuses; user options override
+the defaults. A future stage-structured solver gets an adapter of the same
+shape (``build`` once, ``solve`` many times, :class:`SolverResult`).
+"""
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+
+import casadi as ca
+import numpy as np
+
+STATUS = {
+    "Solve_Succeeded": "solved",
+    "Solved_To_Acceptable_Level": "acceptable",
+    "Infeasible_Problem_Detected": "infeasible",
+    "Maximum_Iterations_Exceeded": "iteration-limit",
+    "Maximum_CpuTime_Exceeded": "time-limit",
+    "Maximum_WallTime_Exceeded": "time-limit",
+    "User_Requested_Stop": "interrupted",
+    "Restoration_Failed": "stalled",
+    "Search_Direction_Becomes_Too_Small": "stalled",
+    "Error_In_Step_Computation": "stalled",
+    "Diverging_Iterates": "diverged",
+    "Invalid_Number_Detected": "numerical-error",
+}
+SUCCESS = {"solved", "acceptable"}
+
+DEFAULT_OPTIONS = {
+    "tol": 1e-6,
+    "constr_viol_tol": 1e-7,
+    "acceptable_tol": 1e-4,
+    "acceptable_constr_viol_tol": 1e-6,
+    "acceptable_iter": 10,
+    "max_iter": 1500,
+    "mu_strategy": "adaptive",
+    "linear_solver": "mumps",
+    "hessian_approximation": "exact",
+    "print_level": 0,
+}
+
+
+@dataclass
+class SolverResult:
+    """What a solve reached.
+
+    ``x`` is the last point (scaled), ``status`` one of the neutral names in
+    :data:`STATUS` (or ``"failed"``), ``max_violation`` the largest bound or
+    constraint violation at ``x`` in the NLP's own (scaled) units.
+    """
+
+    x: np.ndarray
+    status: str
+    success: bool
+    iterations: int
+    wall_time: float
+    objective: float
+    max_violation: float
+    message: str
+    g: np.ndarray = field(repr=False, default=None)
+
+
+class _Progress(ca.Callback):
+    """Ipopt iteration callback: hands (iteration, x, f, g) to a Python function."""
+
+    def __init__(self, nx, ng, np_, report):
+        ca.Callback.__init__(self)
+        self.nx, self.ng, self.np_, self.report = nx, ng, np_, report
+        self.iteration = 0
+        self.interrupted = False
+        self.construct("brace_progress", {})
+
+    def get_n_in(self):
+        return ca.nlpsol_n_out()
+
+    def get_n_out(self):
+        return 1
+
+    def get_name_in(self, i):
+        return ca.nlpsol_out(i)
+
+    def get_name_out(self, i):
+        return "ret"
+
+    def get_sparsity_in(self, i):
+        n = ca.nlpsol_out(i)
+        if n in ("f",):
+            return ca.Sparsity.dense(1)
+        if n in ("x", "lam_x"):
+            return ca.Sparsity.dense(self.nx)
+        if n in ("g", "lam_g"):
+            return ca.Sparsity.dense(self.ng)
+        if n == "lam_p":
+            return ca.Sparsity.dense(self.np_)
+        return ca.Sparsity(0, 0)
+
+    def eval(self, arg):
+        try:
+            self.report(self.iteration, np.array(arg[0]).ravel(), float(arg[1]), np.array(arg[2]).ravel())
+            self.iteration += 1
+        except KeyboardInterrupt:
+            self.interrupted = True
+            return [1]
+        return [0]
+
+
+class IpoptSolver:
+    """Ipopt for one NLP, built once.
+
+    Parameters
+    ----------
+    nlp : dict
+        ``{'x', 'p', 'f', 'g'}`` (CasADi expressions).
+    options : dict, optional
+        Ipopt options overriding :data:`DEFAULT_OPTIONS`.
+    expand : bool
+        Evaluate the NLP as one SX graph (faster iterations, slower build).
+    log_file : path, optional
+        Ipopt's full iteration log is written there.
+    progress : callable(iteration, x, f, g), optional
+        Called at every Ipopt iteration.
+    """
+
+    def __init__(self, nlp, options=None, expand=True, log_file=None, progress=None):
+        ipopt = dict(DEFAULT_OPTIONS)
+        ipopt.update(options or {})
+        if log_file is not None:
+            ipopt.update({"output_file": str(log_file), "file_print_level": 5})
+        opts = {"ipopt": ipopt, "expand": expand, "print_time": False, "error_on_fail": False}
+        self.callback = None
+        if progress is not None:
+            nx, ng, np_ = nlp["x"].numel(), nlp["g"].numel(), nlp["p"].numel()
+            self.callback = _Progress(nx, ng, np_, progress)
+            opts["iteration_callback"] = self.callback
+        started = time.perf_counter()
+        self.solver = ca.nlpsol("brace_nlp", "ipopt", nlp, opts)
+        self.build_time = time.perf_counter() - started
+
+    def solve(self, x0, p, lbx, ubx, lbg, ubg) -> SolverResult:
+        """Solve from ``x0``; never raises on solver failure (see ``status``)."""
+        if self.callback is not None:
+            self.callback.iteration, self.callback.interrupted = 0, False
+        started = time.perf_counter()
+        out = self.solver(x0=x0, p=p, lbx=lbx, ubx=ubx, lbg=lbg, ubg=ubg)
+        wall = time.perf_counter() - started
+        if self.callback is not None and self.callback.interrupted:
+            raise KeyboardInterrupt
+        stats = self.solver.stats()
+        name = stats.get("return_status", "unknown")
+        status = STATUS.get(name, "failed")
+        x, g = np.array(out["x"]).ravel(), np.array(out["g"]).ravel()
+        violation = max(_excess(g, lbg, ubg), _excess(x, lbx, ubx))
+        return SolverResult(x, status, status in SUCCESS, int(stats.get("iter_count", 0)), wall,
+                            float(out["f"]), violation, name, g)
+
+
+def _excess(values, lower, upper) -> float:
+    excess = np.maximum(np.asarray(lower) - values, values - np.asarray(upper))
+    return float(max(0.0, excess.max(initial=0.0)))

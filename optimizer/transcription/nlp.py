@@ -1,0 +1,164 @@
+"""The direct-transcription NLP of one structure, as plain data.
+
+Blocks read in order: variables, parameters, dynamics and integration,
+stance and friction, limits, hand targets, robustness, objective, bounds.
+The result is ``{'x', 'p', 'f', 'g'}`` for any NLP solver plus the bounds
+and the layouts that turn vectors back into named, physical arrays.
+
+Integration rule (``semi-implicit-euler``, as in the plan file's
+``meta.integrator``): ``v[k+1] = v[k] + h a[k]``,
+``q[k+1] = integrate(q[k], h v[k+1])``. Because ``integrate`` keeps the base
+quaternion on the unit sphere, only knot 0 needs a norm constraint (and
+none when the start configuration is fixed).
+"""
+from __future__ import annotations
+
+import casadi as ca
+import numpy as np
+
+from .constraints import ConstraintStack
+from .knot_functions import KnotFunctions
+from .layout import VectorLayout
+from .objectives import Context
+from .parameters import parameter_layout
+from .structure import Structure
+
+INTEGRATOR = "semi-implicit-euler"
+INF = float("inf")
+
+
+class Transcription:
+    """The NLP for ``structure`` on ``robot`` with ``objective``.
+
+    Attributes
+    ----------
+    nlp : dict
+        ``{'x', 'p', 'f', 'g'}`` with CasADi MX expressions.
+    variables, parameters : VectorLayout
+        Layouts of x (scaled) and p (physical).
+    constraints : ConstraintStack
+        Named groups of g with their bounds.
+    """
+
+    def __init__(self, robot, symbolic, structure: Structure, objective, map_mode: str = "serial"):
+        self.robot, self.structure, self.objective = robot, structure, objective
+        self.weight = robot.mass * float(np.linalg.norm(robot.gravity))
+        self.context = Context(self.weight, float(np.mean(np.maximum(abs(robot.torque_lower), abs(robot.torque_upper)))),
+                               structure.knots)
+        self.functions = KnotFunctions(symbolic, structure, self.weight)
+        self.map_mode = map_mode
+        self.variables = self._variable_layout()
+        self.parameters = parameter_layout(structure, robot)
+        self.constraints = ConstraintStack()
+        x = ca.MX.sym("x", self.variables.size)
+        p = ca.MX.sym("p", self.parameters.size)
+        V, P = self.variables.split_symbolic(x), self.parameters.split_symbolic(p)
+        self._dynamics(V, P)
+        self._contacts(V, P)
+        self._hand_targets(V, P)
+        if objective.robust:
+            self._robustness(V, P)
+        objective.add_constraints(V, self.constraints, self.context, self.disturbance_count)
+        cost = objective.cost(V, P, self.context, self.disturbance_count)
+        self.nlp = {"x": x, "p": p, "f": cost, "g": self.constraints.expression()}
+        self.lbg, self.ubg = self.constraints.bounds()
+
+    # -- layout ------------------------------------------------------------
+    @property
+    def disturbance_count(self) -> int:
+        return len(self.structure.disturbances) if self.objective.robust else 0
+
+    def _variable_layout(self) -> VectorLayout:
+        s, r, K = self.structure, self.robot, self.structure.knots
+        per_contact = self.weight / s.nc
+        layout = VectorLayout()
+        layout.add("q", r.nq, K)
+        layout.add("v", r.nv, K)
+        layout.add("a", r.nv, K, scale=10.0)
+        layout.add("tau", r.nj, K, scale=self.context.torque_scale)
+        layout.add("lam", 3 * s.nc, K, scale=per_contact)
+        if self.objective.robust:
+            for p, slot in enumerate(s.disturbances):
+                layout.add(f"G{p}", 3 * s.nc * slot.dim, K, scale=per_contact)
+                layout.add(f"rho{p}", 1, K, scale=per_contact)
+        self.objective.add_variables(layout, self.context)
+        return layout
+
+    def _map(self, function, count):
+        return function.map(count, self.map_mode)
+
+    # -- constraint groups -------------------------------------------------
+    def _dynamics(self, V, P):
+        K, f = self.structure.knots, self.functions
+        every, steps = range(K), range(1, K)
+        eom = self._map(f.dynamics, K)(V["q"], V["v"], V["a"], V["tau"], V["lam"])
+        self.constraints.add("equations of motion", eom, every, unit="m g")
+        h = P["step"]
+        self.constraints.add("velocity integration", V["v"][:, 1:] - V["v"][:, :-1] - h * V["a"][:, :-1],
+                             steps, unit="rad/s")
+        step = self._map(f.step, K - 1)(V["q"][:, :-1], V["q"][:, 1:], V["v"][:, 1:], h)
+        self.constraints.add("configuration integration", step, steps, unit="rad or m")
+        if not self.structure.fixed_start:
+            quat = V["q"][3:7, 0]
+            self.constraints.add("unit quaternion", ca.dot(quat, quat) - 1.0, [0])
+
+    def _contacts(self, V, P):
+        K, f = self.structure.knots, self.functions
+        first = 1 if self.structure.fixed_start else 0
+        knots = range(first, K)
+        stance = self._map(f.stance, len(knots))(V["q"][:, first:], P["footholds"])
+        self.constraints.add("stance contacts", stance, knots, unit="m")
+        facet_rows, pushes = self._map(f.friction, K)(V["lam"], P["facets"], P["normals"])
+        self.constraints.add("friction pyramid", facet_rows, range(K), -INF, 0.0, unit="m g")
+        self.constraints.add("minimum normal force", pushes - P["min_normal_force"] / self.weight,
+                             range(K), 0.0, INF, unit="m g")
+
+    def _hand_targets(self, V, P):
+        for i, slot in enumerate(self.structure.targets):
+            position, orientation = self.functions.hand[slot.frame](
+                V["q"][:, slot.knot], P["target_position"][:, i], P["target_rotation"][:, i])
+            residual = ca.vertcat(position, orientation) if slot.orientation else position
+            self.constraints.add(f"hand target {slot.frame}@{slot.knot}", residual, [slot.knot], unit="m or rad")
+
+    def _robustness(self, V, P):
+        K = self.structure.knots
+        for p, function in enumerate(self.functions.robust):
+            balance, torque, facet, normal = self._map(function, K)(
+                V["q"], V["tau"], V["lam"], V[f"G{p}"], V[f"rho{p}"], P["facets"], P["normals"],
+                P["min_normal_force"], P["tau_lower"], P["tau_upper"], P[f"shape{p}"])
+            tag = f" (disturbance {p})" if len(self.functions.robust) > 1 else ""
+            self.constraints.add("robust balance" + tag, balance, range(K), unit="m g")
+            self.constraints.add("robust torque" + tag, torque, range(K), 0.0, INF, unit="limit^2")
+            self.constraints.add("robust friction" + tag, facet, range(K), 0.0, INF, unit="(m g/nc)^2")
+            self.constraints.add("robust normal force" + tag, normal, range(K), 0.0, INF, unit="(m g/nc)^2")
+
+    # -- bounds ------------------------------------------------------------
+    def bounds(self, initial_posture=None) -> tuple[np.ndarray, np.ndarray]:
+        """Variable bounds ``(lbx, ubx)`` in the solver's scaled units.
+
+        Joint positions, velocities and torques within the robot's limits;
+        rest (zero velocity) at both ends and zero acceleration at the last
+        knot; margins non-negative; the start configuration fixed when given.
+        """
+        r, L, K = self.robot, self.variables, self.structure.knots
+        lo, hi = np.full(L.size, -INF), np.full(L.size, INF)
+        q_lo = np.concatenate([np.full(3, -INF), -np.ones(4), r.joint_lower])
+        q_hi = np.concatenate([np.full(3, INF), np.ones(4), r.joint_upper])
+        L.set(lo, "q", q_lo[:, None]), L.set(hi, "q", q_hi[:, None])
+        v_lim = np.concatenate([np.full(6, INF), r.velocity_limit])[:, None]
+        v_lo, v_hi = np.repeat(-v_lim, K, axis=1), np.repeat(v_lim, K, axis=1)
+        v_lo[:, [0, -1]] = v_hi[:, [0, -1]] = 0.0
+        L.set(lo, "v", v_lo), L.set(hi, "v", v_hi)
+        a_lo, a_hi = np.full((r.nv, K), -INF), np.full((r.nv, K), INF)
+        a_lo[:, -1] = a_hi[:, -1] = 0.0
+        L.set(lo, "a", a_lo), L.set(hi, "a", a_hi)
+        L.set(lo, "tau", r.torque_lower[:, None]), L.set(hi, "tau", r.torque_upper[:, None])
+        for p in range(self.disturbance_count):
+            L.set(lo, f"rho{p}", 0.0)
+        if "floor" in L:
+            L.set(lo, "floor", 0.0)
+        if initial_posture is not None:
+            q_lo_k, q_hi_k = L.get(lo, "q"), L.get(hi, "q")
+            q_lo_k[:, 0] = q_hi_k[:, 0] = initial_posture
+            L.set(lo, "q", q_lo_k), L.set(hi, "q", q_hi_k)
+        return lo, hi

@@ -1,0 +1,61 @@
+"""Task numbers entering the NLP as parameters (never baked into the graph)."""
+from __future__ import annotations
+
+import numpy as np
+
+from ..problem.friction import pyramid_facets
+from .layout import VectorLayout
+from .structure import Structure
+
+
+def parameter_layout(structure: Structure, robot) -> VectorLayout:
+    """Layout of the parameter vector for ``structure`` on ``robot``.
+
+    Blocks (physical units): ``step`` [s]; ``footholds`` (3, nc) [m];
+    ``normals`` (3, nc); ``facets`` (3 m, nc), the pyramid rows of each contact
+    stacked; ``min_normal_force`` [N]; ``tau_lower``/``tau_upper`` (nj,) [N m];
+    ``target_position`` (3, n_slots) [m]; ``target_rotation`` (9, n_slots),
+    column-major rotation matrices; ``shape<p>`` (d*d,) per disturbance;
+    ``posture`` (nq,), the nominal configuration of the regularizer.
+    """
+    layout = VectorLayout()
+    layout.add("step")
+    layout.add("footholds", 3, structure.nc)
+    layout.add("normals", 3, structure.nc)
+    layout.add("facets", 3 * structure.facets, structure.nc)
+    layout.add("min_normal_force")
+    layout.add("tau_lower", robot.nj)
+    layout.add("tau_upper", robot.nj)
+    layout.add("target_position", 3, len(structure.targets))
+    layout.add("target_rotation", 9, len(structure.targets))
+    for p, slot in enumerate(structure.disturbances):
+        layout.add(f"shape{p}", slot.dim * slot.dim)
+    layout.add("posture", robot.nq)
+    return layout
+
+
+def parameter_values(task, structure: Structure, layout: VectorLayout, posture=None) -> np.ndarray:
+    """The parameter vector of ``task`` (which must have ``structure``).
+
+    ``posture`` (nq,) is the regularizer's nominal configuration; by default
+    the robot's standing posture.
+    """
+    robot = task.robot
+    values = layout.zeros()
+    layout.set(values, "step", task.duration / (task.knots - 1))
+    layout.set(values, "footholds", np.array([c.foothold for c in task.contacts]).T)
+    layout.set(values, "normals", np.array([c.normal for c in task.contacts]).T)
+    rows = [pyramid_facets(c.normal, c.tangents, c.friction, structure.facets).reshape(-1) for c in task.contacts]
+    layout.set(values, "facets", np.array(rows).T)
+    layout.set(values, "min_normal_force", task.min_normal_force)
+    layout.set(values, "tau_lower", robot.torque_lower)
+    layout.set(values, "tau_upper", robot.torque_upper)
+    if structure.targets:
+        targets = [task.hand_targets[s.target] for s in structure.targets]
+        layout.set(values, "target_position", np.array([t.position for t in targets]).T)
+        rotations = [np.eye(3) if t.orientation is None else np.asarray(t.orientation) for t in targets]
+        layout.set(values, "target_rotation", np.array([r.reshape(-1, order="F") for r in rotations]).T)
+    for p, spec in enumerate(task.disturbances):
+        layout.set(values, f"shape{p}", np.asarray(spec.shape, dtype=float).reshape(-1, order="F"))
+    layout.set(values, "posture", robot.standing_posture if posture is None else posture)
+    return values

@@ -1,0 +1,113 @@
+"""What fixes the shape of the NLP, apart from the numbers that fill it.
+
+Two tasks with equal :class:`Structure` produce NLPs with identical sparsity:
+one built solver serves both, with the numbers (footholds, normals, friction,
+targets, limits, shape matrices, time step) passed as parameters
+(:func:`parameter_values`). Batches over terrain variants rely on this.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..problem.friction import pyramid_facets
+
+
+@dataclass(frozen=True)
+class TargetSlot:
+    """A hand-target constraint at one knot.
+
+    ``target`` indexes ``task.hand_targets``; ``orientation`` adds the
+    rotation constraint.
+    """
+
+    knot: int
+    target: int
+    frame: str
+    orientation: bool
+
+
+@dataclass(frozen=True)
+class DisturbanceSlot:
+    """A disturbance point: frame name and kind, ``"force"`` (d=3) or ``"wrench"`` (d=6)."""
+
+    frame: str
+    kind: str
+
+    @property
+    def dim(self) -> int:
+        return 3 if self.kind == "force" else 6
+
+
+@dataclass(frozen=True)
+class Structure:
+    """The shape of one transcription.
+
+    Attributes
+    ----------
+    knots : int
+        Number of knots K (times ``linspace(0, duration, K)``).
+    contact_frames : tuple of str
+        The nc contact frames, all in stance over the whole horizon.
+    facets : int
+        Facets per friction pyramid.
+    targets : tuple of TargetSlot
+        Hand constraints, at most one per (knot, frame).
+    disturbances : tuple of DisturbanceSlot
+        P >= 1 disturbance points; each gets gains and a margin per knot.
+    fixed_start : bool
+        The start configuration is fixed (task ``initial_posture``).
+    """
+
+    knots: int
+    contact_frames: tuple
+    facets: int
+    targets: tuple
+    disturbances: tuple
+    fixed_start: bool
+
+    @property
+    def nc(self) -> int:
+        return len(self.contact_frames)
+
+    @property
+    def intervals(self) -> int:
+        return self.knots - 1
+
+
+def knot_times(duration: float, knots: int) -> np.ndarray:
+    """Knot times [s], shape (K,): uniform from 0 to ``duration``."""
+    return np.linspace(0.0, duration, knots)
+
+
+def target_knots(t_start: float, t_end: float, times: np.ndarray) -> list[int]:
+    """Knots a hand target binds: all knots inside ``[t_start, t_end]``, or the nearest one.
+
+    A time window shorter than a step still binds its nearest knot, so a
+    target never disappears when the knot count is reduced.
+    """
+    step = times[1] - times[0]
+    inside = [k for k, t in enumerate(times) if t_start - 1e-9 * step <= t <= t_end + 1e-9 * step]
+    if inside:
+        return inside
+    return [int(np.argmin(np.abs(times - 0.5 * (t_start + t_end))))]
+
+
+def structure_of(task) -> Structure:
+    """The :class:`Structure` of a loaded task."""
+    times = knot_times(task.duration, task.knots)
+    slots, taken = [], set()
+    for i, target in enumerate(task.hand_targets):
+        for k in target_knots(target.t_start, target.t_end, times):
+            if (k, target.frame) not in taken:
+                taken.add((k, target.frame))
+                slots.append(TargetSlot(k, i, target.frame, target.orientation is not None))
+    return Structure(
+        knots=task.knots,
+        contact_frames=tuple(c.frame for c in task.contacts),
+        facets=task.facets,
+        targets=tuple(sorted(slots, key=lambda s: (s.knot, s.frame))),
+        disturbances=tuple(DisturbanceSlot(d.frame, d.kind) for d in task.disturbances),
+        fixed_start=task.initial_posture is not None,
+    )
