@@ -43,7 +43,7 @@ class KnotFunctions:
         self.robust = [self._robust(p, slot) for p, slot in enumerate(structure.disturbances)]
         self.hand = {frame: self._hand(frame) for frame in {s.frame for s in structure.targets}}
 
-    def _sym(self, name, rows, cols=1):
+    def _sym(self, name, rows=1, cols=1):
         return ca.SX.sym(name, rows, cols)
 
     def _dynamics(self) -> ca.Function:

@@ -38,7 +38,7 @@ class VectorLayout:
         self._blocks: dict[str, Block] = {}
         self.size = 0
 
-    def add(self, name: str, rows: int, cols: int = 1, scale: float = 1.0) -> Block:
+    def add(self, name: str, rows: int = 1, cols: int = 1, scale: float = 1.0) -> Block:
         """Append a block; returns it. Names are unique."""
         if name in self._blocks:
             raise ValueError(f"block '{name}' is already laid out")
@@ -75,7 +75,10 @@ class VectorLayout:
     def set(self, vector: np.ndarray, name: str, value) -> None:
         """Write the physical ``value`` (broadcast to the block's shape) into ``vector`` in place."""
         b = self._blocks[name]
-        value = np.broadcast_to(np.asarray(value, dtype=float), (b.rows, b.cols))
+        value = np.asarray(value, dtype=float)
+        if value.ndim == 1 and value.size == b.size:
+            value = value.reshape((b.rows, b.cols), order="F")
+        value = np.broadcast_to(value, (b.rows, b.cols))
         vector[b.offset:b.stop] = value.reshape(-1, order="F") / b.scale
 
     def unpack(self, vector) -> dict[str, np.ndarray]:
