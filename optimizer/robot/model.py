@@ -258,9 +258,9 @@ def check_moving_inertias(model: pin.Model, urdf_joints: dict[str, UrdfJoint], u
     """Each body moved by a joint needs mass > 0 and a positive definite inertia."""
     for j in range(2, model.njoints):
         name = model.names[j]
-        if urdf_joints.get(name, UrdfJoint(name, "", "", None, None)).kind not in MOVING_JOINTS:
-            raise ModelError(urdf_path, f"joint '{name}'", "revolute, continuous or prismatic joints",
-                             urdf_joints[name].kind if name in urdf_joints else "unknown type")
+        kind = urdf_joints[name].kind if name in urdf_joints else "unknown"
+        if kind not in MOVING_JOINTS:
+            raise ModelError(urdf_path, f"joint '{name}'", "revolute, continuous or prismatic joints", kind)
         inertia = model.inertias[j]
         moments = np.linalg.eigvalsh(inertia.inertia)
         if inertia.mass <= 0 or moments.min() <= 0:
