@@ -220,14 +220,14 @@ class SymbolicRobot:
             momentum = _inertia_times_motion(inertia, *vi)
             force[joint.index] = _add(_inertia_times_motion(inertia, *ai),
                                       spatial.motion_cross_force(*vi, *momentum))
-        tau = [None] * len(self.joints)
-        for k, joint in reversed(list(enumerate(self.joints))):
-            tau[k] = _joint_force(joint, *force[joint.index])
+        tau = {}
+        for joint in reversed(self.joints):
+            tau[joint.idx_v] = _joint_force(joint, *force[joint.index])
             if joint.parent != 0:
                 rot, pos = self._kin.local[joint.index]
                 force[joint.parent] = _add(force[joint.parent],
                                            spatial.force_act(rot, pos, *force[joint.index]))
-        return ca.Function("rnea", [self._q, v, a], [ca.vertcat(*tau)],
+        return ca.Function("rnea", [self._q, v, a], [ca.vertcat(*(tau[i] for i in sorted(tau)))],
                            ["q", "v", "a"], ["tau"])
 
     def _build_com(self) -> ca.Function:
@@ -405,7 +405,11 @@ def _integrate_joint(joint: JointInfo, q, dv):
         quat = qj[3:7]
         rot = spatial.rotation_from_quaternion(quat)
         pos = qj[0:3] + rot @ (spatial.exp_translation_matrix(dj[3:6]) @ dj[0:3])
-        return ca.vertcat(pos, spatial.quaternion_multiply(quat, spatial.quaternion_exp(dj[3:6])))
+        quat_next = spatial.quaternion_multiply(quat, spatial.quaternion_exp(dj[3:6]))
+        # Same hemisphere as the start quaternion, as pinocchio.integrate does
+        # (only flips for rotation steps beyond pi rad).
+        hemisphere = ca.if_else(ca.dot(quat_next, quat) < 0, -1.0, 1.0)
+        return ca.vertcat(pos, hemisphere * quat_next)
     if joint.kind == "continuous":
         c, s = ca.cos(dj[0]), ca.sin(dj[0])
         return ca.vertcat(c * qj[0] - s * qj[1], s * qj[0] + c * qj[1])
