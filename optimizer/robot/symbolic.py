@@ -177,14 +177,21 @@ class SymbolicRobot:
     com : casadi.Function
         ``q -> com[3]``, m, world frame.
     integrate : casadi.Function
-        ``(q[nq], dv[nv]) -> q_next[nq]``, as ``pinocchio.integrate``.
+        ``(q[nq], dv[nv]) -> q_next[nq]``, as ``pinocchio.integrate``: base
+        moved by the SE(3) exponential of ``dv[:6]`` (base frame), continuous
+        joints rotated on their (cos, sin) circle, others added. The base
+        quaternion is multiplied by a unit quaternion, so its norm is kept
+        exactly (Pinocchio also renormalizes to first order; the two agree on
+        unit quaternions).
     difference : casadi.Function
-        ``(q0[nq], q1[nq]) -> dv[nv]``, as ``pinocchio.difference``.
+        ``(q0[nq], q1[nq]) -> dv[nv]``, as ``pinocchio.difference`` (SE(3)
+        log of the relative base placement, rotation angle in [0, pi]).
     """
 
     def __init__(self, model: pinocchio.Model):
         self.model = model
         self.joints = read_joints(model)
+        self._joint_by_index = {joint.index: joint for joint in self.joints}
         self.nq, self.nv = model.nq, model.nv
         self.nj = model.nv - 6
         self._q = ca.SX.sym("q", self.nq)
@@ -202,24 +209,7 @@ class SymbolicRobot:
     def _build_rnea(self) -> ca.Function:
         v = ca.SX.sym("v", self.nv)
         a = ca.SX.sym("a", self.nv)
-        gravity = self.model.gravity
-        vel = {0: None}
-        acc = {0: (-ca.DM(gravity.linear), -ca.DM(gravity.angular))}
-        force = {}
-        for joint in self.joints:
-            rot, pos = self._kin.local[joint.index]
-            vj = _joint_motion(joint, v)
-            if joint.parent == 0:
-                vi = vj
-            else:
-                vi = _add(spatial.motion_act_inverse(rot, pos, *vel[joint.parent]), vj)
-            ai = _add(spatial.motion_act_inverse(rot, pos, *acc[joint.parent]),
-                      _joint_motion(joint, a), spatial.motion_cross_motion(*vi, *vj))
-            vel[joint.index], acc[joint.index] = vi, ai
-            inertia = self.model.inertias[joint.index]
-            momentum = _inertia_times_motion(inertia, *vi)
-            force[joint.index] = _add(_inertia_times_motion(inertia, *ai),
-                                      spatial.motion_cross_force(*vi, *momentum))
+        force = self._body_forces(v, a)
         tau = {}
         for joint in reversed(self.joints):
             tau[joint.idx_v] = _joint_force(joint, *force[joint.index])
@@ -227,8 +217,32 @@ class SymbolicRobot:
                 rot, pos = self._kin.local[joint.index]
                 force[joint.parent] = _add(force[joint.parent],
                                            spatial.force_act(rot, pos, *force[joint.index]))
-        return ca.Function("rnea", [self._q, v, a], [ca.vertcat(*(tau[i] for i in sorted(tau)))],
-                           ["q", "v", "a"], ["tau"])
+        tau_vector = ca.vertcat(*(tau[i] for i in sorted(tau)))
+        return ca.Function("rnea", [self._q, v, a], [tau_vector], ["q", "v", "a"], ["tau"])
+
+    def _body_forces(self, v, a) -> dict:
+        """Forward RNEA pass: net spatial force of each body, in its joint frame.
+
+        Gravity enters as an upward acceleration of the world, ``-model.gravity``.
+        Returns ``{joint index: (force (3, 1) N, moment (3, 1) N m)}``.
+        """
+        gravity = self.model.gravity
+        vel = {}
+        acc = {0: (-ca.DM(gravity.linear), -ca.DM(gravity.angular))}
+        force = {}
+        for joint in self.joints:
+            rot, pos = self._kin.local[joint.index]
+            vj = _joint_motion(joint, v)
+            vi = vj if joint.parent == 0 else _add(
+                spatial.motion_act_inverse(rot, pos, *vel[joint.parent]), vj)
+            ai = _add(spatial.motion_act_inverse(rot, pos, *acc[joint.parent]),
+                      _joint_motion(joint, a), spatial.motion_cross_motion(*vi, *vj))
+            vel[joint.index], acc[joint.index] = vi, ai
+            inertia = self.model.inertias[joint.index]
+            momentum = _inertia_times_motion(inertia, *vi)
+            force[joint.index] = _add(_inertia_times_motion(inertia, *ai),
+                                      spatial.motion_cross_force(*vi, *momentum))
+        return force
 
     def _build_com(self) -> ca.Function:
         weighted = ca.SX.zeros(3)
@@ -277,7 +291,7 @@ class SymbolicRobot:
 
     def _support(self, joint_index: int) -> list[JointInfo]:
         """Joints between the world and ``joint_index`` (inclusive), root first."""
-        by_index = {joint.index: joint for joint in self.joints}
+        by_index = self._joint_by_index
         chain = []
         while joint_index != 0:
             chain.append(by_index[joint_index])
