@@ -14,7 +14,7 @@ linear-gain margin and the exact certification both read it.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -33,7 +33,8 @@ class KnotResponse:
     shape : ndarray, shape (d, d)
         Shape matrix W of the disturbance set ``{W u : |u| <= rho}``.
     tau, tau_lower, tau_upper : ndarray, shape (nj,)
-        Planned joint torques and their limits [N m or N].
+        Planned joint torques and their limits [N m or N]; an infinite limit
+        means no limit.
     forces : ndarray, shape (nc, 3)
         Planned contact forces, world frame [N].
     facets : ndarray, shape (nc, m, 3)
@@ -44,6 +45,13 @@ class KnotResponse:
         Smallest admissible ``n . f`` of an active contact [N].
     active : ndarray of bool, shape (nc,)
         Contacts in stance; inactive contacts carry no force and no change.
+    base_dofs : int
+        Number of unactuated leading velocity coordinates: 6 for a floating
+        base, 0 for a fixed-base arm.
+    joint_names : tuple of str
+        Names of the nj actuated joints (for reports); empty for "joint i".
+    contact_names : tuple of str
+        Names of the nc contacts (for reports); empty for "contact c".
     """
 
     contact_jacobian: np.ndarray
@@ -57,6 +65,9 @@ class KnotResponse:
     normals: np.ndarray
     min_normal_force: float
     active: np.ndarray
+    base_dofs: int = 6
+    joint_names: tuple = field(default_factory=tuple)
+    contact_names: tuple = field(default_factory=tuple)
 
     @property
     def nc(self) -> int:
@@ -66,12 +77,93 @@ class KnotResponse:
     def nj(self) -> int:
         return self.tau.shape[0]
 
+    @property
+    def dim(self) -> int:
+        """Dimension d of the disturbance (3 for a force, 6 for a wrench)."""
+        return self.shape.shape[1]
+
     def split(self):
         """Base and joint blocks: ``(Jc_b, Jc_j, Je_b, Je_j)``.
 
-        ``Jc_b`` has shape (3 nc, 6), ``Jc_j`` (3 nc, nj); ``Je_b`` (d, 6),
-        ``Je_j`` (d, nj); ``Je`` already multiplied by the shape matrix.
+        ``Jc_b`` has shape (3 nc, b), ``Jc_j`` (3 nc, nj); ``Je_b`` (d, b),
+        ``Je_j`` (d, nj), with b = ``base_dofs``; ``Je`` already multiplied
+        by the shape matrix.
         """
+        b = self.base_dofs
         jc = self.contact_jacobian
         je = self.shape.T @ self.disturbance_jacobian
-        return jc[:, :6], jc[:, 6:], je[:, :6], je[:, 6:]
+        return jc[:, :b], jc[:, b:], je[:, :b], je[:, b:]
+
+    def joint_name(self, i: int) -> str:
+        return self.joint_names[i] if self.joint_names else f"joint {i}"
+
+    def contact_name(self, c: int) -> str:
+        return self.contact_names[c] if self.contact_names else f"contact {c}"
+
+    def limit_rows(self) -> "LimitRows":
+        """The response problem as linear rows in ``x = (u, dlambda_active)``."""
+        return build_limit_rows(self)
+
+
+@dataclass
+class LimitRows:
+    """The response problem ``A_ub x <= b_ub, A_eq x = 0`` in ``x = (u, dlambda)``.
+
+    ``u`` (first ``dim`` entries) is the disturbance coordinate, ``dlambda``
+    the changes of the active contacts' forces (3 per active contact, world
+    frame, N); ``dtau`` is eliminated through the joint rows.
+
+    Attributes
+    ----------
+    a_ub : ndarray, shape (r, dim + 3 na)
+    b_ub : ndarray, shape (r,)
+        Room left at the plan's own point; a negative entry is a limit the
+        plan already violates.
+    a_eq : ndarray, shape (base_dofs, dim + 3 na)
+    names : list of str, length r
+        One name per row, e.g. ``"torque knee (upper)"``.
+    dim : int
+    """
+
+    a_ub: np.ndarray
+    b_ub: np.ndarray
+    a_eq: np.ndarray
+    names: list
+    dim: int
+
+
+def build_limit_rows(resp: KnotResponse) -> LimitRows:
+    """Linear rows of the torque box, pyramid facets and minimum normal forces."""
+    jc_b, jc_j, je_b, je_j = resp.split()
+    cols = np.flatnonzero(np.repeat(np.asarray(resp.active, bool), 3))
+    d = resp.dim
+    # dtau = -(Jc_j^T dlambda + Je_j^T u) = -T x
+    t_map = np.hstack([je_j.T, jc_j[cols].T])
+    blocks, rhs, names = [], [], []
+    for i in range(resp.nj):
+        name = resp.joint_name(i)
+        if np.isfinite(resp.tau_upper[i]):
+            blocks.append(-t_map[i])
+            rhs.append(resp.tau_upper[i] - resp.tau[i])
+            names.append(f"torque {name} (upper)")
+        if np.isfinite(resp.tau_lower[i]):
+            blocks.append(t_map[i])
+            rhs.append(resp.tau[i] - resp.tau_lower[i])
+            names.append(f"torque {name} (lower)")
+    width = d + cols.size
+    for slot, c in enumerate(np.flatnonzero(resp.active)):
+        lam = resp.forces[c]
+        for j, g in enumerate(resp.facets[c]):
+            row = np.zeros(width)
+            row[d + 3 * slot: d + 3 * slot + 3] = g
+            blocks.append(row)
+            rhs.append(-g @ lam)
+            names.append(f"{resp.contact_name(c)} friction facet {j}")
+        row = np.zeros(width)
+        row[d + 3 * slot: d + 3 * slot + 3] = -resp.normals[c]
+        blocks.append(row)
+        rhs.append(resp.normals[c] @ lam - resp.min_normal_force)
+        names.append(f"{resp.contact_name(c)} min normal force")
+    a_ub = np.array(blocks, dtype=float).reshape(len(blocks), width)
+    a_eq = np.hstack([je_b.T, jc_b[cols].T])
+    return LimitRows(a_ub, np.array(rhs, dtype=float), a_eq, names, d)

@@ -1,0 +1,273 @@
+"""Plan files (``plan/1``, /work/shared/PLAN_FORMAT.md): one self-contained ``.npz``.
+
+``save_plan`` writes the arrays and the ``meta`` JSON (a 0-d unicode array)
+atomically and without pickle; ``load_plan`` reads any file that follows the
+contract, whoever wrote it, and checks it: missing keys, dtypes, shapes
+consistent with the URDF in ``meta`` (K knots, nq, nv, nj = nv - 6, nc
+contacts), the ``meta`` fields readers rely on. Every problem is a
+:class:`~optimizer.errors.PlanFileError` naming the file and the field.
+"""
+from __future__ import annotations
+
+import json
+import zipfile
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from .errors import PlanFileError
+from .files import atomic_output
+from .schema import Fields
+
+PLAN_FORMAT = "plan/1"
+
+# key -> (dtype kind, shape in symbols)
+ARRAYS = {
+    "t": ("f", ("K",)),
+    "q": ("f", ("K", "nq")),
+    "v": ("f", ("K", "nv")),
+    "a": ("f", ("K", "nv")),
+    "tau": ("f", ("K", "nj")),
+    "contact_forces": ("f", ("K", "nc", 3)),
+    "contact_active": ("b", ("K", "nc")),
+    "contact_targets": ("f", ("K", "nc", 3)),
+    "margin": ("f", ("K",)),
+}
+FINITE = ("t", "q", "v", "a", "tau", "contact_forces")
+RESERVED = set(ARRAYS) | {"meta", "margins"}
+
+
+@dataclass
+class Plan:
+    """A solved plan: per-knot arrays and the metadata that makes them readable.
+
+    Attributes
+    ----------
+    t : ndarray, shape (K,)
+        Knot times [s].
+    q : ndarray, shape (K, nq)
+        Configurations, Pinocchio layout with a free-flyer root.
+    v, a : ndarray, shape (K, nv)
+        Generalized velocities and accelerations (Pinocchio convention).
+    tau : ndarray, shape (K, nj)
+        Joint torques [N m], order of ``meta["joint_names"]``.
+    contact_forces : ndarray, shape (K, nc, 3)
+        Force of the environment on the robot, world frame [N].
+    contact_active : ndarray of bool, shape (K, nc)
+    contact_targets : ndarray, shape (K, nc, 3)
+        Footholds, world frame [m]; NaN where not active.
+    margin : ndarray, shape (K,)
+        Smallest unrejectable force from linear gains [N], first disturbance.
+    meta : dict
+        The ``meta`` JSON (format, urdf, joint_names, contact_frames, ...).
+    margins : ndarray, shape (K, P), optional
+        One column per disturbance point.
+    extras : dict of str to ndarray
+        Further float or bool arrays, saved under their own keys.
+    """
+
+    t: np.ndarray
+    q: np.ndarray
+    v: np.ndarray
+    a: np.ndarray
+    tau: np.ndarray
+    contact_forces: np.ndarray
+    contact_active: np.ndarray
+    contact_targets: np.ndarray
+    margin: np.ndarray
+    meta: dict
+    margins: np.ndarray | None = None
+    extras: dict = field(default_factory=dict)
+
+    @property
+    def knots(self) -> int:
+        return self.t.shape[0]
+
+    def arrays(self) -> dict:
+        """Every array of the file, keyed as in the file (``meta`` excluded)."""
+        out = {key: getattr(self, key) for key in ARRAYS}
+        if self.margins is not None:
+            out["margins"] = self.margins
+        out.update(self.extras)
+        return out
+
+
+def save_plan(plan: Plan, path) -> None:
+    """Write ``plan`` to ``path`` atomically as an uncompressed ``.npz`` (no pickle)."""
+    for key, value in plan.extras.items():
+        if key in RESERVED or np.asarray(value).dtype.kind not in "fb":
+            raise PlanFileError(path, f"extras.{key}", "a float or bool array under a key the contract does not use",
+                                f"{key!r} with dtype {np.asarray(value).dtype}")
+    arrays = {key: np.asarray(value) for key, value in plan.arrays().items()}
+    for key, (kind, _) in ARRAYS.items():
+        arrays[key] = arrays[key].astype(bool if kind == "b" else np.float64)
+    arrays["meta"] = np.array(json.dumps(plan.meta))
+    with atomic_output(path, suffix=".npz") as tmp, open(tmp, "wb") as stream:
+        np.savez(stream, **arrays)
+
+
+def load_plan(path) -> Plan:
+    """Read and check a ``plan/1`` file.
+
+    Raises
+    ------
+    PlanFileError
+        If the file is missing, not an ``.npz`` archive, lacks a key, or has
+        a dtype, shape or ``meta`` field that breaks the contract.
+    """
+    path = Path(path)
+    raw = _read_archive(path)
+    meta = _parse_meta(path, raw)
+    sizes = _sizes_from_meta(path, meta)
+    sizes["K"] = _knot_count(path, raw)
+    for key, (kind, shape) in ARRAYS.items():
+        _check_array(path, key, raw, kind, shape, sizes)
+    margins = raw.get("margins")
+    if margins is not None:
+        _check_array(path, "margins", raw, "f", ("K", "P"), sizes)
+    _check_finite(path, raw)
+    extras = {k: v for k, v in raw.items() if k not in RESERVED}
+    return Plan(**{k: raw[k] for k in ARRAYS}, meta=meta, margins=margins, extras=extras)
+
+
+def _read_archive(path: Path) -> dict:
+    if not path.is_file():
+        raise PlanFileError(path, "", "an existing plan file (.npz)", "no such file")
+    try:
+        with np.load(path, allow_pickle=False) as archive:
+            return {key: archive[key] for key in archive.files}
+    except (zipfile.BadZipFile, OSError, EOFError) as exc:
+        raise PlanFileError(path, "", "a NumPy .npz archive", str(exc) or type(exc).__name__) from None
+    except ValueError as exc:  # object arrays need pickle, which a plan never uses
+        raise PlanFileError(path, "", "arrays readable without pickle", str(exc)) from None
+
+
+def _parse_meta(path: Path, raw: dict) -> dict:
+    if "meta" not in raw:
+        raise PlanFileError(path, "meta", "a 0-d unicode array holding JSON", "missing key")
+    meta = raw["meta"]
+    if meta.dtype.kind != "U" or meta.ndim != 0:
+        raise PlanFileError(path, "meta", "a 0-d unicode array holding JSON",
+                            f"dtype {meta.dtype}, shape {meta.shape}")
+    try:
+        data = json.loads(str(meta))
+    except json.JSONDecodeError as exc:
+        raise PlanFileError(path, "meta", "valid JSON", f"{exc.msg} at character {exc.pos}") from None
+    if not isinstance(data, dict):
+        raise PlanFileError(path, "meta", "a JSON object", type(data).__name__)
+    if data.get("format") != PLAN_FORMAT:
+        raise PlanFileError(path, "meta.format", f"'{PLAN_FORMAT}'", data.get("format"))
+    return data
+
+
+def build_model(path, urdf: str):
+    """Pinocchio model of ``urdf`` with a free-flyer root (the contract's layout)."""
+    import pinocchio as pin
+
+    try:
+        return pin.buildModelFromXML(urdf, pin.JointModelFreeFlyer())
+    except (ValueError, RuntimeError, TypeError) as exc:
+        raise PlanFileError(path, "meta.urdf", "a URDF that Pinocchio can load",
+                            str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__) from None
+
+
+def _sizes_from_meta(path: Path, meta: dict) -> dict:
+    """nq, nv, nj, nc, P from ``meta`` after checking the fields readers use."""
+    f = Fields(meta, path, "meta", PlanFileError)
+    model = build_model(path, f.string("urdf"))
+    nj = model.nv - 6
+    joints = _names(f, "joint_names")
+    if joints != list(model.names[2:]):
+        f.fail("joint_names", f"the {nj} actuated joints in Pinocchio's order {list(model.names[2:])}", joints)
+    contacts = _names(f, "contact_frames")
+    for i, name in enumerate(contacts):
+        if not model.existFrame(name):
+            f.fail(f"contact_frames[{i}]", "a frame of the URDF", name)
+    nc = len(contacts)
+    f.vector("gravity", 3)
+    if nc:
+        f.matrix("contact_normals", (nc, 3))
+    f.vector("friction", nc)
+    _check_pyramid(f.sub("friction_pyramid"), nc)
+    f.number("min_normal_force", lo=0.0)
+    limits = f.sub("torque_limits")
+    for side in ("lower", "upper"):
+        _limit_vector(limits, side, nj)
+    count = _check_disturbances(f, model)
+    return {"nq": model.nq, "nv": model.nv, "nj": nj, "nc": nc, "P": count}
+
+
+def _names(f: Fields, key: str) -> list:
+    value = f.raw(key)
+    if not isinstance(value, list) or not all(isinstance(x, str) for x in value):
+        f.fail(key, "a list of names", value)
+    return value
+
+
+def _check_pyramid(f: Fields, nc: int) -> None:
+    f.integer("facets", lo=3)
+    f.boolean("inscribed")
+    tangents = f.raw("tangents")
+    if not isinstance(tangents, list) or len(tangents) != nc:
+        f.fail("tangents", f"a list of {nc} pairs of tangent vectors", tangents)
+    for c, pair in enumerate(tangents):
+        key = f"tangents[{c}]"
+        Fields({key: pair}, f.file, f.path, f.error).matrix(key, (2, 3))
+
+
+def _limit_vector(f: Fields, key: str, size: int) -> np.ndarray:
+    """Torque limits; ``null`` or +-Infinity mean no limit."""
+    value = f.raw(key)
+    if not isinstance(value, list) or len(value) != size:
+        f.fail(key, f"a list of {size} numbers", value)
+    sign = -1.0 if key == "lower" else 1.0
+    out = [sign * np.inf if x is None else x for x in value]
+    if not all(isinstance(x, (int, float)) and not isinstance(x, bool) and not np.isnan(x) for x in out):
+        f.fail(key, f"a list of {size} numbers (null for no limit)", value)
+    return np.array(out, dtype=float)
+
+
+def _check_disturbances(f: Fields, model) -> int:
+    entries = f.raw("disturbances")
+    if not isinstance(entries, list) or not entries:
+        f.fail("disturbances", "a non-empty list of disturbance points", entries)
+    for i, entry in enumerate(entries):
+        d = Fields(entry, f.file, f.at(f"disturbances[{i}]"), f.error)
+        frame = d.string("frame")
+        if not model.existFrame(frame):
+            d.fail("frame", "a frame of the URDF", frame)
+        size = 3 if d.string("kind", choices=("force", "wrench")) == "force" else 6
+        d.matrix("shape", (size, size))
+    return len(entries)
+
+
+def _knot_count(path: Path, raw: dict) -> int:
+    t = raw.get("t")
+    if t is None:
+        raise PlanFileError(path, "t", "float64 array of shape (K,)", "missing key")
+    if t.ndim != 1 or t.shape[0] < 1:
+        raise PlanFileError(path, "t", "float64 array of shape (K,) with K >= 1", f"shape {t.shape}")
+    return t.shape[0]
+
+
+def _check_array(path: Path, key: str, raw: dict, kind: str, shape, sizes: dict) -> None:
+    want = tuple(sizes[s] if isinstance(s, str) else s for s in shape)
+    label = "(" + ", ".join(f"{s}={sizes[s]}" if isinstance(s, str) else str(s) for s in shape) + ")"
+    dtype = "bool" if kind == "b" else "float64"
+    if key not in raw:
+        raise PlanFileError(path, key, f"{dtype} array of shape {label}", "missing key")
+    arr = raw[key]
+    if arr.dtype != np.dtype(dtype):
+        raise PlanFileError(path, key, f"dtype {dtype}", f"dtype {arr.dtype}")
+    if arr.shape != want:
+        raise PlanFileError(path, key, f"shape {label}", f"shape {arr.shape}")
+
+
+def _check_finite(path: Path, raw: dict) -> None:
+    for key in FINITE:
+        bad = np.argwhere(~np.isfinite(raw[key]))
+        if bad.size:
+            raise PlanFileError(path, key, "finite numbers", f"non-finite value at index {tuple(bad[0])}")
+    if np.any(np.diff(raw["t"]) < 0.0):
+        raise PlanFileError(path, "t", "non-decreasing knot times", raw["t"])
