@@ -1,0 +1,367 @@
+"""Exact certification of a plan's smallest unrejectable force, knot by knot.
+
+For each knot: the exact figure ``rho`` of the residual force polytope
+(:mod:`.polytope`), the weakest direction (world frame), the bottleneck (the
+limits that stop a push that way, by name), the plan's own margin and the
+ratio of the two. A disturbance replay draws random forces within the
+planned margin and checks each is rejectable, then pushes just beyond
+``rho`` along the weakest direction and checks that push is not.
+"""
+from __future__ import annotations
+
+import collections
+import math
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .knot_response import knot_responses
+from .polytope import EmptyResidualSet, SupportLP, project, sample_support
+from .response import KnotResponse
+
+DEFAULT_TOL = 1e-7
+DEFAULT_CAP = 1e6
+MARGIN_RTOL = 1e-6
+
+
+@dataclass
+class Settings:
+    """How to certify.
+
+    Attributes
+    ----------
+    tol : float
+        Relative agreement of inner and outer hull at which refinement stops.
+    cap : float
+        Largest disturbance looked at [N]; directions the robot can resist
+        without bound stop there and are reported as capped.
+    full : bool
+        Project the whole polytope (true facet count), not only around rho.
+    samples : int
+        Sampled directions for 6-D (wrench) disturbances.
+    backend : str
+        ``"auto"``, ``"resident"`` or ``"linprog"`` (see :class:`SupportLP`).
+    """
+
+    tol: float = DEFAULT_TOL
+    cap: float = DEFAULT_CAP
+    full: bool = False
+    samples: int = 400
+    backend: str = "auto"
+
+
+@dataclass
+class ReplayCounts:
+    """Outcome of the disturbance replay (counts over knots).
+
+    ``drawn`` forces within the planned margin, of which ``rejected`` had an
+    admissible response; ``beyond_tried`` pushes just beyond rho along the
+    weakest direction, of which ``beyond_unrejectable`` had none.
+    """
+
+    drawn: int = 0
+    rejected: int = 0
+    beyond_tried: int = 0
+    beyond_unrejectable: int = 0
+    skipped: list = field(default_factory=list)
+
+    def add(self, other: "ReplayCounts") -> None:
+        self.drawn += other.drawn
+        self.rejected += other.rejected
+        self.beyond_tried += other.beyond_tried
+        self.beyond_unrejectable += other.beyond_unrejectable
+        self.skipped += other.skipped
+
+    @property
+    def passed(self) -> bool:
+        return self.rejected == self.drawn and self.beyond_unrejectable == self.beyond_tried
+
+
+@dataclass
+class KnotCertificate:
+    """Certification of one knot.
+
+    Attributes
+    ----------
+    knot : int
+    time : float
+        Knot time [s].
+    rho : float
+        Exact smallest unrejectable disturbance [N] (negative: the plan
+        already breaks a limit and no response repairs it; ``-inf``: no
+        response exists at all).
+    lower, upper : float
+        Bounds from inner and outer hull [N].
+    direction : ndarray, shape (d,)
+        Weakest direction, unit, world frame (``[force; moment]`` for a wrench).
+    bottleneck : list of str
+        Limits active when pushing along ``direction``.
+    planned : float
+        The plan's margin at this knot [N] (NaN if absent).
+    ratio : float
+        ``planned / rho``: 1 means the linear-gain bound is tight.
+    facets, vertices, lps : int
+        Distinct facets and vertices of the (inner) polytope, LPs solved.
+    method : str
+    flat, capped, unbounded, complete : bool
+        See :class:`~optimizer.analysis.polytope.Projection`.
+    violations : list of str
+        Limits the plan's own point already breaks, with the excess.
+    seconds : float
+        Wall time of this knot [s].
+    notes : list of str
+    replay : ReplayCounts or None
+        This knot's replay counts.
+    weakest_u : ndarray, shape (d,) or None
+        Weakest direction in the coordinates u of ``F = W u``.
+    """
+
+    knot: int
+    time: float
+    rho: float
+    lower: float
+    upper: float
+    direction: np.ndarray
+    bottleneck: list
+    planned: float
+    ratio: float
+    facets: int
+    vertices: int
+    lps: int
+    method: str
+    flat: bool = False
+    capped: bool = False
+    unbounded: bool = False
+    complete: bool = True
+    violations: list = field(default_factory=list)
+    seconds: float = 0.0
+    notes: list = field(default_factory=list)
+    replay: ReplayCounts | None = None
+    weakest_u: np.ndarray | None = None
+
+    @property
+    def margin_ok(self) -> bool:
+        """The planned margin does not exceed rho (relative tolerance 1e-6)."""
+        if not math.isfinite(self.planned):
+            return True
+        return self.planned <= self.rho + MARGIN_RTOL * max(abs(self.rho), 1e-9)
+
+    @property
+    def status(self) -> str:
+        if self.rho == -math.inf:
+            return "no admissible response"
+        if self.violations or self.rho < 0.0:
+            return "violation"
+        if not self.margin_ok:
+            return "margin above exact"
+        return "ok"
+
+    def to_json(self) -> dict:
+        return {
+            "knot": self.knot, "time_s": _num(self.time), "rho_exact_N": _num(self.rho),
+            "rho_lower_N": _num(self.lower), "rho_upper_N": _num(self.upper),
+            "weakest_direction": [_num(x) for x in self.direction],
+            "bottleneck": list(self.bottleneck), "planned_margin_N": _num(self.planned),
+            "planned_over_exact": _num(self.ratio), "status": self.status,
+            "facets": self.facets, "vertices": self.vertices, "lps": self.lps, "method": self.method,
+            "flat": self.flat, "capped": self.capped, "unbounded_directions": self.unbounded,
+            "converged": self.complete, "violations": list(self.violations),
+            "seconds": _num(self.seconds), "notes": list(self.notes),
+            "replay": None if self.replay is None else _replay_json(self.replay),
+        }
+
+
+def _num(x):
+    """JSON number or null for NaN / infinities."""
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def _replay_json(r: ReplayCounts) -> dict:
+    return {"drawn": r.drawn, "rejected": r.rejected, "beyond_tried": r.beyond_tried,
+            "beyond_unrejectable": r.beyond_unrejectable, "skipped": list(r.skipped), "passed": r.passed}
+
+
+def support_lp(resp: KnotResponse, settings: Settings) -> SupportLP:
+    """The knot's support LP, built once (only the cost changes per direction)."""
+    rows = resp.limit_rows()
+    return SupportLP(rows.a_ub, rows.b_ub, rows.a_eq, rows.dim, settings.cap, settings.backend, rows.names)
+
+
+def row_name(lp: SupportLP, index: int) -> str:
+    """Name of limit row ``index``, cap rows included (``"cap +u0"``)."""
+    if index < lp.rows:
+        return lp.names[index]
+    k = index - lp.rows
+    return f"cap {'+' if k < lp.dim else '-'}u{k % lp.dim}"
+
+
+def nominal_violations(lp: SupportLP, tol: float = 1e-9) -> list:
+    """Limits broken at the plan's own point (no disturbance, no change)."""
+    b = lp.b_ub[: lp.rows]
+    bad = np.flatnonzero(b < -tol * (1.0 + np.abs(b).max(initial=0.0)))
+    return [f"{lp.names[i]} exceeded by {-b[i]:.4g}" for i in bad]
+
+
+def certify_response(resp: KnotResponse, planned: float = math.nan, settings: Settings | None = None,
+                     knot: int = 0, t: float = 0.0) -> tuple[KnotCertificate, SupportLP]:
+    """Certify one knot's response problem; returns the certificate and its LP."""
+    settings = settings or Settings()
+    start = time.perf_counter()
+    lp = support_lp(resp, settings)
+    violations = nominal_violations(lp)
+    try:
+        if lp.dim <= 3:
+            proj = project(lp, settings.tol, settings.full)
+        else:
+            proj = sample_support(lp, settings.samples)
+    except EmptyResidualSet:
+        return _empty_certificate(resp, lp, planned, knot, t, violations, start), lp
+    direction = resp.shape @ proj.weakest.direction
+    rho = proj.rho
+    cert = KnotCertificate(
+        knot=knot, time=t, rho=rho, lower=proj.lower, upper=proj.upper,
+        direction=direction / np.linalg.norm(direction),
+        bottleneck=[row_name(lp, i) for i in proj.weakest.binding],
+        planned=float(planned), ratio=planned / rho if rho > 0.0 else math.nan,
+        facets=proj.facets, vertices=len(proj.vertices), lps=lp.solved, method=proj.method,
+        flat=proj.flat, capped=proj.capped, unbounded=proj.unbounded, complete=proj.complete,
+        violations=violations, notes=list(proj.notes), weakest_u=proj.weakest.direction,
+    )
+    cert.seconds = time.perf_counter() - start
+    return cert, lp
+
+
+def _empty_certificate(resp, lp, planned, knot, t, violations, start) -> KnotCertificate:
+    return KnotCertificate(
+        knot=knot, time=t, rho=-math.inf, lower=-math.inf, upper=-math.inf,
+        direction=np.full(resp.dim, math.nan), bottleneck=[], planned=float(planned), ratio=math.nan,
+        facets=0, vertices=0, lps=lp.solved, method="projection", violations=violations,
+        seconds=time.perf_counter() - start,
+        notes=["no change of torques and contact forces satisfies the limits, even without disturbance"],
+    )
+
+
+def replay_knot(lp: SupportLP, cert: KnotCertificate, draws: int, rng) -> ReplayCounts:
+    """Random disturbances within the planned margin, and one push just beyond rho.
+
+    Draws are uniform in the ball ``|u| <= planned`` (directions uniform on
+    the sphere). The push beyond is ``(rho + delta) d`` along the weakest
+    direction with ``delta = 1e-4 rho``; it is skipped when rho is not
+    positive or is the cap.
+    """
+    counts = ReplayCounts()
+    planned = cert.planned
+    if draws > 0 and math.isfinite(planned) and planned > 0.0:
+        dirs = rng.normal(size=(draws, lp.dim))
+        dirs /= np.linalg.norm(dirs, axis=1, keepdims=True)
+        radii = planned * rng.uniform(size=draws) ** (1.0 / lp.dim)
+        for u in dirs * radii[:, None]:
+            counts.drawn += 1
+            counts.rejected += lp.contains(u)
+    elif draws > 0:
+        counts.skipped.append(f"knot {cert.knot}: no positive planned margin to replay")
+    if cert.rho > 0.0 and not cert.capped and cert.weakest_u is not None:
+        counts.beyond_tried += 1
+        counts.beyond_unrejectable += not lp.contains(cert.rho * (1.0 + 1e-4) * cert.weakest_u)
+    else:
+        counts.skipped.append(f"knot {cert.knot}: no push beyond rho (rho not positive or capped)")
+    return counts
+
+
+@dataclass
+class PlanCertificate:
+    """Certificates of the chosen knots of one plan and their summary."""
+
+    knots: list
+    disturbance: dict
+    settings: Settings
+    replay: ReplayCounts | None = None
+
+    def smallest(self) -> KnotCertificate:
+        return min(self.knots, key=lambda c: c.rho)
+
+    def bottleneck_counts(self) -> collections.Counter:
+        """How many knots each limit is part of the bottleneck at."""
+        return collections.Counter(name for c in self.knots for name in set(c.bottleneck))
+
+    def problems(self) -> list:
+        """Plain-language list of what failed (empty when the plan is certified)."""
+        out = [f"knot {c.knot}: {c.status}" for c in self.knots if c.status != "ok"]
+        if self.replay is not None and not self.replay.passed:
+            r = self.replay
+            out.append(f"replay: {r.drawn - r.rejected} of {r.drawn} draws not rejectable, "
+                       f"{r.beyond_tried - r.beyond_unrejectable} of {r.beyond_tried} pushes beyond rho rejectable")
+        return out
+
+    def summary(self) -> dict:
+        low = self.smallest()
+        counts = self.bottleneck_counts()
+        name, times = counts.most_common(1)[0] if counts else (None, 0)
+        ratios = [c.ratio for c in self.knots if math.isfinite(c.ratio)]
+        seconds = [c.seconds for c in self.knots]
+        return {
+            "knots": len(self.knots), "smallest_rho_N": _num(low.rho), "smallest_at_knot": low.knot,
+            "smallest_at_time_s": _num(low.time), "most_frequent_bottleneck": name,
+            "bottleneck_knots": times, "planned_over_exact_min": _num(min(ratios)) if ratios else None,
+            "planned_over_exact_max": _num(max(ratios)) if ratios else None,
+            "margin_above_exact_knots": sum(not c.margin_ok for c in self.knots),
+            "violation_knots": sum(c.status == "violation" for c in self.knots),
+            "median_ms_per_knot": _num(1e3 * float(np.median(seconds))),
+            "certified": not self.problems(), "problems": self.problems(),
+        }
+
+    def to_json(self) -> dict:
+        s = self.settings
+        return {
+            "format": "brace-certificate/1", "disturbance": self.disturbance,
+            "settings": {"tol": s.tol, "cap_N": s.cap, "full": s.full, "samples": s.samples},
+            "summary": self.summary(), "knots": [c.to_json() for c in self.knots],
+            "replay": None if self.replay is None else _replay_json(self.replay),
+        }
+
+
+def planned_margin(plan, k: int, disturbance: int) -> float:
+    """The plan's own margin for a disturbance point at knot k [N]."""
+    if disturbance == 0:
+        return float(plan.margin[k])
+    if plan.margins is None:
+        return math.nan
+    return float(plan.margins[k, disturbance])
+
+
+def certify_plan(plan, knots=None, disturbance: int = 0, settings: Settings | None = None,
+                 replay: int = 0, seed: int = 0, progress=None) -> PlanCertificate:
+    """Certify the chosen knots (all by default) of ``plan``.
+
+    Parameters
+    ----------
+    plan : optimizer.planfile.Plan
+    knots : sequence of int, optional
+    disturbance : int
+        Index into ``plan.meta["disturbances"]``.
+    settings : Settings, optional
+    replay : int
+        Random draws per knot for the disturbance replay (0: no replay).
+    seed : int
+        Seed of the replay's random generator.
+    progress : callable, optional
+        Called as ``progress(done, total, certificate)`` after every knot.
+    """
+    settings = settings or Settings()
+    chosen = list(range(plan.t.shape[0]) if knots is None else knots)
+    rng = np.random.default_rng(seed)
+    total = ReplayCounts() if replay else None
+    certs = []
+    for i, (k, resp) in enumerate(knot_responses(plan, chosen, disturbance)):
+        cert, lp = certify_response(resp, planned_margin(plan, k, disturbance), settings, k, float(plan.t[k]))
+        if replay:
+            cert.replay = replay_knot(lp, cert, replay, rng)
+            total.add(cert.replay)
+        certs.append(cert)
+        if progress is not None:
+            progress(i + 1, len(chosen), cert)
+    entry = plan.meta["disturbances"][disturbance]
+    info = {"index": disturbance, "frame": entry["frame"], "kind": entry["kind"]}
+    return PlanCertificate(certs, info, settings, total)
