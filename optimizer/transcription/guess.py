@@ -1,0 +1,68 @@
+"""The feasibility solve's starting point: keyframes from inverse kinematics.
+
+The start configuration puts every contact frame on its foothold; one more
+keyframe per hand target pulls the hand there (both from
+:func:`optimizer.problem.stance.solve_stance`). Configurations between
+keyframes are interpolated on the configuration manifold; velocities and
+accelerations follow from the integration rule; contact forces and torques
+come from the static support LP at each knot. The result is not feasible
+(the motion is not balanced dynamically), only close.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pinocchio as pin
+
+from ..problem.stance import solve_stance, static_support_lp
+
+
+def keyframes(task) -> list[tuple[float, np.ndarray]]:
+    """(time [s], configuration (nq,)) pairs: the start, then each hand target's window ends."""
+    robot = task.robot
+    q = task.initial_posture if task.initial_posture is not None else solve_stance(robot, task.contacts)
+    frames = [(0.0, q)]
+    for target in sorted(task.hand_targets, key=lambda t: t.t_start):
+        q = solve_stance(robot, task.contacts, q_guess=q, hand_target=target)
+        frames.append((target.t_start, q))
+        if target.t_end > target.t_start:
+            frames.append((target.t_end, q))
+    return frames
+
+
+def interpolate(model, frames, times) -> np.ndarray:
+    """Configurations at ``times`` (K,), piecewise geodesic between keyframes; shape (nq, K)."""
+    out = []
+    for t in times:
+        later = [i for i, (tk, _) in enumerate(frames) if tk >= t]
+        if not later:
+            out.append(frames[-1][1])
+            continue
+        i = later[0]
+        if i == 0 or frames[i][0] == t:
+            out.append(frames[i][1])
+            continue
+        (t0, q0), (t1, q1) = frames[i - 1], frames[i]
+        s = (t - t0) / (t1 - t0)
+        out.append(pin.interpolate(model, q0, q1, s))
+    return np.array(out).T
+
+
+def initial_guess(task) -> dict[str, np.ndarray]:
+    """Physical arrays ``q`` (nq, K), ``v``, ``a`` (nv, K), ``tau`` (nj, K), ``lam`` (3 nc, K)."""
+    robot, times = task.robot, task.times
+    model, K = robot.model, task.knots
+    q = interpolate(model, keyframes(task), times)
+    h = times[1] - times[0]
+    v = np.zeros((robot.nv, K))
+    for k in range(K - 1):
+        v[:, k + 1] = pin.difference(model, q[:, k], q[:, k + 1]) / h
+    v[:, -1] = 0.0
+    a = np.zeros((robot.nv, K))
+    a[:, :-1] = (v[:, 1:] - v[:, :-1]) / h
+    tau, lam = np.zeros((robot.nj, K)), np.zeros((3 * len(task.contacts), K))
+    for k in range(K):
+        support = static_support_lp(robot, q[:, k], task.contacts, task.facets, task.min_normal_force)
+        if np.all(np.isfinite(support.forces)):
+            lam[:, k], tau[:, k] = support.forces.reshape(-1), support.tau
+    tau = np.clip(tau, robot.torque_lower[:, None], robot.torque_upper[:, None])
+    return {"q": q, "v": v, "a": a, "tau": tau, "lam": lam}
