@@ -134,6 +134,8 @@ def load_plan(path) -> Plan:
 def _read_archive(path: Path) -> dict:
     if not path.is_file():
         raise PlanFileError(path, "", "an existing plan file (.npz)", "no such file")
+    if not zipfile.is_zipfile(path):
+        raise PlanFileError(path, "", "a NumPy .npz archive", "a file that is not a zip archive")
     try:
         with np.load(path, allow_pickle=False) as archive:
             return {key: archive[key] for key in archive.files}
