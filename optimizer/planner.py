@@ -82,14 +82,15 @@ def symbolic_robot(robot) -> SymbolicRobot:
     return _SYMBOLIC[key]
 
 
-def built_solver(task, objective: str, expand: bool = True):
+def built_solver(task, objective: str, expand: bool = True, torque_gains: str = "eliminated"):
     """(Transcription, IpoptSolver, log path) for the task's shape, built once and cached."""
     structure = structure_of(task)
     robot = task.robot
     key = (hashlib.sha1(robot.urdf_text.encode()).hexdigest(), tuple(robot.torque_upper), structure,
-           objective, expand, tuple(sorted(task.solver_options.items())))
+           objective, expand, torque_gains, tuple(sorted(task.solver_options.items())))
     if key not in _BUILT:
-        transcription = Transcription(robot, symbolic_robot(robot), structure, objective_named(objective))
+        transcription = Transcription(robot, symbolic_robot(robot), structure, objective_named(objective),
+                                      torque_gains=torque_gains)
         log = Path(tempfile.mkdtemp(prefix="brace-ipopt-")) / "ipopt.log"
         solver = IpoptSolver(transcription.nlp, task.solver_options, expand=expand, log_file=log,
                              progress=_ProgressRelay.instance)
@@ -109,7 +110,7 @@ class _ProgressRelay:
 
 
 def solve(task, objective: str | None = None, *, knots: int | None = None, progress=None,
-          log_path=None, expand: bool = True) -> SolveOutcome:
+          log_path=None, expand: bool = True, torque_gains: str = "eliminated") -> SolveOutcome:
     """Plan ``task`` with ``objective`` (default: the task's own).
 
     Parameters
@@ -125,6 +126,11 @@ def solve(task, objective: str | None = None, *, knots: int | None = None, progr
         stage has no margin variables.
     log_path : path, optional
         Ipopt's logs of every stage are appended to this file.
+    expand : bool
+        Evaluate the NLP as one SX graph (faster iterations, slower build).
+    torque_gains : str
+        ``"eliminated"`` (the closed form, default) or ``"variables"`` (joint
+        torque gains as decision variables with the full balance; ablation).
 
     Returns
     -------
@@ -138,21 +144,22 @@ def solve(task, objective: str | None = None, *, knots: int | None = None, progr
         task = task.with_knots(knots)
     outcome = SolveOutcome(task, objective, None)
     seed = initial_guess(task)
-    arrays, result = _run_stage(task, "feasible", seed, outcome, progress, log_path, expand)
+    stage = dict(progress=progress, log_path=log_path, expand=expand, torque_gains=torque_gains)
+    arrays, result = _run_stage(task, "feasible", seed, outcome, **stage)
     if not result.success:
         return outcome
     if objective != "feasible":
         if objective_named(objective).robust:
             arrays = dict(arrays, **_initial_gains(task, arrays))
-        arrays, result = _run_stage(task, objective, arrays, outcome, progress, log_path, expand)
+        arrays, result = _run_stage(task, objective, arrays, outcome, **stage)
         if not result.success:
             return outcome
     outcome.plan = _finished_plan(task, objective, arrays, outcome)
     return outcome
 
 
-def _run_stage(task, objective, start, outcome, progress, log_path, expand):
-    transcription, solver, log = built_solver(task, objective, expand)
+def _run_stage(task, objective, start, outcome, progress, log_path, expand, torque_gains):
+    transcription, solver, log = built_solver(task, objective, expand, torque_gains)
     layout = transcription.variables
     x0 = layout.zeros()
     for name, value in start.items():
@@ -198,13 +205,16 @@ def _initial_gains(task, arrays) -> dict:
     plan = _plan_arrays(task, "feasible", arrays, np.zeros(task.knots), {})
     out = {}
     for p in range(len(task.disturbances)):
-        gains, rho = [], []
+        gains, rho, torque_gains = [], [], []
         for _, response in knot_responses(plan, disturbance=p):
             margin = best_linear_margin(response.limit_rows())
             r = max(margin.rho, 0.0) if np.isfinite(margin.rho) else 0.0
+            _, jc_j, _, je_j = response.split()
             gains.append((r * margin.gains).reshape(-1, order="F"))
+            torque_gains.append((-(jc_j.T @ (r * margin.gains) + r * je_j.T)).reshape(-1, order="F"))
             rho.append(r)
         out[f"G{p}"], out[f"rho{p}"] = np.array(gains).T, np.array(rho)[None, :]
+        out[f"G_tau{p}"] = np.array(torque_gains).T
     return out
 
 

@@ -30,7 +30,8 @@ class KnotFunctions:
         its square for the squared robust rows) so every group is of order one.
     """
 
-    def __init__(self, symbolic, structure: Structure, weight: float):
+    def __init__(self, symbolic, structure: Structure, weight: float, torque_gains: str = "eliminated"):
+        self.torque_gains = torque_gains
         self.sym = symbolic
         self.structure = structure
         self.weight = float(weight)
@@ -99,6 +100,10 @@ class KnotFunctions:
         ``G_tau = -(Jc_j^T G + rho (W^T Je)_j^T)`` is the closed form of the
         joint-torque gains from the joint rows: they are not variables.
         The right sides' signs (slack >= 0) are kept by the plain limits.
+
+        With ``torque_gains="variables"`` (kept for the ablation benchmark)
+        ``G_tau`` is one more input (nj d,) and ``balance`` holds all nv rows
+        of the balance, base and joints, ``(6 + nj) d`` equalities.
         """
         nc, m, d, nj = self.structure.nc, self.structure.facets, slot.dim, self.nj
         q, tau, lam = self._sym("q", self.nq), self._sym("tau", nj), self._sym("lam", 3 * nc)
@@ -111,6 +116,14 @@ class KnotFunctions:
         je = ca.mtimes(ca.reshape(shape, d, d).T, je)
         balance = ca.mtimes(jc[:, :6].T, G) + rho * je[:, :6].T
         g_tau = -(ca.mtimes(jc[:, 6:].T, G) + rho * je[:, 6:].T)
+        inputs = [q, tau, lam, gains, rho, facets, normals, f_min, lower, upper, shape]
+        names = ["q", "tau", "lam", "G", "rho", "facets", "normals", "f_min", "tau_lower", "tau_upper", "shape"]
+        if self.torque_gains == "variables":
+            torque_gains = self._sym("G_tau", nj * d)
+            joint_rows = ca.reshape(torque_gains, nj, d) - g_tau
+            balance = ca.vertcat(balance, joint_rows)
+            g_tau = ca.reshape(torque_gains, nj, d)
+            inputs, names = inputs + [torque_gains], names + ["G_tau"]
         row_sq = ca.sum2(g_tau * g_tau)
         limit_sq = ca.fmax(upper * upper, lower * lower)
         torque = ca.vertcat(((upper - tau) ** 2 - row_sq) / limit_sq, ((tau - lower) ** 2 - row_sq) / limit_sq)
@@ -124,11 +137,9 @@ class KnotFunctions:
             n_gain = ca.mtimes(normals[:, c].T, Gc)
             normal_rows.append(((ca.dot(normals[:, c], force) - f_min) ** 2 - ca.sumsqr(n_gain)) / per_contact)
         return ca.Function(
-            f"robust{index}",
-            [q, tau, lam, gains, rho, facets, normals, f_min, lower, upper, shape],
+            f"robust{index}", inputs,
             [ca.vec(balance) / self.weight, torque, ca.vertcat(*facet_rows), ca.vertcat(*normal_rows)],
-            ["q", "tau", "lam", "G", "rho", "facets", "normals", "f_min", "tau_lower", "tau_upper", "shape"],
-            ["balance", "torque", "facet", "normal"])
+            names, ["balance", "torque", "facet", "normal"])
 
     def _disturbance_jacobian(self, slot: DisturbanceSlot) -> ca.Function:
         if slot.kind == "force":

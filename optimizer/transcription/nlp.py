@@ -40,12 +40,14 @@ class Transcription:
         Named groups of g with their bounds.
     """
 
-    def __init__(self, robot, symbolic, structure: Structure, objective, map_mode: str = "serial"):
+    def __init__(self, robot, symbolic, structure: Structure, objective, map_mode: str = "serial",
+                 torque_gains: str = "eliminated"):
         self.robot, self.structure, self.objective = robot, structure, objective
+        self.torque_gains = torque_gains
         self.weight = robot.mass * float(np.linalg.norm(robot.gravity))
         self.context = Context(self.weight, float(np.mean(np.maximum(abs(robot.torque_lower), abs(robot.torque_upper)))),
                                structure.knots)
-        self.functions = KnotFunctions(symbolic, structure, self.weight)
+        self.functions = KnotFunctions(symbolic, structure, self.weight, torque_gains)
         self.map_mode = map_mode
         self.variables = self._variable_layout()
         self.parameters = parameter_layout(structure, robot)
@@ -81,6 +83,8 @@ class Transcription:
             for p, slot in enumerate(s.disturbances):
                 layout.add(f"G{p}", 3 * s.nc * slot.dim, K, scale=per_contact)
                 layout.add(f"rho{p}", 1, K, scale=per_contact)
+                if self.torque_gains == "variables":
+                    layout.add(f"G_tau{p}", r.nj * slot.dim, K, scale=per_contact)
         self.objective.add_variables(layout, self.context)
         return layout
 
@@ -123,9 +127,10 @@ class Transcription:
     def _robustness(self, V, P):
         K = self.structure.knots
         for p, function in enumerate(self.functions.robust):
+            extra = [V[f"G_tau{p}"]] if self.torque_gains == "variables" else []
             balance, torque, facet, normal = self._map(function, K)(
                 V["q"], V["tau"], V["lam"], V[f"G{p}"], V[f"rho{p}"], P["facets"], P["normals"],
-                P["min_normal_force"], P["tau_lower"], P["tau_upper"], P[f"shape{p}"])
+                P["min_normal_force"], P["tau_lower"], P["tau_upper"], P[f"shape{p}"], *extra)
             tag = f" (disturbance {p})" if len(self.functions.robust) > 1 else ""
             self.constraints.add("robust balance" + tag, balance, range(K), unit="m g")
             self.constraints.add("robust torque" + tag, torque, range(K), 0.0, INF, unit="limit^2")
