@@ -1,0 +1,446 @@
+"""Task files: what the robot must do, where it stands, what may push it.
+
+A task file is a YAML mapping (schema in docs/task-files.md). :func:`load_task`
+validates every field and returns a :class:`Task`, the problem description the
+transcription consumes. Mistakes raise ``TaskError`` naming the file, the
+dotted field and what was expected. Relative paths resolve against the folder
+of the task file.
+"""
+from __future__ import annotations
+
+import copy
+import dataclasses
+import json
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InfeasibleTask, TaskError
+from ..files import read_yaml_mapping
+from ..schema import Fields
+from .friction import tangent_basis
+from .terrain import build_terrain
+
+OBJECTIVES = ("feasible", "robust", "robust-min", "torque")
+DISTURBANCE_DIMS = {"force": 3, "wrench": 6}
+UNIT_TOLERANCE = 1e-3      # |n| may differ from 1 by this much before it counts as a mistake
+TOP_LEVEL = {"name", "description", "robot", "horizon", "stance", "hand_targets", "disturbances",
+             "objective", "pyramid_facets", "min_normal_force", "initial_posture", "solver"}
+
+
+@dataclass
+class ContactSpec:
+    """A stance contact.
+
+    Attributes
+    ----------
+    frame : str
+        Contact frame of the robot; the contact point is its origin.
+    foothold : ndarray, shape (3,)
+        Where the frame origin must stay, m, world frame.
+    normal : ndarray, shape (3,)
+        Unit surface normal, world frame, pointing into the robot.
+    tangents : ndarray, shape (2, 3)
+        Unit tangents ``t1, t2`` of the surface (``t2 = n x t1``).
+    friction : float
+        Coulomb friction coefficient mu > 0.
+    """
+
+    frame: str
+    foothold: np.ndarray
+    normal: np.ndarray
+    tangents: np.ndarray
+    friction: float
+
+
+@dataclass
+class HandTarget:
+    """Where a frame must be, at one time or over a window.
+
+    Attributes
+    ----------
+    frame : str
+        Robot frame (default the robot's hand frame).
+    position : ndarray, shape (3,)
+        m, world frame.
+    orientation : ndarray, shape (3, 3), or None
+        Rotation matrix of the frame in the world, None when free.
+    t_start, t_end : float
+        s; equal for a single time, ``t_start < t_end`` for a hold.
+    label : str
+        Name for reports (e.g. ``pick``); may be empty.
+    """
+
+    frame: str
+    position: np.ndarray
+    orientation: np.ndarray | None
+    t_start: float
+    t_end: float
+    label: str = ""
+
+
+@dataclass
+class DisturbanceSpec:
+    """A disturbance point: ``{W u : |u| <= rho}`` acting at ``frame``'s origin.
+
+    ``kind`` is ``"force"`` (W shape (3, 3)) or ``"wrench"`` (W shape (6, 6),
+    ordered [force; moment]); axes are world-aligned.
+    """
+
+    frame: str
+    kind: str
+    shape: np.ndarray
+
+
+@dataclass
+class Task:
+    """A validated task (see docs/task-files.md for the file behind each field).
+
+    Attributes
+    ----------
+    duration : float
+        Horizon length, s.
+    knots : int
+        Knot count K >= 2; knot times ``linspace(0, duration, K)``.
+    contacts : list of ContactSpec
+        Stance contacts, all active over the whole horizon.
+    hand_targets : list of HandTarget
+    disturbances : list of DisturbanceSpec
+        At least one (default: a force at the robot's hand frame, W = I).
+    objective : str
+        One of ``OBJECTIVES``.
+    facets : int
+        Facets of each inscribed friction pyramid.
+    min_normal_force : float
+        N, for every active contact.
+    solver_options : dict
+        Passed to the solver adapter as given.
+    initial_posture : ndarray, shape (nq,), or None
+        Fixed start configuration; None leaves it free (at rest).
+    raw : dict
+        The task mapping as read (JSON-serializable), ``horizon.knots``
+        updated by :meth:`with_knots`.
+    """
+
+    name: str
+    path: Path
+    robot_path: Path
+    robot: object
+    duration: float
+    knots: int
+    contacts: list
+    hand_targets: list
+    disturbances: list
+    objective: str
+    facets: int
+    min_normal_force: float
+    solver_options: dict
+    initial_posture: np.ndarray | None
+    raw: dict
+
+    def with_knots(self, knots: int) -> "Task":
+        """A copy with ``knots`` knots (>= 2); the robot object is shared."""
+        if isinstance(knots, bool) or not isinstance(knots, (int, np.integer)) or knots < 2:
+            raise TaskError(self.path, "horizon.knots", "a whole number >= 2", knots)
+        raw = copy.deepcopy(self.raw)
+        raw.setdefault("horizon", {})["knots"] = int(knots)
+        return dataclasses.replace(self, knots=int(knots), raw=raw)
+
+    @property
+    def times(self) -> np.ndarray:
+        """Knot times, shape (K,), s."""
+        return np.linspace(0.0, self.duration, self.knots)
+
+
+# ---------------------------------------------------------------- loader
+
+
+def load_task(path) -> Task:
+    """Read and validate the task file at ``path``."""
+    path = Path(path)
+    data = read_yaml_mapping(path, TaskError)
+    top = Fields(data, path, "", TaskError)
+    top.allow_only(TOP_LEVEL)
+    if top.has("description"):
+        top.string("description")
+    robot_path, robot = read_robot(top)
+    duration, knots = read_horizon(top.sub("horizon"))
+    contacts = read_stance(top.sub("stance"), robot)
+    weight = robot.mass * float(np.linalg.norm(robot.gravity))
+    return Task(
+        name=top.string("name", path.stem),
+        path=path,
+        robot_path=robot_path,
+        robot=robot,
+        duration=duration,
+        knots=knots,
+        contacts=contacts,
+        hand_targets=read_hand_targets(top, robot, duration),
+        disturbances=read_disturbances(top, robot),
+        objective=top.string("objective", "robust", choices=OBJECTIVES),
+        facets=top.integer("pyramid_facets", 4, lo=3),
+        min_normal_force=top.number("min_normal_force", 0.05 * weight / len(contacts), lo=0.0),
+        solver_options=read_solver_options(top),
+        initial_posture=read_initial_posture(top, robot, contacts),
+        raw=json_copy(data, path),
+    )
+
+
+def read_robot(top: Fields):
+    """Robot file path (resolved against the task's folder) and the loaded robot."""
+    from ..robot.model import load_robot
+
+    robot_path = (Path(top.file).parent / top.string("robot")).resolve()
+    if not robot_path.is_file():
+        top.fail("robot", "an existing robot file (path relative to the task file's folder)", str(robot_path))
+    return robot_path, load_robot(robot_path)
+
+
+def read_horizon(horizon: Fields) -> tuple[float, int]:
+    """Duration (s, > 0) and knot count (>= 2, default 60)."""
+    horizon.allow_only({"duration", "knots"})
+    return horizon.number("duration", lo=0.0, lo_open=True), horizon.integer("knots", 60, lo=2)
+
+
+def check_frame(fields: Fields, key: str, robot, name: str) -> str:
+    """``name`` if the robot has such a frame, else a TaskError at ``key``."""
+    if not isinstance(name, str) or not robot.model.existFrame(name):
+        fields.fail(key, f"a frame of robot '{robot.name}'", name,
+                    "contact frames: " + ", ".join(robot.contact_frames) + f"; hand: {robot.hand_frame}")
+    return name
+
+
+def unit_vector(fields: Fields, key: str, default=...) -> np.ndarray:
+    """A 3-vector of length 1 (within ``UNIT_TOLERANCE``), returned normalized."""
+    v = fields.vector(key, 3, default)
+    norm = float(np.linalg.norm(v))
+    if abs(norm - 1.0) > UNIT_TOLERANCE:
+        fields.fail(key, f"a unit vector (length 1 within {UNIT_TOLERANCE})", f"{v.tolist()} of length {norm:.6g}")
+    return v / norm
+
+
+# ---------------------------------------------------------------- stance
+
+
+def read_stance(stance: Fields, robot) -> list[ContactSpec]:
+    """Contacts from ``stance.contacts`` (explicit) or ``stance.terrain`` + ``stance.feet``."""
+    stance.allow_only({"contacts", "terrain", "feet"})
+    explicit, placed = stance.has("contacts"), stance.has("terrain") or stance.has("feet")
+    if explicit == placed:
+        raise TaskError(stance.file, stance.path, "either 'contacts' or 'terrain' with 'feet'", sorted(stance.data))
+    contacts = read_explicit_contacts(stance.sub("contacts")) if explicit else read_placed_feet(stance)
+    if not contacts:
+        stance.fail("contacts" if explicit else "feet", "at least one contact", "none")
+    for c in contacts:
+        check_frame(stance, ("contacts." if explicit else "feet.") + c.frame, robot, c.frame)
+    return contacts
+
+
+def make_contact(frame, foothold, normal, friction) -> ContactSpec:
+    return ContactSpec(frame, np.asarray(foothold, float), np.asarray(normal, float), tangent_basis(normal), friction)
+
+
+def read_explicit_contacts(contacts: Fields) -> list[ContactSpec]:
+    """``{frame: {position, normal, friction}}``."""
+    out = []
+    for frame in contacts.data:
+        spec = contacts.sub(str(frame))
+        spec.allow_only({"position", "normal", "friction"})
+        out.append(make_contact(str(frame), spec.vector("position", 3), unit_vector(spec, "normal"),
+                                spec.number("friction", lo=0.0, lo_open=True)))
+    return out
+
+
+def read_placed_feet(stance: Fields) -> list[ContactSpec]:
+    """Feet ``{frame: [x, y]}`` or ``{frame: {xy: [x, y], surface: name}}`` placed on the terrain."""
+    terrain = build_terrain(stance.sub("terrain"))
+    feet = stance.sub("feet")
+    out = []
+    for frame in feet.data:
+        key = str(frame)
+        if isinstance(feet.raw(key), dict):
+            spec = feet.sub(key)
+            spec.allow_only({"xy", "surface"})
+            xy, surface = spec.vector("xy", 2), spec.string("surface", None)
+        else:
+            xy, surface = feet.vector(key, 2), None
+        where = terrain.place(xy, surface, feet.at(key))
+        out.append(make_contact(key, where.foothold, where.normal, where.friction))
+    return out
+
+
+# ---------------------------------------------------------------- hand targets
+
+
+def read_hand_targets(top: Fields, robot, duration: float) -> list[HandTarget]:
+    """``hand_targets``: a list of ``{position, time | window, orientation?, frame?, label?}``."""
+    items = top.raw("hand_targets", [])
+    if not isinstance(items, list):
+        top.fail("hand_targets", "a list of hand targets", items)
+    targets = [read_hand_target(Fields(item, top.file, top.at(f"hand_targets[{i}]"), TaskError), robot, duration)
+               for i, item in enumerate(items)]
+    check_no_overlap(top, targets)
+    return targets
+
+
+def read_hand_target(spec: Fields, robot, duration: float) -> HandTarget:
+    spec.allow_only({"position", "time", "window", "orientation", "frame", "label"})
+    frame = check_frame(spec, "frame", robot, spec.string("frame", robot.hand_frame))
+    if spec.has("time") == spec.has("window"):
+        spec.fail("time", "exactly one of 'time' (s) or 'window' ([start, end] s)", sorted(spec.data))
+    if spec.has("time"):
+        t_start = t_end = spec.number("time")
+        key = "time"
+    else:
+        t_start, t_end = spec.vector("window", 2)
+        key = "window"
+    if not 0.0 <= t_start <= t_end <= duration:
+        spec.fail(key, f"times within the horizon [0, {duration}] s, start <= end", [t_start, t_end])
+    orientation = read_orientation(spec) if spec.has("orientation") else None
+    return HandTarget(frame, spec.vector("position", 3), orientation, float(t_start), float(t_end),
+                      spec.string("label", ""))
+
+
+def read_orientation(spec: Fields) -> np.ndarray:
+    """A rotation matrix: 3 rows of 3, or ``{rpy_deg: [roll, pitch, yaw]}`` (fixed axes x, y, z)."""
+    if isinstance(spec.raw("orientation"), dict):
+        sub = spec.sub("orientation")
+        sub.allow_only({"rpy_deg"})
+        return rotation_from_rpy(np.radians(sub.vector("rpy_deg", 3)))
+    rot = spec.matrix("orientation", (3, 3))
+    if not np.allclose(rot @ rot.T, np.eye(3), atol=1e-6) or np.linalg.det(rot) < 0:
+        spec.fail("orientation", "a rotation matrix (orthonormal rows, determinant +1, to 1e-6)", rot.tolist())
+    return rot
+
+
+def rotation_from_rpy(rpy) -> np.ndarray:
+    """``Rz(yaw) Ry(pitch) Rx(roll)``, shape (3, 3)."""
+    r, p, y = rpy
+    rx = np.array([[1, 0, 0], [0, math.cos(r), -math.sin(r)], [0, math.sin(r), math.cos(r)]])
+    ry = np.array([[math.cos(p), 0, math.sin(p)], [0, 1, 0], [-math.sin(p), 0, math.cos(p)]])
+    rz = np.array([[math.cos(y), -math.sin(y), 0], [math.sin(y), math.cos(y), 0], [0, 0, 1]])
+    return rz @ ry @ rx
+
+
+def check_no_overlap(top: Fields, targets: list[HandTarget]) -> None:
+    """Two targets of one frame must not claim the same instant."""
+    for i, a in enumerate(targets):
+        for j in range(i):
+            b = targets[j]
+            if a.frame == b.frame and a.t_start <= b.t_end and b.t_start <= a.t_end:
+                top.fail(f"hand_targets[{i}]", f"times apart from hand_targets[{j}] of the same frame",
+                         f"[{a.t_start}, {a.t_end}] s overlaps [{b.t_start}, {b.t_end}] s")
+
+
+# ---------------------------------------------------------------- disturbances and the rest
+
+
+def read_disturbances(top: Fields, robot) -> list[DisturbanceSpec]:
+    """``disturbances``: list of ``{frame, kind, shape?}``; default one force at the hand."""
+    items = top.raw("disturbances", None)
+    if items is None:
+        return [DisturbanceSpec(robot.hand_frame, "force", np.eye(3))]
+    if not isinstance(items, list) or not items:
+        top.fail("disturbances", "a non-empty list of disturbance points", items)
+    return [read_disturbance(Fields(item, top.file, top.at(f"disturbances[{i}]"), TaskError), robot)
+            for i, item in enumerate(items)]
+
+
+def read_disturbance(spec: Fields, robot) -> DisturbanceSpec:
+    spec.allow_only({"frame", "kind", "shape"})
+    frame = check_frame(spec, "frame", robot, spec.string("frame", robot.hand_frame))
+    kind = spec.string("kind", "force", choices=list(DISTURBANCE_DIMS))
+    d = DISTURBANCE_DIMS[kind]
+    shape = spec.matrix("shape", (d, d)) if spec.has("shape") else np.eye(d)
+    if not np.any(shape):
+        spec.fail("shape", "a shape matrix with a non-zero entry", shape.tolist())
+    return DisturbanceSpec(frame, kind, shape)
+
+
+def read_solver_options(top: Fields) -> dict:
+    """``solver``: a flat mapping of option name -> number, text or true/false."""
+    options = top.sub("solver", {})
+    for key, value in options.data.items():
+        if not isinstance(value, (bool, int, float, str)) or (isinstance(value, float) and not math.isfinite(value)):
+            options.fail(str(key), "a number, text or true/false", value)
+    return dict(options.data)
+
+
+def read_initial_posture(top: Fields, robot, contacts) -> np.ndarray | None:
+    """``initial_posture``: absent (free start), ``stance``, a mapping of stance hints, or nq numbers.
+
+    ``stance`` solves the stance IK from the standing posture; the mapping
+    ``{base_position: [x, y, z], base_rpy_deg: [r, p, y], joints: {name: angle}}``
+    (all optional) solves it with the base pulled toward the given pose and
+    the free joints toward the given angles (rad or m; the others toward the
+    standing posture), starting from that posture.
+    """
+    if not top.has("initial_posture"):
+        return None
+    value = top.raw("initial_posture")
+    if value == "stance" or isinstance(value, dict):
+        hints = top.sub("initial_posture") if isinstance(value, dict) else Fields({}, top.file, "initial_posture", TaskError)
+        return solve_stance_hinted(hints, robot, contacts)
+    if isinstance(value, str):
+        top.fail("initial_posture", "'stance', a mapping of stance hints or a list of nq numbers", value)
+    return read_posture_list(top, robot, contacts)
+
+
+def solve_stance_hinted(hints: Fields, robot, contacts) -> np.ndarray:
+    """The stance IK with the optional base pose and joint hints of ``hints``."""
+    import pinocchio as pin
+
+    from .stance import solve_stance
+
+    hints.allow_only({"base_position", "base_rpy_deg", "joints"})
+    guess, base = np.array(robot.standing_posture, dtype=float), None
+    if hints.has("base_position") or hints.has("base_rpy_deg"):
+        position = hints.vector("base_position", 3, guess[:3].tolist())
+        rotation = rotation_from_rpy(np.radians(hints.vector("base_rpy_deg", 3, [0.0, 0.0, 0.0])))
+        base = np.concatenate([position, pin.Quaternion(rotation).coeffs()])
+        guess[:7] = base
+    joints = hints.sub("joints", {})
+    for name in joints.data:
+        if name not in robot.joint_names:
+            joints.fail(str(name), "an actuated joint of the robot", name)
+        joint = robot.model.joints[robot.model.getJointId(name)]
+        if joint.nq != 1:
+            joints.fail(str(name), "a joint with one coordinate (revolute or prismatic)", name)
+        guess[joint.idx_q] = joints.number(str(name))
+    try:
+        hinted = base is not None or bool(joints.data)
+        return solve_stance(robot, contacts, q_guess=guess if hinted else None, nominal=guess, base_pose=base)
+    except InfeasibleTask as exc:
+        raise TaskError(hints.file, hints.path, "footholds the robot reaches within its joint limits",
+                        str(exc).split(": ", 2)[-1]) from None
+
+
+def read_posture_list(top: Fields, robot, contacts) -> np.ndarray:
+    """nq numbers: unit base quaternion, joints within limits, feet on their footholds."""
+    from .stance import foot_residuals
+
+    q = top.vector("initial_posture", robot.nq)
+    quat = np.linalg.norm(q[3:7])
+    if abs(quat - 1.0) > UNIT_TOLERANCE:
+        top.fail("initial_posture", "a unit base quaternion in entries 3..6 [qx qy qz qw]", q[3:7].tolist())
+    q[3:7] /= quat
+    outside = (q[7:] < robot.joint_lower - 1e-9) | (q[7:] > robot.joint_upper + 1e-9)
+    if outside.any():
+        top.fail("initial_posture", "joint coordinates within the robot's limits",
+                 f"{int(outside.sum())} outside, first at coordinate {7 + int(np.argmax(outside))}")
+    gaps = foot_residuals(robot, q, contacts)
+    if gaps.max() > 1e-4:
+        worst = contacts[int(np.argmax(gaps))].frame
+        top.fail("initial_posture", "a posture with every contact frame on its foothold (within 0.1 mm)",
+                 f"{worst} {gaps.max():.4f} m away")
+    return q
+
+
+def json_copy(data: dict, path) -> dict:
+    """A JSON-round-tripped copy of the task mapping (for a plan's ``meta.task``)."""
+    try:
+        return json.loads(json.dumps(data, allow_nan=False))
+    except (TypeError, ValueError) as exc:
+        raise TaskError(path, "", "only numbers, text, lists and mappings (JSON-representable)", str(exc)) from None
