@@ -51,7 +51,8 @@ def demo_standing(sweep: float = 0.0, knots: int = 1) -> dict:
 
 
 def standing_plan(urdf: str, contacts, base_height: float, postures=({},), disturbance_frame="base",
-                  kind="force", mu=0.6, min_normal_force=0.0, torque_limits=None, margin=None) -> Plan:
+                  kind="force", mu=0.6, min_normal_force=0.0, torque_limits=None, margin=None,
+                  active=None) -> Plan:
     """A plan/1 plan of a robot standing still, one knot per posture.
 
     Parameters
@@ -68,12 +69,15 @@ def standing_plan(urdf: str, contacts, base_height: float, postures=({},), distu
         Arrays (nj,) [N m]; None takes +-effort from the URDF.
     margin : array (K,) or None
         The planned margin [N]; None uses :func:`least_squares_margin`.
+    active : sequence of bool or None
+        Contacts in stance (all by default); the others carry no force.
     """
     model = pin.buildModelFromXML(urdf, pin.JointModelFreeFlyer())
     data = model.createData()
     nj, nc, K = model.nv - 6, len(contacts), len(postures)
     q = np.array([_posture(model, base_height, p) for p in postures])
-    forces, tau = zip(*(_statics(model, data, qk, contacts) for qk in q))
+    stance = np.ones(nc, bool) if active is None else np.asarray(active, bool)
+    forces, tau = zip(*(_statics(model, data, qk, contacts, stance) for qk in q))
     lower, upper = torque_limits if torque_limits is not None else (-model.effortLimit[6:], model.effortLimit[6:])
     meta = {
         "format": "plan/1", "software": {"name": "tests", "version": "0"}, "urdf": urdf,
@@ -90,9 +94,10 @@ def standing_plan(urdf: str, contacts, base_height: float, postures=({},), distu
     meta = json.loads(json.dumps(meta))
     plan = Plan(t=0.1 * np.arange(K), q=q, v=np.zeros((K, model.nv)), a=np.zeros((K, model.nv)),
                 tau=np.array(tau).reshape(K, nj), contact_forces=np.array(forces).reshape(K, nc, 3),
-                contact_active=np.ones((K, nc), bool), contact_targets=np.zeros((K, nc, 3)),
+                contact_active=np.repeat(stance[None], K, axis=0), contact_targets=np.zeros((K, nc, 3)),
                 margin=np.zeros(K), meta=meta)
-    plan.contact_targets = np.array([[_frame_position(model, data, qk, c) for c in contacts] for qk in q])
+    plan.contact_targets = np.array([[_frame_position(model, data, qk, c) if on else np.full(3, np.nan)
+                                      for c, on in zip(contacts, stance)] for qk in q])
     plan.margin = np.array([least_squares_margin(plan, k) for k in range(K)]) if margin is None else np.asarray(margin, float)
     return plan
 
@@ -115,11 +120,13 @@ def frame_jacobians(model, data, q, frames) -> np.ndarray:
     return np.vstack([pin.computeFrameJacobian(model, data, q, model.getFrameId(f), WORLD)[:3] for f in frames])
 
 
-def _statics(model, data, q, contacts):
-    """Least-squares contact forces (nc, 3) and joint torques (nj,) holding q still."""
+def _statics(model, data, q, contacts, stance):
+    """Least-squares forces (nc, 3) of the stance contacts and joint torques (nj,) holding q still."""
     g = pin.rnea(model, data, q, np.zeros(model.nv), np.zeros(model.nv))
     jc = frame_jacobians(model, data, q, contacts)
-    lam = np.linalg.lstsq(jc[:, :6].T, g[:6], rcond=None)[0]
+    on = np.repeat(stance, 3)
+    lam = np.zeros(3 * len(contacts))
+    lam[on] = np.linalg.lstsq(jc[on, :6].T, g[:6], rcond=None)[0]
     tau = g[6:] - jc[:, 6:].T @ lam
     return lam.reshape(-1, 3), tau
 

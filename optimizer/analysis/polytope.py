@@ -309,15 +309,24 @@ def count_distinct_planes(normals, offsets, scale: float) -> int:
 
 
 def nearest_point(points) -> np.ndarray:
-    """Point of ``conv(points)`` nearest to the origin, shape (dim,)."""
+    """Point of ``conv(points)`` nearest to the origin, shape (dim,).
+
+    A small QP in the convex weights (SLSQP) on points scaled to unit size;
+    the optimality condition ``p . x >= |x|^2`` for every point is the check.
+    """
     pts = np.asarray(points, dtype=float)
-    k = pts.shape[0]
-    gram = pts @ pts.T
-    res = minimize(lambda w: w @ gram @ w, np.full(k, 1.0 / k), jac=lambda w: 2.0 * gram @ w,
+    size = max(np.abs(pts).max(), 1e-300)
+    unit = pts / size
+    k = unit.shape[0]
+    gram = unit @ unit.T
+    start = np.zeros(k)
+    start[np.argmin(np.einsum("ij,ij->i", unit, unit))] = 1.0
+    res = minimize(lambda w: w @ gram @ w, start, jac=lambda w: 2.0 * gram @ w,
                    bounds=[(0.0, None)] * k, method="SLSQP",
                    constraints=[{"type": "eq", "fun": lambda w: w.sum() - 1.0, "jac": lambda w: np.ones(k)}],
-                   options={"ftol": 1e-14, "maxiter": 500})
-    return res.x @ pts
+                   options={"ftol": 1e-16, "maxiter": 1000})
+    w = np.clip(res.x, 0.0, None)
+    return (w / w.sum()) @ unit * size
 
 
 def _lowest_inner(hull: ConvexHull, points):

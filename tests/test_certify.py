@@ -1,0 +1,183 @@
+"""Certification of plans against Coulomb friction, an independent LP method and replay."""
+import json
+import math
+import re
+
+import numpy as np
+import pinocchio as pin
+import pytest
+
+from certify_checks import (MODELS, LiftedLP, check_plan_against_sampled_lps, demo_standing,
+                            least_squares_margin, standing_plan)
+from optimizer.analysis.certify import Settings, certify_plan
+from optimizer.analysis.knot_response import knot_responses
+
+BOX_FEET = ["foot_fl", "foot_fr", "foot_hl", "foot_hr"]
+
+
+def box_plan(mu=0.6, **kw):
+    urdf = (MODELS / "box_on_four_feet.urdf").read_text()
+    return standing_plan(urdf, BOX_FEET, 0.25, mu=mu, margin=[0.0], **kw)
+
+
+@pytest.fixture(scope="module")
+def demo_plan():
+    return standing_plan(**demo_standing(sweep=0.6, knots=3))
+
+
+@pytest.mark.parametrize("mu", [0.4, 0.6, 1.0])
+def test_standing_box_matches_coulomb_pyramid_geometry(mu):
+    # Coulomb friction with a 4-facet pyramid inscribed in the cone, mu_p = mu / sqrt(2),
+    # same axes at every foot, force at the centre of mass, no torque limits, no minimum
+    # normal force: rho = m g mu_p / sqrt(1 + mu_p^2) (FORMULATION.md section 7; statics).
+    plan = box_plan(mu)
+    m = 20.0  # mass written in box_on_four_feet.urdf
+    mu_p = mu / math.sqrt(2.0)
+    expected = m * 9.81 * mu_p / math.sqrt(1.0 + mu_p**2)
+    cert = certify_plan(plan).knots[0]
+    assert cert.rho == pytest.approx(expected, rel=1e-4)
+    # weakest: pushing sideways along a pyramid axis and lifting by mu_p, i.e. the normal of
+    # the summed pyramid's facet (one of four symmetric ones)
+    normals = [np.array([sx, sy, mu_p]) for sx, sy in ((1, 0), (-1, 0), (0, 1), (0, -1))]
+    assert max(abs(cert.direction @ (n / np.linalg.norm(n))) for n in normals) == pytest.approx(1.0, abs=1e-6)
+    assert cert.bottleneck and all(re.fullmatch(r"foot_(fl|fr|hl|hr) friction facet [0-3]", b)
+                                   for b in cert.bottleneck)
+
+
+def test_box_on_three_feet_with_its_centre_over_a_support_edge_has_zero_margin():
+    # Statics (moments about the support edge): with foot_hr lifted, the centre of mass lies
+    # on the line foot_fr - foot_hl; any push across that line tips the box, so rho = 0.
+    # The lifted foot never appears in the bottleneck.
+    plan = box_plan(active=[True, True, True, False])
+    assert plan.contact_forces[0, 0, 2] == pytest.approx(0.0, abs=1e-9)  # foot_fl unloaded
+    cert = certify_plan(plan).knots[0]
+    assert cert.rho == pytest.approx(0.0, abs=1e-6)
+    assert cert.bottleneck and not any(b.startswith("foot_hr") for b in cert.bottleneck)
+
+
+def test_box_on_three_feet_around_the_centre_is_weaker_than_on_four():
+    # Moving the centre of mass inside the triangle fl-fr-hl gives a positive figure, never
+    # above the four-foot one (a fourth foot only adds admissible responses). Pushing towards
+    # the left edge unloads foot_hr anyway, so the two may be equal.
+    urdf = (MODELS / "box_on_four_feet.urdf").read_text()
+    urdf = urdf.replace('<origin xyz="0 0 0"/>', '<origin xyz="0.1 0.05 0"/>')
+    three = certify_plan(standing_plan(urdf, BOX_FEET, 0.25, margin=[0.0], active=[1, 1, 1, 0])).knots[0]
+    four = certify_plan(standing_plan(urdf, BOX_FEET, 0.25, margin=[0.0])).knots[0]
+    assert 0.0 < three.rho <= four.rho * (1 + 1e-9)
+    assert not any(b.startswith("foot_hr") for b in three.bottleneck)
+
+
+def test_minimum_normal_force_can_be_the_bottleneck():
+    # With f_min close to the static share m g / 4, pushing down a corner or lifting unloads a
+    # foot first: the reported limit is a minimum normal force, and the figure drops.
+    loose = certify_plan(box_plan()).knots[0]
+    plan = box_plan(min_normal_force=0.95 * 20.0 * 9.81 / 4)
+    tight = certify_plan(plan).knots[0]
+    assert tight.rho < loose.rho
+    assert any(b.endswith("min normal force") for b in tight.bottleneck)
+
+
+def test_demo_plan_lies_between_independent_sampled_lp_bounds(demo_plan):
+    # Independent method: SciPy linprog over (u, dtau, dlambda) with all nv rows along 200
+    # sampled directions (upper bound) and the inscribed radius of their support points'
+    # hull (lower bound); the projection's facet count is reported.
+    rows = check_plan_against_sampled_lps(demo_plan, n_dirs=200, knots=[0, 2])
+    assert [r["knot"] for r in rows] == [0, 2]
+    assert all(r["facets"] >= 4 for r in rows)
+    assert all(r["lower"] <= r["upper"] for r in rows)
+
+
+def test_linear_gain_margin_never_exceeds_exact_and_ratio_is_reported(demo_plan):
+    # A linear response is one admissible response (FORMULATION.md section 6): its margin is
+    # a lower bound of rho_exact.
+    cert = certify_plan(demo_plan)
+    for c in cert.knots:
+        assert c.planned == pytest.approx(least_squares_margin(demo_plan, c.knot))
+        assert c.planned <= c.rho * (1 + 1e-6)
+        assert c.margin_ok and c.ratio == pytest.approx(c.planned / c.rho)
+        assert 0.0 < c.ratio <= 1.0 + 1e-6
+    assert cert.summary()["margin_above_exact_knots"] == 0
+
+
+def test_weakest_direction_is_confirmed_by_independent_membership_lps(demo_plan):
+    # Just inside rho along the weakest direction is rejectable, just beyond it is not,
+    # judged by the lifted LP written from the plan file (SciPy linprog).
+    cert = certify_plan(demo_plan, knots=[1]).knots[0]
+    lifted = LiftedLP(demo_plan, 1)
+    assert lifted.contains(cert.rho * (1 - 1e-5) * cert.direction)
+    assert not lifted.contains(cert.rho * (1 + 1e-5) * cert.direction)
+
+
+def test_replay_rejects_every_draw_within_the_margin_and_none_beyond(demo_plan):
+    cert = certify_plan(demo_plan, replay=40, seed=1)
+    r = cert.replay
+    assert (r.drawn, r.rejected) == (120, 120)
+    assert (r.beyond_tried, r.beyond_unrejectable) == (3, 3)
+    assert cert.summary()["certified"]
+
+
+def test_replay_catches_a_margin_above_the_exact_figure(demo_plan):
+    exact = [c.rho for c in certify_plan(demo_plan).knots]
+    inflated = standing_plan(**demo_standing(sweep=0.6, knots=3), margin=2.0 * np.array(exact))
+    cert = certify_plan(inflated, replay=200, seed=2)
+    assert all(c.status == "margin above exact" for c in cert.knots)
+    assert cert.replay.rejected < cert.replay.drawn
+    assert not cert.summary()["certified"]
+
+
+def test_torque_bottleneck_is_named_and_moves_the_figure_when_that_limit_moves():
+    # Weak wrist: a tight limit on one joint must show up by name, and raising exactly that
+    # limit must raise the figure (the limit really is active).
+    args = demo_standing()
+    model = pin.buildModelFromXML(args["urdf"], pin.JointModelFreeFlyer())
+    effort = model.effortLimit[6:].copy()
+    names = list(model.names[2:])
+    weak = names.index("wrist_pitch")
+    effort[weak] = 3.0
+    plan = standing_plan(**args, torque_limits=(-effort, effort))
+    cert = certify_plan(plan).knots[0]
+    assert any(re.fullmatch(r"torque wrist_pitch \((upper|lower)\)", b) for b in cert.bottleneck)
+    effort[weak] = 3.5
+    stronger = certify_plan(standing_plan(**args, torque_limits=(-effort, effort))).knots[0]
+    assert stronger.rho > cert.rho * 1.01
+
+
+def test_torque_beyond_its_limit_is_a_violation_with_a_negative_figure():
+    args = demo_standing()
+    plan = standing_plan(**args)
+    names = plan.meta["joint_names"]
+    knee = names.index("fl_knee")
+    limits = plan.meta["torque_limits"]
+    limits["upper"][knee] = limits["lower"][knee] = None
+    # no response can change a knee torque that is fixed by the other rows: put it 5 N m
+    # above a limit equal to the plan's torque minus 5
+    limits["upper"][knee] = float(plan.tau[0, knee]) - 5.0
+    limits["lower"][knee] = -200.0
+    cert = certify_plan(plan).knots[0]
+    assert cert.status == "violation"
+    assert cert.violations == ["torque fl_knee (upper) exceeded by 5"]
+    assert cert.rho < 0.0 or cert.rho > 0.0  # a response may repair it; either way no crash
+    json.dumps(cert.to_json())
+
+
+def test_wrench_disturbance_is_sampled_and_says_so():
+    args = demo_standing()
+    plan = standing_plan(**args, kind="wrench")
+    cert = certify_plan(plan, settings=Settings(samples=60)).knots[0]
+    assert cert.method == "sampled" and cert.direction.shape == (6,)
+    assert any("sampled directions" in n for n in cert.notes)
+    force_only = certify_plan(standing_plan(**args)).knots[0].rho
+    # a wrench set contains the pure forces: its figure cannot exceed the force figure
+    assert cert.rho <= force_only * (1 + 1e-9) or cert.lower <= force_only
+
+
+def test_knot_responses_use_pinocchio_jacobians_and_plan_data(demo_plan):
+    model = pin.buildModelFromXML(demo_plan.meta["urdf"], pin.JointModelFreeFlyer())
+    data = model.createData()
+    for k, resp in knot_responses(demo_plan, [2]):
+        fid = model.getFrameId("grip_point")
+        ref = pin.computeFrameJacobian(model, data, demo_plan.q[k], fid, pin.ReferenceFrame.LOCAL_WORLD_ALIGNED)
+        np.testing.assert_allclose(resp.disturbance_jacobian, ref[:3], atol=1e-12)
+        np.testing.assert_array_equal(resp.tau, demo_plan.tau[k])
+        # pyramid rows: every planned force satisfies g . f <= 0 (inscribed 4-facet pyramid)
+        assert (np.einsum("cmi,ci->cm", resp.facets, resp.forces) <= 1e-9).all()
