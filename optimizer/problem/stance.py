@@ -229,7 +229,7 @@ def solve_stance(robot, contacts, q_guess=None, hand_target=None, *, nominal=Non
             alpha *= 0.5
         moved = alpha * np.linalg.norm(dx)
         q, value, res, toward = trial, trial_value, trial_res, trial_toward
-        if np.max(np.abs(res.contact_error)) < tol and moved < 1e-8:
+        if np.max(np.abs(res.contact_error)) < tol and moved < 1e-6:
             return q
     if np.max(np.abs(res.contact_error)) < tol:
         return q

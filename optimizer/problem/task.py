@@ -300,7 +300,7 @@ def read_hand_target(spec: Fields, robot, duration: float) -> HandTarget:
         spec.fail(key, f"times within the horizon [0, {duration}] s, start <= end", [t_start, t_end])
     orientation = read_orientation(spec) if spec.has("orientation") else None
     return HandTarget(frame, spec.vector("position", 3), orientation, float(t_start), float(t_end),
-                      spec.string("label", ""))
+                      spec.string("label") if spec.has("label") else "")
 
 
 def read_orientation(spec: Fields) -> np.ndarray:
