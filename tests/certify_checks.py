@@ -98,7 +98,9 @@ def standing_plan(urdf: str, contacts, base_height: float, postures=({},), distu
                 margin=np.zeros(K), meta=meta)
     plan.contact_targets = np.array([[_frame_position(model, data, qk, c) if on else np.full(3, np.nan)
                                       for c, on in zip(contacts, stance)] for qk in q])
-    plan.margin = np.array([least_squares_margin(plan, k) for k in range(K)]) if margin is None else np.asarray(margin, float)
+    if margin is None:
+        margin = [least_squares_margin(plan, k) for k in range(K)]
+    plan.margin = np.asarray(margin, float)
     return plan
 
 

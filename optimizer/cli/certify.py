@@ -126,12 +126,12 @@ def _fmt(x, spec=".3f") -> str:
 def knot_table(cert, unit: str) -> list:
     """Lines of the per-knot table."""
     head = (f"{'knot':>5} {'t [s]':>8} {'exact [' + unit + ']':>12} {'planned [' + unit + ']':>13} "
-            f"{'planned/exact':>13}  {'weakest direction (world)':<27} {'facets':>6}  bottleneck")
+            f"{'planned/exact':>14}  {'weakest direction (world)':<27} {'facets':>6}  bottleneck")
     lines = [head]
     for c in cert.knots:
         flag = "" if c.status == "ok" else f"  [{c.status}]"
         cap = " (capped)" if c.capped else ""
-        lines.append(f"{c.knot:>5} {c.time:>8.3f} {_fmt(c.rho):>12} {_fmt(c.planned):>13} {_fmt(c.ratio):>13}  "
+        lines.append(f"{c.knot:>5} {c.time:>8.3f} {_fmt(c.rho):>12} {_fmt(c.planned):>13} {_fmt(c.ratio):>14}  "
                      f"{_direction(c.direction):<27} {c.facets:>6}  {_names(c.bottleneck)}{cap}{flag}")
     return lines
 
@@ -142,7 +142,8 @@ def summary_lines(cert, unit: str) -> list:
     lines = [f"smallest exact margin: {_fmt(cert.smallest().rho)} {unit} at knot {s['smallest_at_knot']} "
              f"(t = {cert.smallest().time:.3f} s)"]
     if s["most_frequent_bottleneck"]:
-        lines.append(f"most frequent bottleneck: {s['most_frequent_bottleneck']} ({s['bottleneck_knots']} of {n} knots)")
+        lines.append(f"most frequent bottleneck: {s['most_frequent_bottleneck']} "
+                     f"({s['bottleneck_knots']} of {n} knots)")
     if s["planned_over_exact_min"] is not None:
         lines.append(f"planned/exact: {s['planned_over_exact_min']:.3f} .. {s['planned_over_exact_max']:.3f} "
                      "(1 = the linear-gain margin is tight)")
