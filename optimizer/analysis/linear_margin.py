@@ -24,8 +24,6 @@ import numpy as np
 from .response import LimitRows
 
 EQUALITY_TOL = 1e-9  # relative residual of the base balance accepted as exact
-LIMIT_TOL = 1e-6     # limits are certified loosened by this fraction of the largest room
-
 
 
 @dataclass
@@ -80,7 +78,7 @@ def certify_gains(rows: LimitRows, gains) -> LinearMargin:
     if residual > EQUALITY_TOL * scale:
         return LinearMargin(0.0, K, "no linear response balances the floating base")
     reach = np.linalg.norm(rows.a_ub[:, :d] + rows.a_ub[:, d:] @ K, axis=1)
-    room = rows.b_ub + limit_tolerance(rows)
+    room = rows.b_ub
     if (room < 0).any():
         worst = np.argmin(room / np.maximum(reach, 1e-12))
         return LinearMargin(float(room[worst] / max(reach[worst], 1e-12)), K,
@@ -89,15 +87,6 @@ def certify_gains(rows: LimitRows, gains) -> LinearMargin:
         ratios = np.where(reach > 0, room / np.maximum(reach, 1e-300), np.inf)
     rho = float(ratios.min(initial=np.inf))
     return LinearMargin(rho if np.isfinite(rho) else float("inf"), K)
-
-
-def limit_tolerance(rows: LimitRows) -> float:
-    """Slack granted to every limit row: a solver's feasibility tolerance, not a design margin.
-
-    Plans come from numerical solvers that meet limits to about 1e-8 of their
-    scale; a facet met to within micro-newtons must not read as a violation.
-    """
-    return LIMIT_TOL * max(1.0, float(np.abs(rows.b_ub).max(initial=0.0)))
 
 
 @lru_cache(maxsize=32)
@@ -132,9 +121,9 @@ def best_linear_margin(rows: LimitRows, initial_gains=None) -> LinearMargin:
     """
     d, n_gain = rows.dim, rows.a_ub.shape[1] - rows.dim
     fallback = certify_gains(rows, np.zeros((n_gain, d)) if initial_gains is None else initial_gains)
-    if (rows.b_ub < -limit_tolerance(rows)).any() or fallback.note.startswith("no linear"):
+    if (rows.b_ub < 0).any() or fallback.note.startswith("no linear"):
         return fallback
-    room = rows.b_ub + limit_tolerance(rows)
+    room = np.maximum(rows.b_ub, 1e-12 * max(1.0, float(rows.b_ub.max(initial=0.0))))
     scale = max(float(np.median(room)), 1e-9)       # forces in units of a typical room
     a = rows.a_ub * (scale / room)[:, None]
     solver = _margin_solver(a.shape[0], rows.a_eq.shape[0], d, n_gain)

@@ -25,6 +25,11 @@ from .structure import Structure
 
 INTEGRATOR = "semi-implicit-euler"
 INF = float("inf")
+# Plain limits are tightened by this much (friction and normal-force rows in
+# units of m g, torques as a fraction of their limit), more than the solver's
+# feasibility tolerance, so a solved plan meets every limit exactly and its
+# margin can be certified without any tolerance.
+LIMIT_BACKOFF = 1e-6
 
 
 class Transcription:
@@ -113,9 +118,9 @@ class Transcription:
         stance = self._map(f.stance, len(knots))(V["q"][:, first:], P["footholds"])
         self.constraints.add("stance contacts", stance, knots, unit="m")
         facet_rows, pushes = self._map(f.friction, K)(V["lam"], P["facets"], P["normals"])
-        self.constraints.add("friction pyramid", facet_rows, range(K), -INF, 0.0, unit="m g")
+        self.constraints.add("friction pyramid", facet_rows, range(K), -INF, -LIMIT_BACKOFF, unit="m g")
         self.constraints.add("minimum normal force", pushes - P["min_normal_force"] / self.weight,
-                             range(K), 0.0, INF, unit="m g")
+                             range(K), LIMIT_BACKOFF, INF, unit="m g")
 
     def _hand_targets(self, V, P):
         for i, slot in enumerate(self.structure.targets):
@@ -157,7 +162,8 @@ class Transcription:
         a_lo, a_hi = np.full((r.nv, K), -INF), np.full((r.nv, K), INF)
         a_lo[:, -1] = a_hi[:, -1] = 0.0
         L.set(lo, "a", a_lo), L.set(hi, "a", a_hi)
-        L.set(lo, "tau", r.torque_lower[:, None]), L.set(hi, "tau", r.torque_upper[:, None])
+        backoff = LIMIT_BACKOFF * np.maximum(abs(r.torque_lower), abs(r.torque_upper))
+        L.set(lo, "tau", (r.torque_lower + backoff)[:, None]), L.set(hi, "tau", (r.torque_upper - backoff)[:, None])
         for p in range(self.disturbance_count):
             L.set(lo, f"rho{p}", 0.0)
         if "floor" in L:
