@@ -14,7 +14,7 @@ import casadi as ca
 
 ACCELERATION_WEIGHT = 1e-3   # per (rad/s^2)^2, averaged over knots
 POSTURE_WEIGHT = 1e-2        # per rad^2 of joint-posture deviation, averaged over knots
-GAIN_WEIGHT = 1e-4           # per (G / m g)^2, robust objectives only
+GAIN_WEIGHT = 1e-3           # per (G / m g)^2, robust objectives only: keeps the gains unique
 
 
 @dataclass(frozen=True)

@@ -1,0 +1,160 @@
+"""Every demo task solves with every objective; each plan is re-checked from outside.
+
+Plans are solved at a small knot count (fast, for CI); the full 60-knot sizes
+run in ``benchmarks/solve.py``. The checks use Pinocchio's numeric algorithms
+and SciPy's LP solver only, never our CasADi model.
+"""
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pinocchio as pin
+import pytest
+
+from certify_checks import check_plan_against_sampled_lps, sampled_bounds
+from optimizer.analysis.certify import certify_plan
+from optimizer.planfile import load_plan, save_plan
+from optimizer.planner import solve
+from optimizer.problem.task import load_task
+
+TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
+OBJECTIVES = ["feasible", "robust", "robust-min", "torque"]
+KNOTS = 8
+_SOLVED: dict = {}
+
+
+def solved(task_name: str, objective: str):
+    """The plan of (task, objective), solved once per test session."""
+    key = (task_name, objective)
+    if key not in _SOLVED:
+        task = load_task(f"tasks/{task_name}.yaml")
+        outcome = solve(task, objective, knots=KNOTS)
+        _SOLVED[key] = (task, outcome)
+    return _SOLVED[key]
+
+
+def plan_of(task_name, objective):
+    task, outcome = solved(task_name, objective)
+    assert outcome.success, [(s.objective, s.status, s.message) for s in outcome.stages]
+    return task, outcome.plan
+
+
+@pytest.mark.parametrize("objective", OBJECTIVES)
+@pytest.mark.parametrize("task_name", TASKS)
+def test_plan_meets_the_equations_of_motion_by_pinocchio(task_name, objective):
+    # Reference: Pinocchio's rnea and frame Jacobians (LOCAL_WORLD_ALIGNED) on the plan file's
+    # own URDF: rnea(q, v, a) - S^T tau - sum_c J_c^T lambda_c = 0 at every knot.
+    task, plan = plan_of(task_name, objective)
+    meta = plan.meta
+    model = pin.buildModelFromXML(meta["urdf"], pin.JointModelFreeFlyer())
+    data = model.createData()
+    weight = pin.computeTotalMass(model) * np.linalg.norm(meta["gravity"])
+    ids = [model.getFrameId(name) for name in meta["contact_frames"]]
+    for k in range(len(plan.t)):
+        q = plan.q[k]
+        pin.computeJointJacobians(model, data, q)
+        pin.updateFramePlacements(model, data)
+        contact = sum(pin.getFrameJacobian(model, data, i, pin.LOCAL_WORLD_ALIGNED)[:3].T @ f
+                      for i, f in zip(ids, plan.contact_forces[k]))
+        residual = pin.rnea(model, data, q, plan.v[k], plan.a[k]) - np.concatenate([np.zeros(6), plan.tau[k]]) - contact
+        assert np.abs(residual).max() <= 1e-6 * weight, (k, np.abs(residual).max())
+        # stance contacts stay on their footholds (Pinocchio forward kinematics)
+        for i, target in zip(ids, plan.contact_targets[k]):
+            assert np.linalg.norm(data.oMf[i].translation - target) <= 1e-5
+
+
+@pytest.mark.parametrize("objective", OBJECTIVES)
+@pytest.mark.parametrize("task_name", TASKS)
+def test_plan_respects_friction_cones_and_limits(task_name, objective):
+    task, plan = plan_of(task_name, objective)
+    meta = plan.meta
+    for c, (normal, mu) in enumerate(zip(np.array(meta["contact_normals"]), meta["friction"])):
+        f = plan.contact_forces[:, c]
+        push = f @ normal
+        tangential = np.linalg.norm(f - push[:, None] * normal, axis=1)
+        # Coulomb friction (textbook): |f_t| <= mu f_n; the plan's pyramid is inscribed, so the
+        # true cone holds as well; and the minimum normal force
+        assert np.all(tangential <= mu * push + 1e-9)
+        assert np.all(push >= meta["min_normal_force"] - 1e-9)
+    lower, upper = np.array(meta["torque_limits"]["lower"]), np.array(meta["torque_limits"]["upper"])
+    assert np.all(plan.tau <= upper) and np.all(plan.tau >= lower)
+    model = pin.buildModelFromXML(meta["urdf"], pin.JointModelFreeFlyer())
+    assert np.all(plan.q[:, 7:] >= model.lowerPositionLimit[7:] - 1e-9)
+    assert np.all(plan.q[:, 7:] <= model.upperPositionLimit[7:] + 1e-9)
+    assert np.all(np.abs(plan.v[:, 6:]) <= model.velocityLimit[6:] + 1e-9)
+
+
+@pytest.mark.parametrize("task_name", TASKS)
+def test_knots_follow_the_declared_integrator(task_name):
+    # semi-implicit Euler with Pinocchio's integrate: q[k+1] = integrate(q[k], h v[k+1]),
+    # v[k+1] = v[k] + h a[k]; rest at both ends.
+    task, plan = plan_of(task_name, "robust")
+    assert plan.meta["integrator"] == "semi-implicit-euler"
+    model = pin.buildModelFromXML(plan.meta["urdf"], pin.JointModelFreeFlyer())
+    h = np.diff(plan.t)
+    for k in range(len(h)):
+        assert np.allclose(plan.v[k + 1], plan.v[k] + h[k] * plan.a[k], atol=1e-6)
+        assert np.allclose(plan.q[k + 1], pin.integrate(model, plan.q[k], h[k] * plan.v[k + 1]), atol=1e-6)
+    assert np.allclose(plan.v[[0, -1]], 0.0) and np.allclose(plan.a[-1], 0.0)
+
+
+@pytest.mark.parametrize("task_name", TASKS)
+def test_hand_reaches_its_targets(task_name):
+    task, plan = plan_of(task_name, "robust")
+    model = pin.buildModelFromXML(plan.meta["urdf"], pin.JointModelFreeFlyer())
+    data = model.createData()
+    for target in task.hand_targets:
+        inside = [k for k, t in enumerate(plan.t) if target.t_start - 1e-9 <= t <= target.t_end + 1e-9]
+        knots = inside or [int(np.argmin(abs(plan.t - 0.5 * (target.t_start + target.t_end))))]
+        for k in knots:
+            pin.framesForwardKinematics(model, data, plan.q[k])
+            assert np.linalg.norm(data.oMf[model.getFrameId(target.frame)].translation - target.position) <= 1e-5
+
+
+@pytest.mark.parametrize("objective", ["robust", "torque"])
+@pytest.mark.parametrize("task_name", TASKS)
+def test_margin_never_exceeds_what_sampled_lps_allow(task_name, objective):
+    # Upper bound from outside the NLP: SciPy linprog (HiGHS) on the lifted polytope
+    # (u, dtau, dlambda) along >= 100 sampled directions (FORMULATION.md sections 6-7).
+    task, plan = plan_of(task_name, objective)
+    for k in range(len(plan.t)):
+        _, upper = sampled_bounds(plan, k, n_dirs=100, seed=k)
+        assert plan.margin[k] <= upper * (1 + 1e-6) + 1e-9, (k, plan.margin[k], upper)
+        assert plan.margin[k] >= 0.0
+
+
+@pytest.mark.parametrize("task_name", TASKS)
+def test_robust_plan_margin_is_bracketed_and_below_the_exact_figure(task_name):
+    # Exact figure bracketed by 200 sampled LPs (upper) and the inscribed ball of their hull
+    # (lower); the planned margin is a lower bound of the exact figure.
+    task, plan = plan_of(task_name, "robust")
+    rows = check_plan_against_sampled_lps(plan, n_dirs=200)
+    for row in rows:
+        assert row["planned"] <= row["rho"] * (1 + 1e-6) + 1e-9
+        assert row["facets"] >= 4
+
+
+@pytest.mark.parametrize("task_name", TASKS)
+def test_robust_objectives_beat_the_torque_baseline(task_name):
+    # What a robustness objective is for: larger margins than the torque-minimizing plan,
+    # on the same certified figure.
+    _, torque = plan_of(task_name, "torque")
+    _, robust = plan_of(task_name, "robust")
+    _, robust_min = plan_of(task_name, "robust-min")
+    assert robust.margin.mean() > torque.margin.mean()
+    assert robust_min.margin.min() > torque.margin.min()
+
+
+def test_plan_file_round_trip_keeps_every_array_and_meta(tmp_path):
+    task, plan = plan_of("steep_ramp", "robust")
+    path = tmp_path / "plan.npz"
+    save_plan(plan, path)
+    raw = np.load(path, allow_pickle=False)
+    meta = json.loads(str(raw["meta"]))
+    assert meta["format"] == "plan/1" and meta["objective"] == "robust"
+    assert meta["task"]["horizon"]["knots"] == KNOTS
+    again = load_plan(path)
+    for key in ("t", "q", "v", "a", "tau", "contact_forces", "contact_active", "margin"):
+        np.testing.assert_array_equal(getattr(again, key), getattr(plan, key))
+    assert certify_plan(again).knots[0].rho >= again.margin[0]
