@@ -3,7 +3,8 @@
 Every error a user can cause derives from :class:`InputError` and carries the
 file, the field path inside it, what was expected and what arrived, so the
 command line can print one clear line and exit with code 2. Solver failures
-are :class:`SolveFailed` (exit code 1).
+are :class:`SolveFailed` (exit code 1); a task the pre-solve checks prove
+impossible is :class:`InfeasibleTask` (exit code 2).
 """
 from __future__ import annotations
 
@@ -65,10 +66,29 @@ class PlanFileError(InputError):
     """A plan file does not follow the plan/1 contract."""
 
 
+class OutputError(InputError):
+    """An output path given by the user cannot be written."""
+
+
 class InfeasibleTask(BraceError):
-    """A pre-solve check proved the task cannot be satisfied."""
+    """A pre-solve check proved the task cannot be satisfied.
+
+    Parameters
+    ----------
+    message : str
+        One line saying what cannot be done.
+    findings : list, optional
+        The checks' findings (``optimizer.analysis.presolve.Finding``), each
+        in plain words with what is short and by how much; they are appended
+        to the message, one per line.
+    """
 
     exit_code = 2
+
+    def __init__(self, message: str, findings=None):
+        self.findings = list(findings or [])
+        lines = [message] + [f"  - {f.text()}" for f in self.findings]
+        super().__init__("\n".join(lines))
 
 
 class SolveFailed(BraceError):

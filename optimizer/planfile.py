@@ -21,6 +21,7 @@ from .files import atomic_output
 from .schema import Fields
 
 PLAN_FORMAT = "plan/1"
+INFEASIBLE_FORMAT = "infeasible-point/1"   # where a failed solve stopped: same arrays, never a plan
 
 # key -> (dtype kind, shape in symbols)
 ARRAYS = {
@@ -107,6 +108,19 @@ def save_plan(plan: Plan, path) -> None:
         np.savez(stream, **arrays)
 
 
+def save_infeasible_point(plan: Plan, path) -> None:
+    """Write where a failed solve stopped, in the plan layout but marked as no plan.
+
+    ``meta.format`` becomes ``INFEASIBLE_FORMAT`` and ``meta.infeasible`` true,
+    so :func:`load_plan` refuses the file with a clear message.
+    """
+    meta = dict(plan.meta, format=INFEASIBLE_FORMAT, infeasible=True)
+    arrays = {key: np.asarray(value) for key, value in plan.arrays().items()}
+    arrays["meta"] = np.array(json.dumps(meta))
+    with atomic_output(path, suffix=".npz") as tmp, open(tmp, "wb") as stream:
+        np.savez(stream, **arrays)
+
+
 def load_plan(path) -> Plan:
     """Read and check a ``plan/1`` file.
 
@@ -156,8 +170,14 @@ def _parse_meta(path: Path, raw: dict) -> dict:
         data = json.loads(str(meta))
     except json.JSONDecodeError as exc:
         raise PlanFileError(path, "meta", "valid JSON", f"{exc.msg} at character {exc.pos}") from None
+    except RecursionError:
+        raise PlanFileError(path, "meta", "JSON nested fewer than a few hundred levels deep", "deeper nesting") from None
     if not isinstance(data, dict):
         raise PlanFileError(path, "meta", "a JSON object", type(data).__name__)
+    if data.get("format") == INFEASIBLE_FORMAT:
+        raise PlanFileError(path, "meta.format", f"'{PLAN_FORMAT}' (a plan)", data.get("format"),
+                            "this file holds the point where a failed solve stopped, kept for diagnosis; "
+                            "it is not a plan and must not be executed")
     if data.get("format") != PLAN_FORMAT:
         raise PlanFileError(path, "meta.format", f"'{PLAN_FORMAT}'", data.get("format"))
     return data
@@ -167,11 +187,15 @@ def build_model(path, urdf: str):
     """Pinocchio model of ``urdf`` with a free-flyer root (the contract's layout)."""
     import pinocchio as pin
 
+    from .robot.model import captured_stderr
+
     try:
-        return pin.buildModelFromXML(urdf, pin.JointModelFreeFlyer())
+        with captured_stderr() as messages:
+            return pin.buildModelFromXML(urdf, pin.JointModelFreeFlyer())
     except (ValueError, RuntimeError, TypeError) as exc:
-        raise PlanFileError(path, "meta.urdf", "a URDF that Pinocchio can load",
-                            str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__) from None
+        errors = [m.split("Error:", 1)[1].strip() for m in messages if "Error:" in m]
+        text = errors[0] if errors else str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        raise PlanFileError(path, "meta.urdf", "a URDF that Pinocchio can load", text) from None
 
 
 def _sizes_from_meta(path: Path, meta: dict) -> dict:

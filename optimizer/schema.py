@@ -13,6 +13,8 @@ import numpy as np
 
 from .errors import InputError
 
+LARGEST_MAGNITUDE = 1e9  # larger numbers in a robot or task file are mistakes (and overflow downstream)
+
 
 class Fields:
     """A mapping being validated, with its file and its field path.
@@ -57,12 +59,14 @@ class Fields:
         value = self.raw(key, default)
         return check_number(value, self, key, lo=lo, hi=hi, lo_open=lo_open)
 
-    def integer(self, key: str, default=..., *, lo=None) -> int:
+    def integer(self, key: str, default=..., *, lo=None, hi=None) -> int:
         value = self.raw(key, default)
         if isinstance(value, bool) or not isinstance(value, int):
             self.fail(key, "a whole number", value)
         if lo is not None and value < lo:
             self.fail(key, f"a whole number >= {lo}", value)
+        if hi is not None and value > hi:
+            self.fail(key, f"a whole number <= {hi}", value)
         return int(value)
 
     def string(self, key: str, default=..., choices=None) -> str:
@@ -96,9 +100,11 @@ def check_number(value, fields: Fields, key: str, *, lo=None, hi=None, lo_open=F
     """A finite real number within optional bounds."""
     if isinstance(value, bool) or not isinstance(value, (int, float)):
         fields.fail(key, "a number", value)
-    value = float(value)
+    value = _as_float(value)
     if not math.isfinite(value):
         fields.fail(key, "a finite number", value)
+    if abs(value) > LARGEST_MAGNITUDE:
+        fields.fail(key, f"a number of sensible size (|x| <= {LARGEST_MAGNITUDE:g})", value)
     if lo is not None and (value <= lo if lo_open else value < lo):
         fields.fail(key, f"a number {'>' if lo_open else '>='} {lo}", value)
     if hi is not None and value > hi:
@@ -113,7 +119,17 @@ def check_vector(value, fields: Fields, key: str, size: int | None) -> np.ndarra
         fields.fail(key, what, value)
     out = []
     for item in value:
-        if isinstance(item, bool) or not isinstance(item, (int, float)) or not math.isfinite(item):
+        if isinstance(item, bool) or not isinstance(item, (int, float)) or not math.isfinite(_as_float(item)):
             fields.fail(key, what + " (all finite)", value)
+        if abs(item) > LARGEST_MAGNITUDE:
+            fields.fail(key, what + f" (all of sensible size, |x| <= {LARGEST_MAGNITUDE:g})", value)
         out.append(float(item))
     return np.array(out)
+
+
+def _as_float(value) -> float:
+    """``float(value)``; a whole number too large for a float becomes inf (rejected as not finite)."""
+    try:
+        return float(value)
+    except OverflowError:
+        return math.inf

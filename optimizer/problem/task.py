@@ -26,6 +26,8 @@ from .terrain import build_terrain
 OBJECTIVES = ("feasible", "robust", "robust-min", "torque")
 DISTURBANCE_DIMS = {"force": 3, "wrench": 6}
 UNIT_TOLERANCE = 1e-3      # |n| may differ from 1 by this much before it counts as a mistake
+MAX_KNOTS = 2000           # more knots than this is a typo, not a plan (the NLP grows linearly)
+MAX_FACETS = 64            # a pyramid finer than this adds rows without changing the answer
 TOP_LEVEL = {"name", "description", "robot", "horizon", "stance", "hand_targets", "disturbances",
              "objective", "pyramid_facets", "min_normal_force", "initial_posture", "solver"}
 
@@ -144,6 +146,8 @@ class Task:
         """A copy with ``knots`` knots (>= 2); the robot object is shared."""
         if isinstance(knots, bool) or not isinstance(knots, (int, np.integer)) or knots < 2:
             raise TaskError(self.path, "horizon.knots", "a whole number >= 2", knots)
+        if knots > MAX_KNOTS:
+            raise TaskError(self.path, "horizon.knots", f"a whole number <= {MAX_KNOTS}", knots)
         raw = copy.deepcopy(self.raw)
         raw.setdefault("horizon", {})["knots"] = int(knots)
         return dataclasses.replace(self, knots=int(knots), raw=raw)
@@ -180,7 +184,7 @@ def load_task(path) -> Task:
         hand_targets=read_hand_targets(top, robot, duration),
         disturbances=read_disturbances(top, robot),
         objective=top.string("objective", "robust", choices=OBJECTIVES),
-        facets=top.integer("pyramid_facets", 4, lo=3),
+        facets=top.integer("pyramid_facets", 4, lo=3, hi=MAX_FACETS),
         min_normal_force=top.number("min_normal_force", 0.05 * weight / len(contacts), lo=0.0),
         solver_options=read_solver_options(top),
         initial_posture=read_initial_posture(top, robot, contacts),
@@ -199,9 +203,9 @@ def read_robot(top: Fields):
 
 
 def read_horizon(horizon: Fields) -> tuple[float, int]:
-    """Duration (s, > 0) and knot count (>= 2, default 60)."""
+    """Duration (s, > 0) and knot count (2 .. MAX_KNOTS, default 60)."""
     horizon.allow_only({"duration", "knots"})
-    return horizon.number("duration", lo=0.0, lo_open=True), horizon.integer("knots", 60, lo=2)
+    return horizon.number("duration", lo=0.0, lo_open=True), horizon.integer("knots", 60, lo=2, hi=MAX_KNOTS)
 
 
 def check_frame(fields: Fields, key: str, robot, name: str) -> str:
@@ -210,6 +214,12 @@ def check_frame(fields: Fields, key: str, robot, name: str) -> str:
         fields.fail(key, f"a frame of robot '{robot.name}'", name,
                     "contact frames: " + ", ".join(robot.contact_frames) + f"; hand: {robot.hand_frame}")
     return name
+
+
+def require_text_key(fields: Fields, key) -> None:
+    """Keys naming frames must be text (YAML reads ``1:`` or ``true:`` as other types)."""
+    if not isinstance(key, str):
+        fields.fail(str(key), "a frame name (text) as the key", key)
 
 
 def unit_vector(fields: Fields, key: str, default=...) -> np.ndarray:
@@ -246,6 +256,7 @@ def read_explicit_contacts(contacts: Fields) -> list[ContactSpec]:
     """``{frame: {position, normal, friction}}``."""
     out = []
     for frame in contacts.data:
+        require_text_key(contacts, frame)
         spec = contacts.sub(str(frame))
         spec.allow_only({"position", "normal", "friction"})
         out.append(make_contact(str(frame), spec.vector("position", 3), unit_vector(spec, "normal"),
@@ -259,6 +270,7 @@ def read_placed_feet(stance: Fields) -> list[ContactSpec]:
     feet = stance.sub("feet")
     out = []
     for frame in feet.data:
+        require_text_key(feet, frame)
         key = str(frame)
         if isinstance(feet.raw(key), dict):
             spec = feet.sub(key)
@@ -363,6 +375,8 @@ def read_solver_options(top: Fields) -> dict:
     """``solver``: a flat mapping of option name -> number, text or true/false."""
     options = top.sub("solver", {})
     for key, value in options.data.items():
+        if not isinstance(key, str):
+            options.fail(str(key), "an option name (text) as the key", key)
         if not isinstance(value, (bool, int, float, str)) or (isinstance(value, float) and not math.isfinite(value)):
             options.fail(str(key), "a number, text or true/false", value)
     return dict(options.data)

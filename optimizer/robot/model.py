@@ -226,20 +226,25 @@ def _urdf_joint(elem: ET.Element) -> UrdfJoint:
 
 
 @contextlib.contextmanager
-def captured_stderr():
-    """Collect what C++ code writes to file descriptor 2 into ``lines`` (a list)."""
+def captured_output(fd: int = 2):
+    """Collect what C++ code writes to file descriptor ``fd`` into ``lines`` (a list)."""
     lines: list[str] = []
-    sys.stderr.flush()
-    saved = os.dup(2)
+    (sys.stdout if fd == 1 else sys.stderr).flush()
+    saved = os.dup(fd)
     with tempfile.TemporaryFile(mode="w+b") as sink:
-        os.dup2(sink.fileno(), 2)
+        os.dup2(sink.fileno(), fd)
         try:
             yield lines
         finally:
-            os.dup2(saved, 2)
+            os.dup2(saved, fd)
             os.close(saved)
             sink.seek(0)
             lines.extend(sink.read().decode("utf-8", "replace").splitlines())
+
+
+def captured_stderr():
+    """Collect what C++ code writes to standard error into ``lines`` (a list)."""
+    return captured_output(2)
 
 
 def build_pinocchio_model(urdf_text: str, urdf_path: Path) -> pin.Model:
