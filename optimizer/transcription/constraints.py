@@ -76,3 +76,14 @@ class ConstraintStack:
         excess = np.maximum(np.maximum(lbg - g, g - ubg), 0.0)
         return {grp.name: excess[grp.slice()].reshape((grp.rows, len(grp.knots)), order="F").max(axis=0, initial=0.0)
                 for grp in self.groups}
+
+    def row_violations(self, g, lbg, ubg) -> dict[str, np.ndarray]:
+        """Bound violation of every row: {name: (rows, len(knots))}, column j is knot ``group.knots[j]``.
+
+        Row ``i`` of a group is row ``i`` of its per-knot expression (e.g. the
+        ``i``-th facet row of the friction group), so callers can name it.
+        """
+        g = np.asarray(g, float).reshape(-1)
+        excess = np.maximum(np.maximum(np.asarray(lbg) - g, g - np.asarray(ubg)), 0.0)
+        return {grp.name: excess[grp.slice()].reshape((grp.rows, len(grp.knots)), order="F")
+                for grp in self.groups}
