@@ -14,6 +14,8 @@ import traceback
 
 from ..errors import BraceError
 
+INTERNAL_ERROR = 70  # exit code of an unexpected exception (a bug); bad input is 2, a failed solve 1
+
 COMMANDS = {
     "check-model": "optimizer.cli.check_model",
     "solve": "optimizer.cli.solve",
@@ -60,6 +62,12 @@ def main(argv=None) -> int:
     except KeyboardInterrupt:
         print(f"brace {top.command}: interrupted; no output was written", file=sys.stderr)
         return 130
+    except Exception as exc:  # a bug in brace, not in the input: say so in one line
+        if args.debug:
+            traceback.print_exc()
+        print(f"brace {top.command}: internal error: {type(exc).__name__}: {exc}".splitlines()[0][:300]
+              + " (a bug in brace; run with --debug for the traceback and report it)", file=sys.stderr)
+        return INTERNAL_ERROR
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -1,9 +1,16 @@
 """``brace solve TASK``: plan a whole-body motion and write a plan file.
 
+Before building the NLP, the task's solver options are tried on a tiny
+problem and the pre-solve checks run (``optimizer.analysis.presolve``): a
+task they prove impossible stops with the findings in plain words.
+
 Prints one progress line per solver iteration (objective, largest
 constraint violation, smallest margin so far), then a summary with units.
+When the solver fails, the violated constraint groups are listed with
+their knots and a hint, and the point where it stopped is saved beside the
+plan path as ``<out>.infeasible.npz`` (marked, never loadable as a plan).
 Exit codes: 0 plan written, 1 the solver failed (nothing written as a plan),
-2 bad input.
+2 bad input or a task proven impossible, 130 interrupted (nothing written).
 """
 from __future__ import annotations
 
@@ -11,15 +18,19 @@ import argparse
 import sys
 import time
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..planfile import save_plan
-from ..planner import SolveOutcome, solve
-from ..problem.task import load_task
+from ..errors import InputError, OutputError
+from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
 
+if TYPE_CHECKING:
+    from ..planner import SolveOutcome
+
 HELP = "plan a whole-body motion for a task file and write a plan file"
+CLI = "command line"
 SAFETY = ("Safety: this plan is not validated on hardware. Check it in simulation first, run it at "
           "reduced speed and torque limits in a cleared area with an emergency stop at hand, and "
           "follow your local robot-safety rules and qualified staff.")
@@ -28,32 +39,79 @@ SAFETY = ("Safety: this plan is not validated on hardware. Check it in simulatio
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("task", metavar="TASK.yaml", help="task file")
     parser.add_argument("--objective", choices=list(OBJECTIVES), help="override the task's objective")
-    parser.add_argument("--knots", type=int, help="override the task's knot count (>= 2)")
+    parser.add_argument("--knots", type=int, help=f"override the task's knot count (2 to {MAX_KNOTS})")
     parser.add_argument("--out", metavar="PLAN.npz", help="plan file to write (default: plans/<task>-<objective>.npz)")
     parser.add_argument("--quiet", action="store_true", help="no per-iteration progress lines")
+    parser.add_argument("--skip-checks", action="store_true",
+                        help="do not run the pre-solve checks (reach, standing still, statics, timing)")
+    parser.add_argument("--check-only", action="store_true",
+                        help="validate the task and run the pre-solve checks, then stop without solving")
 
 
 def run(args) -> int:
     task = load_task(args.task)
+    if args.knots is not None:
+        if not 2 <= args.knots <= MAX_KNOTS:
+            raise InputError(CLI, "--knots", f"a whole number from 2 to {MAX_KNOTS}", args.knots)
+        task = task.with_knots(args.knots)
     objective = args.objective or task.objective
-    out = Path(args.out) if args.out else Path("plans") / f"{Path(args.task).stem}-{objective}.npz"
+    out = output_path(args, objective)
+    run_checks(task, args.skip_checks)
+    if args.check_only:
+        print(f"brace solve: task '{task.name}' is valid" + ("" if args.skip_checks else "; pre-solve checks passed"))
+        return 0
+    from ..planner import solve
+
     log_path = out.with_suffix(".ipopt.log")
-    out.parent.mkdir(parents=True, exist_ok=True)
-    log_path.write_text(f"Ipopt logs of brace solve {args.task} --objective {objective}\n", encoding="utf-8")
-    knots = args.knots if args.knots is not None else task.knots
-    print(f"brace solve: task '{task.name}', objective {objective}, {knots} knots over {task.duration:.2f} s, "
+    write_log_header(log_path, f"Ipopt logs of brace solve {args.task} --objective {objective}\n")
+    print(f"brace solve: task '{task.name}', objective {objective}, {task.knots} knots over {task.duration:.2f} s, "
           f"robot '{task.robot.name}' ({task.robot.mass:.1f} kg)")
     started = time.perf_counter()
-    outcome = solve(task, objective, knots=args.knots, progress=None if args.quiet else _print_progress,
-                    log_path=log_path)
+    outcome = solve(task, objective, progress=None if args.quiet else _print_progress, log_path=log_path)
     elapsed = time.perf_counter() - started
     if not outcome.success:
-        _print_failure(outcome, log_path)
+        _report_failure(outcome, out, log_path)
         return 1
+    from ..planfile import save_plan
+
     save_plan(outcome.plan, out)
+    _remove_stale_point(out)
     print("\n".join(summary_lines(outcome, elapsed, out, log_path)))
     print(SAFETY)
     return 0
+
+
+def output_path(args, objective: str) -> Path:
+    """The plan path (``--out`` or the default), checked to be writable as a file."""
+    out = Path(args.out) if args.out else Path("plans") / f"{Path(args.task).stem}-{objective}.npz"
+    if out.is_dir():
+        raise InputError(CLI, "--out", "a file path for the plan", f"{out} is a directory")
+    if out.parent.exists() and not out.parent.is_dir():
+        raise InputError(CLI, "--out", "a path whose folder is a directory", f"{out.parent} is a file")
+    return out
+
+
+def write_log_header(log_path: Path, text: str) -> None:
+    try:
+        log_path.parent.mkdir(parents=True, exist_ok=True)
+        log_path.write_text(text, encoding="utf-8")
+    except OSError as exc:
+        raise OutputError(log_path, "", "a writable place for the solver log", exc.strerror or str(exc)) from None
+
+
+def run_checks(task, skip: bool) -> None:
+    """Solver options on a tiny NLP, then the pre-solve checks (raise when the task is impossible)."""
+    from ..analysis.presolve import check_solver_options, require_possible
+
+    check_solver_options(task)
+    if skip:
+        return
+    started = time.perf_counter()
+    warnings = require_possible(task)
+    print(f"brace solve: pre-solve checks done in {time.perf_counter() - started:.2f} s"
+          + (f", {len(warnings)} warning(s):" if warnings else ", nothing found"))
+    for finding in warnings:
+        print(f"  warning: {finding.text()}")
 
 
 def _print_progress(stage, iteration, cost, violation, smallest_margin):
@@ -81,14 +139,33 @@ def summary_lines(outcome: SolveOutcome, elapsed: float, out: Path, log_path: Pa
     ]
 
 
-def _print_failure(outcome: SolveOutcome, log_path: Path) -> None:
+def _report_failure(outcome: SolveOutcome, out: Path, log_path: Path) -> None:
+    """Status, diagnosis and the saved stopping point, on standard error."""
+    from ..analysis.failure import diagnose, infeasible_path, infeasible_point, report_lines
+    from ..planfile import save_infeasible_point
+
+    err = sys.stderr
     stage = outcome.stages[-1]
     print(f"brace solve: the {stage.objective} stage failed: {stage.status} ({stage.message}) "
-          f"after {stage.iterations} iterations; no plan was written.", file=sys.stderr)
-    worst = sorted(((float(v.max(initial=0.0)), name, v) for name, v in outcome.violations.items()), reverse=True)
-    for value, name, per_knot in worst[:5]:
-        if value <= 1e-6:
-            break
-        knots = np.flatnonzero(per_knot > 0.1 * value)
-        print(f"  largest violation {value:.2e} in '{name}' at knots {knots.tolist()[:10]}", file=sys.stderr)
-    print(f"  Ipopt log: {log_path}", file=sys.stderr)
+          f"after {stage.iterations} iterations; no plan was written.", file=err)
+    if stage.status in ("iteration-limit", "time-limit"):
+        print(f"  the solver ran out of {'iterations' if stage.status == 'iteration-limit' else 'time'}: the "
+              "violations below may only mean it needed longer (raise solver.max_iter or max_wall_time)", file=err)
+    violations = diagnose(outcome)
+    print("diagnosis at the point where the solver stopped (largest violation first):", file=err)
+    print("\n".join("  " + line for line in report_lines(violations)), file=err)
+    point = infeasible_path(out)
+    save_infeasible_point(infeasible_point(outcome, violations), point)
+    print(f"  stopping point saved for inspection (NOT a plan, brace certify refuses it): {point}", file=err)
+    if out.exists():
+        print(f"  note: {out} is from an earlier run, not from this solve", file=err)
+    print(f"  Ipopt log: {log_path}", file=err)
+
+
+def _remove_stale_point(out: Path) -> None:
+    """A stopping point left by an earlier failed solve of the same output no longer applies."""
+    from ..analysis.failure import infeasible_path
+
+    stale = infeasible_path(out)
+    if stale.exists():
+        stale.unlink()

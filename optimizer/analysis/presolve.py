@@ -1,0 +1,410 @@
+"""Pre-solve checks: find the common impossible tasks before the NLP is built.
+
+Each check returns :class:`Finding` objects in plain words, each saying what
+is short and by how much. A finding is ``impossible`` when the check proves
+that no plan exists (then ``brace solve`` stops with exit code 2); otherwise
+it is a warning from an estimate and the solve goes ahead.
+
+Proofs (posture-free, so they hold for every motion):
+
+- ``reach``: every link is rigid, so a frame is never farther from a foot
+  than the sum of the link lengths on the kinematic chain between them
+  (joint placements from the Pinocchio model, plus the travel of prismatic
+  joints). A hand target farther than that from some foothold, or two
+  footholds farther apart than the chain between them, cannot be reached.
+- ``standing``: the motion ends at rest (zero velocity and acceleration at
+  the last knot), so gravity must be carried by the contact forces alone:
+  ``sum_c f_c = -m g`` with each ``f_c`` in its Coulomb cone (checked with a
+  16-facet pyramid circumscribing the cone, so "infeasible" is a proof), then
+  in the planner's own inscribed pyramid above the minimum normal force.
+  Moments are left to the estimates below (they depend on the posture).
+
+Estimates (at postures from the stance IK, :mod:`optimizer.problem.stance`):
+
+- ``statics``: the static support LP at the start posture (friction, minimum
+  normal force, torque limits): which contact or joint is short, by how much.
+- ``hand reach``: the stance IK with the base near its start pose cannot
+  bring the hand to a target.
+- ``timing``: the joint travel between the postures of consecutive targets
+  at the joints' velocity limits takes longer than the task allows.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import pinocchio as pin
+from scipy.optimize import linprog
+
+from ..errors import InfeasibleTask, TaskError
+from ..problem.friction import pyramid_facets
+from ..problem.stance import frame_position, solve_stance, stance_checks, static_support_lp
+
+CONE_FACETS = 16          # facets of the pyramid circumscribing each Coulomb cone (proof of "cannot stand")
+FRICTION_SCALE_MAX = 1e3  # beyond this scale of mu the surfaces "cannot carry the weight at any friction"
+HAND_MISS_WARNING = 0.01  # m: the stance IK leaving the hand this far from a target is worth a warning
+
+
+@dataclass
+class Finding:
+    """One result of a pre-solve check.
+
+    Attributes
+    ----------
+    check : str
+        Which check: ``reach``, ``standing``, ``statics``, ``hand reach``, ``timing``.
+    impossible : bool
+        True when the check proves no plan exists; False for a warning.
+    what : str
+        Plain words: what is short and by how much (with units).
+    hint : str
+        What to change in the task.
+    shortfall : float
+        By how much (in ``unit``), for programs and tests.
+    unit : str
+    """
+
+    check: str
+    impossible: bool
+    what: str
+    hint: str = ""
+    shortfall: float = math.nan
+    unit: str = ""
+
+    def text(self) -> str:
+        return f"{self.check}: {self.what}" + (f"; hint: {self.hint}" if self.hint else "")
+
+
+# ---------------------------------------------------------------- kinematic chains
+
+
+def _joint_path(model, joint: int) -> list[int]:
+    """Joints from ``joint`` up to (and including) the root joint 1."""
+    path = []
+    while joint > 0:
+        path.append(joint)
+        joint = model.parents[joint]
+    return path
+
+
+def _travel(model, joint: int, robot) -> float:
+    """Largest displacement of a prismatic joint's child, m (0 for rotations)."""
+    name = model.names[joint]
+    if name not in robot.joint_names or robot.joint_kinds[robot.joint_names.index(name)] != "prismatic":
+        return 0.0
+    iq = model.joints[joint].idx_q - 7
+    return float(max(abs(robot.joint_lower[iq]), abs(robot.joint_upper[iq])))
+
+
+def chain_length(robot, ancestor: int, frame: str) -> float:
+    """Longest possible distance from joint ``ancestor``'s origin to ``frame``'s origin, m.
+
+    Sum over the joints strictly below ``ancestor`` on the way to the frame of
+    their placement offsets (plus prismatic travel), plus the frame's offset in
+    its parent joint. ``ancestor`` itself (and everything above it) moves the
+    chain rigidly and adds nothing.
+    """
+    model = robot.model
+    frame_obj = model.frames[robot.frame_id(frame)]
+    length = float(np.linalg.norm(frame_obj.placement.translation))
+    for joint in _joint_path(model, frame_obj.parentJoint):
+        if joint == ancestor:
+            return length
+        length += float(np.linalg.norm(model.jointPlacements[joint].translation)) + _travel(model, joint, robot)
+    raise ValueError(f"joint {ancestor} is not an ancestor of frame {frame}")
+
+
+def frames_chain_length(robot, frame_a: str, frame_b: str) -> float:
+    """Longest possible distance between two frames' origins along the kinematic chain, m."""
+    model = robot.model
+    path_a = _joint_path(model, model.frames[robot.frame_id(frame_a)].parentJoint)
+    path_b = set(_joint_path(model, model.frames[robot.frame_id(frame_b)].parentJoint))
+    common = next(j for j in path_a if j in path_b)
+    return chain_length(robot, common, frame_a) + chain_length(robot, common, frame_b)
+
+
+def _target_name(task, i: int) -> str:
+    label = task.hand_targets[i].label
+    return f"hand target '{label}' (hand_targets[{i}])" if label else f"hand_targets[{i}]"
+
+
+def _fmt(vec) -> str:
+    return "[" + ", ".join(f"{x:.2f}" for x in vec) + "]"
+
+
+def reach_findings(task) -> list[Finding]:
+    """Footholds too far apart, and hand targets beyond the chain reach from some foothold (proofs)."""
+    robot, contacts, out = task.robot, task.contacts, []
+    for i, a in enumerate(contacts):
+        for b in contacts[i + 1:]:
+            gap = float(np.linalg.norm(a.foothold - b.foothold))
+            chain = frames_chain_length(robot, a.frame, b.frame)
+            if gap > chain:
+                out.append(Finding("reach", True, f"footholds of {a.frame} and {b.frame} are {gap:.2f} m apart, "
+                                   f"the chain between them spans at most {chain:.2f} m: {gap - chain:.2f} m missing",
+                                   "move those footholds closer together", gap - chain, "m"))
+    for i, target in enumerate(task.hand_targets):
+        excess = [(float(np.linalg.norm(target.position - c.foothold)) - frames_chain_length(robot, c.frame, target.frame),
+                   c) for c in contacts]
+        missing, worst = max(excess, key=lambda e: e[0])
+        if missing > 0.0:
+            distance = float(np.linalg.norm(target.position - worst.foothold))
+            out.append(Finding(
+                "reach", True,
+                f"{_target_name(task, i)} at {_fmt(target.position)} m is out of reach: {target.frame} can be at most "
+                f"{distance - missing:.2f} m from {worst.frame} along the kinematic chain, the target is {distance:.2f} m "
+                f"from its foothold: {missing:.2f} m missing",
+                f"move the target at least {missing:.2f} m toward {worst.frame}, or that foot toward the target",
+                missing, "m"))
+    return out
+
+
+# ---------------------------------------------------------------- standing still
+
+
+def _force_balance_lp(task, facet_rows, scale: float, min_force: float, maximize_min_force: bool = False):
+    """Contact forces (nc, 3) carrying the weight, N, world frame, or None.
+
+    ``facet_rows(contact, mu)`` gives rows ``g`` with ``g . f <= 0``; friction
+    is scaled by ``scale``; every normal force is at least ``min_force`` N.
+    With ``maximize_min_force`` the common lower bound on the normal forces is
+    a variable and maximized; returns (forces, bound) then.
+    """
+    contacts, robot = task.contacts, task.robot
+    nc = len(contacts)
+    nx = 3 * nc + (1 if maximize_min_force else 0)
+    rows, rhs = [], []
+    for c, contact in enumerate(contacts):
+        for g in facet_rows(contact, scale * contact.friction):
+            row = np.zeros(nx)
+            row[3 * c:3 * c + 3] = g
+            rows.append(row), rhs.append(0.0)
+        row = np.zeros(nx)
+        row[3 * c:3 * c + 3] = -np.asarray(contact.normal)
+        if maximize_min_force:
+            row[-1] = 1.0
+        rows.append(row), rhs.append(0.0 if maximize_min_force else -min_force)
+    a_eq = np.hstack([np.tile(np.eye(3), nc), np.zeros((3, nx - 3 * nc))])
+    b_eq = -robot.mass * np.asarray(robot.gravity, float)
+    cost = np.zeros(nx)
+    bounds = [(None, None)] * nx
+    if maximize_min_force:
+        cost[-1] = -1.0
+        bounds[-1] = (None, robot.mass * float(np.linalg.norm(robot.gravity)))
+    lp = linprog(cost, A_ub=np.array(rows), b_ub=np.array(rhs), A_eq=a_eq, b_eq=b_eq, bounds=bounds, method="highs")
+    if lp.status != 0:
+        return (None, math.nan) if maximize_min_force else None
+    forces = lp.x[:3 * nc].reshape(nc, 3)
+    return (forces, float(lp.x[-1])) if maximize_min_force else forces
+
+
+def _cone_rows(contact, mu):
+    """Facets of a pyramid circumscribing the Coulomb cone of friction ``mu`` (contains the cone)."""
+    angles = 2.0 * np.pi * np.arange(CONE_FACETS) / CONE_FACETS
+    t1, t2 = contact.tangents
+    return np.cos(angles)[:, None] * t1 + np.sin(angles)[:, None] * t2 - mu * np.asarray(contact.normal)
+
+
+def _smallest_friction_scale(task, facet_rows, min_force: float) -> float:
+    """Smallest factor on every contact's mu that lets the contacts carry the weight (bisection), or inf."""
+    if _force_balance_lp(task, facet_rows, FRICTION_SCALE_MAX, min_force) is None:
+        return math.inf
+    lo, hi = 0.0, FRICTION_SCALE_MAX
+    if _force_balance_lp(task, facet_rows, 1.0, min_force) is None:
+        lo = 1.0
+    else:
+        hi = 1.0
+    while hi - lo > 1e-4 * hi:
+        mid = 0.5 * (lo + hi)
+        lo, hi = (lo, mid) if _force_balance_lp(task, facet_rows, mid, min_force) is not None else (mid, hi)
+    return hi
+
+
+def _friction_words(task, scale: float) -> str:
+    mus = sorted({round(float(c.friction), 6) for c in task.contacts})
+    if len(mus) == 1:
+        need = scale * mus[0]
+        return f"friction mu >= {need:.2f} on the contacts, the task gives {mus[0]:.2f} ({need - mus[0]:.2f} short)"
+    parts = ", ".join(f"{c.frame} {c.friction:.2f} -> {scale * c.friction:.2f}" for c in task.contacts)
+    return f"{scale:.2f} times the given friction ({parts})"
+
+
+def standing_findings(task) -> list[Finding]:
+    """Can the contacts carry the weight at rest at all? (Coulomb cones, then the planner's pyramids.)"""
+    weight = task.robot.mass * float(np.linalg.norm(task.robot.gravity))
+    cone = _smallest_friction_scale(task, _cone_rows, 0.0)
+    if math.isinf(cone):
+        return [Finding("standing", True, f"the contact surfaces cannot carry the robot's weight ({weight:.1f} N) at "
+                        "any friction: their normals leave no upward push", "add contacts on surfaces facing up",
+                        math.inf, "")]
+    if cone > 1.0:
+        short = _friction_words(task, cone)
+        return [Finding("standing", True, f"the robot cannot stand still on these contacts: with Coulomb friction "
+                        f"it needs {short}", "choose flatter footholds or surfaces with more friction",
+                        (cone - 1.0) * min(c.friction for c in task.contacts), "mu")]
+
+    def inscribed(contact, mu):
+        return pyramid_facets(contact.normal, contact.tangents, mu, task.facets)
+
+    if _force_balance_lp(task, inscribed, 1.0, task.min_normal_force) is not None:
+        return []
+    if _force_balance_lp(task, inscribed, 1.0, 0.0) is not None:
+        _, best = _force_balance_lp(task, inscribed, 1.0, 0.0, maximize_min_force=True)
+        return [Finding("standing", True, f"min_normal_force {task.min_normal_force:.1f} N cannot hold on every "
+                        f"contact while standing still: at most {best:.1f} N is possible",
+                        f"lower min_normal_force to {best:.1f} N or less", task.min_normal_force - best, "N")]
+    scale = _smallest_friction_scale(task, inscribed, 0.0)
+    keep = math.cos(math.pi / task.facets)
+    return [Finding("standing", True, f"with the planner's {task.facets}-facet friction pyramids (inscribed: they "
+                    f"keep {keep:.2f} of mu along each facet) the robot cannot stand still: it needs "
+                    f"{_friction_words(task, scale)}",
+                    f"raise pyramid_facets (8 keeps {math.cos(math.pi / 8):.2f} of mu) or give the surfaces more "
+                    "friction", (scale - 1.0) * min(c.friction for c in task.contacts), "mu")]
+
+
+# ---------------------------------------------------------------- estimates at stance postures
+
+
+def statics_findings(task, q) -> list[Finding]:
+    """The static support LP at posture ``q``: which contact or joint is short, by how much (warnings)."""
+    robot = task.robot
+    support = static_support_lp(robot, q, task.contacts, task.facets, task.min_normal_force)
+    if support.feasible:
+        return []
+    if not math.isfinite(support.slack):
+        return [Finding("statics", False, "at the start posture the contacts cannot balance the weight and its "
+                        "moments with any forces", "move the feet so they surround the centre of mass")]
+    per_contact = robot.mass * float(np.linalg.norm(robot.gravity)) / len(task.contacts)
+    out, contacts = [], {}
+    for name in support.tight:
+        if name.startswith("torque "):
+            joint, side = name[len("torque "):].rsplit(" ", 1)
+            i = robot.joint_names.index(joint)
+            short = -support.slack * (robot.torque_upper[i] - robot.torque_lower[i]) / 2
+            limit = robot.torque_upper[i] if side == "upper" else robot.torque_lower[i]
+            out.append(Finding("statics", False, f"holding the start posture still needs joint {joint} beyond its "
+                               f"{side} torque limit {limit:+.1f} {_unit(robot, i, 'torque')} by about {short:.1f} "
+                               f"{_unit(robot, i, 'torque')}", "choose a posture or footholds that load this joint "
+                               "less", short, _unit(robot, i, "torque")))
+        else:
+            frame, _, what = name.partition(" ")
+            contacts.setdefault(frame, set()).add("friction" if what.startswith("facet") else "min normal force")
+    if contacts:
+        short = -support.slack * per_contact
+        names = ", ".join(f"{frame} ({' and '.join(sorted(kinds))})" for frame, kinds in contacts.items())
+        out.insert(0, Finding("statics", False, f"holding the start posture still needs more than the contacts "
+                              f"allow: {names} short by about {short:.1f} N each (an estimate at the stance-IK posture)",
+                              "move the feet so the load spreads over them, or add friction", short, "N"))
+    return out
+
+
+def _unit(robot, i: int, what: str) -> str:
+    """Unit of joint ``i``'s position, velocity or torque."""
+    prismatic = robot.joint_kinds[i] == "prismatic"
+    return {"position": ("rad", "m"), "velocity": ("rad/s", "m/s"), "torque": ("N m", "N")}[what][prismatic]
+
+
+def hand_findings(task, checks) -> list[Finding]:
+    """Targets the stance IK (base near its start pose) leaves the hand far from (warnings)."""
+    out = []
+    for i, check in enumerate(checks[1:]):
+        if check.hand_error > HAND_MISS_WARNING:
+            out.append(Finding("hand reach", False, f"with the base near its start pose the stance IK keeps the hand "
+                               f"{check.hand_error:.2f} m from {_target_name(task, i)} (an estimate: the solver may "
+                               "still reach it by moving the body)", "bring the target closer to the body",
+                               check.hand_error, "m"))
+    return out
+
+
+def timing_findings(task, checks) -> list[Finding]:
+    """Joint travel between consecutive stance-IK postures at the velocity limits (warnings)."""
+    robot, model = task.robot, task.robot.model
+    order = sorted(range(len(task.hand_targets)), key=lambda i: task.hand_targets[i].t_start)
+    previous, previous_end, previous_name, out = checks[0].q, 0.0, "the start posture", []
+    for i in order:
+        target = task.hand_targets[i]
+        q = checks[i + 1].q
+        available = target.t_start - previous_end
+        travel = np.abs(pin.difference(model, previous, q)[6:])
+        needed = travel / robot.velocity_limit
+        j = int(np.argmax(needed))
+        if needed[j] > available:
+            out.append(Finding("timing", False, f"from {previous_name} to the posture for {_target_name(task, i)} "
+                               f"joint {robot.joint_names[j]} moves {travel[j]:.2f} {_unit(robot, j, 'position')}; at its velocity "
+                               f"limit {robot.velocity_limit[j]:.1f} {_unit(robot, j, 'velocity')} that takes {needed[j]:.2f} s, the task allows "
+                               f"{available:.2f} s ({needed[j] - available:.2f} s short; an estimate from the stance IK)",
+                               "give the hand more time before this target", needed[j] - available, "s"))
+        previous, previous_end, previous_name = q, target.t_end, f"the posture for {_target_name(task, i)}"
+    return out
+
+
+# ---------------------------------------------------------------- all checks
+
+
+def run_checks(task) -> list[Finding]:
+    """Every pre-solve finding of ``task``: proofs first; estimates only when nothing is proven."""
+    proofs = reach_findings(task) + standing_findings(task)
+    if proofs:
+        return proofs
+    try:
+        checks = stance_checks(task)
+    except InfeasibleTask as exc:
+        return [Finding("stance", False, f"the stance IK found no start posture ({exc}); the solver may still find one",
+                        "move the footholds closer to the standing posture or set initial_posture hints")]
+    return statics_findings(task, checks[0].q) + hand_findings(task, checks) + timing_findings(task, checks)
+
+
+def require_possible(task) -> list[Finding]:
+    """The warnings of :func:`run_checks`; raises :class:`InfeasibleTask` when a check proves the task impossible."""
+    findings = run_checks(task)
+    proven = [f for f in findings if f.impossible]
+    if proven:
+        raise InfeasibleTask(f"{task.path}: the task cannot be solved (pre-solve checks; --skip-checks to try anyway):",
+                             proven)
+    return findings
+
+
+# ---------------------------------------------------------------- solver options
+
+
+def check_solver_options(task) -> None:
+    """Try the task's ``solver`` options on a one-variable NLP; a rejected option is a TaskError.
+
+    Ipopt checks names, types and ranges when a solver is built and
+    availability (e.g. of a linear solver) when it runs; both take a few
+    milliseconds on a tiny problem, against seconds for the real NLP.
+    """
+    if not task.solver_options:
+        return
+    if _options_rejected(task.solver_options) is None:
+        return
+    for name, value in task.solver_options.items():
+        reason = _options_rejected({name: value})
+        if reason is not None:
+            raise TaskError(task.path, f"solver.{name}", "an Ipopt option name with a value of the right type "
+                            "and range", value, reason)
+    raise TaskError(task.path, "solver", "Ipopt options that work together", task.solver_options,
+                    _options_rejected(task.solver_options))
+
+
+def _options_rejected(options: dict) -> str | None:
+    """Why Ipopt refuses ``options`` (a short text), or None when it accepts them."""
+    import casadi as ca
+
+    from ..robot.model import captured_output
+    from ..solver.ipopt import DEFAULT_OPTIONS
+
+    x = ca.SX.sym("x")
+    ipopt = dict(DEFAULT_OPTIONS, **options)
+    settings = {"ipopt": ipopt, "print_time": False, "error_on_fail": False}
+    try:
+        with captured_output(1) as printed, captured_output(2):
+            solver = ca.nlpsol("brace_option_probe", "ipopt", {"x": x, "f": x * x}, settings)
+            solver(x0=1.0)
+    except (RuntimeError, TypeError, NotImplementedError) as exc:
+        lines = [line.split(":", 2)[-1].strip() for line in str(exc).splitlines() if line.strip()]
+        notes = [line for line in printed if "not a valid setting" in line]
+        return (notes or lines or ["rejected"])[-1][:200]
+    status = solver.stats().get("return_status", "")
+    return "Ipopt stopped at once with status " + status if status in ("Invalid_Option", "Internal_Error") else None
