@@ -106,9 +106,9 @@ def check_number(value, fields: Fields, key: str, *, lo=None, hi=None, lo_open=F
     if abs(value) > LARGEST_MAGNITUDE:
         fields.fail(key, f"a number of sensible size (|x| <= {LARGEST_MAGNITUDE:g})", value)
     if lo is not None and (value <= lo if lo_open else value < lo):
-        fields.fail(key, f"a number {'>' if lo_open else '>='} {lo}", value)
+        fields.fail(key, f"a number {'>' if lo_open else '>='} {lo:g}", value)
     if hi is not None and value > hi:
-        fields.fail(key, f"a number <= {hi}", value)
+        fields.fail(key, f"a number <= {hi:g}", value)
     return value
 
 

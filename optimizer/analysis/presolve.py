@@ -207,14 +207,13 @@ def _cone_rows(contact, mu):
 
 
 def _smallest_friction_scale(task, facet_rows, min_force: float) -> float:
-    """Smallest factor on every contact's mu that lets the contacts carry the weight (bisection), or inf."""
+    """Factor on every contact's mu that lets the contacts carry the weight: 1 when the given mu do,
+    else the smallest such factor (bisection to 1e-4 relative), inf when none up to FRICTION_SCALE_MAX."""
+    if _force_balance_lp(task, facet_rows, 1.0, min_force) is not None:
+        return 1.0
     if _force_balance_lp(task, facet_rows, FRICTION_SCALE_MAX, min_force) is None:
         return math.inf
-    lo, hi = 0.0, FRICTION_SCALE_MAX
-    if _force_balance_lp(task, facet_rows, 1.0, min_force) is None:
-        lo = 1.0
-    else:
-        hi = 1.0
+    lo, hi = 1.0, FRICTION_SCALE_MAX
     while hi - lo > 1e-4 * hi:
         mid = 0.5 * (lo + hi)
         lo, hi = (lo, mid) if _force_balance_lp(task, facet_rows, mid, min_force) is not None else (mid, hi)

@@ -309,7 +309,7 @@ def read_hand_target(spec: Fields, robot, duration: float) -> HandTarget:
         t_start, t_end = spec.vector("window", 2)
         key = "window"
     if not 0.0 <= t_start <= t_end <= duration:
-        spec.fail(key, f"times within the horizon [0, {duration}] s, start <= end", [t_start, t_end])
+        spec.fail(key, f"times within the horizon [0, {duration}] s, start <= end", [float(t_start), float(t_end)])
     orientation = read_orientation(spec) if spec.has("orientation") else None
     return HandTarget(frame, spec.vector("position", 3), orientation, float(t_start), float(t_end),
                       spec.string("label") if spec.has("label") else "")
