@@ -1,0 +1,167 @@
+"""Post-failure diagnosis: violated groups in plain words, checked against Pinocchio; the stopping point saved apart.
+
+A solve is made to fail quickly (6 knots, Ipopt max_iter 2). References:
+Pinocchio's forward kinematics (feet off their footholds) and RNEA with
+contact Jacobians (equations-of-motion residual, PLAN_FORMAT.md "What a
+reader can check"), and the 4-facet inscribed pyramid written out by hand
+(|f.t| <= mu cos(45 deg) f.n, common practice).
+"""
+from __future__ import annotations
+
+import copy
+import json
+import math
+from pathlib import Path
+
+import numpy as np
+import pinocchio as pin
+import pytest
+import yaml
+
+from optimizer.analysis.failure import diagnose, knot_ranges, row_names
+from optimizer.cli import main
+from optimizer.errors import PlanFileError
+from optimizer.planfile import load_plan
+from optimizer.planner import built_solver, solve
+from optimizer.problem.task import load_task
+
+ROOT = Path(__file__).resolve().parents[1]
+FEET = {"foot_fl": (0.25, 0.18), "foot_fr": (0.25, -0.18), "foot_rl": (-0.25, 0.18), "foot_rr": (-0.25, -0.18)}
+TASK = {
+    "robot": str(ROOT / "models" / "stilt.yaml"),
+    "horizon": {"duration": 2.0, "knots": 6},
+    "stance": {"contacts": {f: {"position": [x, y, 0.0], "normal": [0, 0, 1], "friction": 0.8}
+                            for f, (x, y) in FEET.items()}},
+    "hand_targets": [{"position": [0.85, 0.3, 0.25], "time": 0.8, "label": "pick"}],
+    "objective": "feasible",
+    "solver": {"max_iter": 2},
+}
+WORLD = pin.ReferenceFrame.LOCAL_WORLD_ALIGNED
+
+
+@pytest.fixture(scope="module")
+def failed(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("failing")
+    path = folder / "task.yaml"
+    path.write_text(yaml.safe_dump(TASK), encoding="utf-8")
+    outcome = solve(load_task(path))
+    assert not outcome.success
+    return path, outcome
+
+
+def by_family(violations):
+    return {v.family: v for v in violations}
+
+
+def test_cli_failure_saves_the_stopping_point_and_no_plan(failed, tmp_path, capsys):
+    path, _ = failed
+    out = tmp_path / "plan.npz"
+    assert main(["solve", str(path), "--out", str(out), "--quiet"]) == 1
+    err = capsys.readouterr().err
+    assert "no plan was written" in err and "diagnosis at the point where the solver stopped" in err
+    assert "1. " in err and "hint: " in err and "ran out of iterations" in err
+    point = tmp_path / "plan.infeasible.npz"
+    assert not out.exists() and point.exists()
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["plan.infeasible.npz", "plan.ipopt.log"]
+    with np.load(point, allow_pickle=False) as archive:
+        meta = json.loads(str(archive["meta"]))
+        assert archive["q"].shape == (6, 25)
+    assert meta["format"] == "infeasible-point/1" and meta["infeasible"] is True
+    assert meta["diagnosis"] and meta["diagnosis"][0]["hint"]
+    with pytest.raises(PlanFileError, match=r"meta.format.*infeasible-point/1.*not a plan"):
+        load_plan(point)
+    assert main(["certify", str(point)]) == 2
+
+
+def test_feet_violation_matches_pinocchio_kinematics(failed):
+    _, outcome = failed
+    found = by_family(diagnose(outcome))["stance contacts"]
+    robot, q = outcome.task.robot, outcome.last["q"]
+    data = robot.model.createData()
+    worst = 0.0
+    for k in found.knots:
+        pin.framesForwardKinematics(robot.model, data, q[:, k])
+        for c in outcome.task.contacts:
+            gap = data.oMf[robot.model.getFrameId(c.frame)].translation - c.foothold
+            worst = max(worst, float(np.abs(gap).max()))
+    assert found.largest == pytest.approx(worst, rel=1e-9, abs=1e-12)
+    assert found.size.endswith("mm") and found.worst[0] in FEET
+
+
+def test_equations_of_motion_violation_matches_rnea(failed):
+    _, outcome = failed
+    found = by_family(diagnose(outcome))["equations of motion"]
+    task, last = outcome.task, outcome.last
+    robot = task.robot
+    model, data = robot.model, robot.model.createData()
+    weight = robot.mass * np.linalg.norm(robot.gravity)
+    worst, worst_knot = 0.0, -1
+    for k in range(task.knots):
+        q, v, a = last["q"][:, k], last["v"][:, k], last["a"][:, k]
+        pin.computeJointJacobians(model, data, q)
+        pin.updateFramePlacements(model, data)
+        contact = sum(pin.getFrameJacobian(model, data, model.getFrameId(c.frame), WORLD)[:3].T
+                      @ last["lam"][3 * i:3 * i + 3, k] for i, c in enumerate(task.contacts))
+        residual = pin.rnea(model, data, q, v, a) - np.concatenate([np.zeros(6), last["tau"][:, k]]) - contact
+        if np.abs(residual).max() / weight > worst:
+            worst, worst_knot = np.abs(residual).max() / weight, k
+    assert found.largest == pytest.approx(worst, rel=1e-6)
+    assert worst_knot in found.knots
+
+
+def test_slipping_contact_is_named_with_its_violation(failed):
+    _, outcome = failed
+    doctored = copy.copy(outcome)
+    doctored.last = {k: v.copy() for k, v in outcome.last.items()}
+    force = np.array([200.0, 0.0, 50.0])              # N, world frame: far outside mu = 0.8 at 50 N normal
+    doctored.last["lam"][6:9, :] = force[:, None]     # contact 2 = foot_rl
+    found = by_family(diagnose(doctored))["friction pyramid"]
+    assert found.worst[0] == "foot_rl"
+    weight = outcome.task.robot.mass * np.linalg.norm(outcome.task.robot.gravity)
+    # facet toward +x on flat ground: f.x - mu cos(45 deg) f.z <= -1e-6 (the NLP's back-off), in units of m g
+    expected = (force[0] - 0.8 * math.cos(math.pi / 4) * force[2]) / weight + 1e-6
+    assert found.largest == pytest.approx(expected, rel=1e-9)
+    assert found.knots == list(range(outcome.task.knots))
+    assert "slip" in found.hint
+
+
+def test_joint_at_its_torque_limit_is_named(failed):
+    _, outcome = failed
+    doctored = copy.copy(outcome)
+    doctored.last = {k: v.copy() for k, v in outcome.last.items()}
+    robot = outcome.task.robot
+    j = robot.joint_names.index("rl_knee")
+    doctored.last["tau"][j, 2] = robot.torque_upper[j]
+    found = by_family(diagnose(doctored))["torque limits"]
+    assert "rl_knee" in found.worst and 2 in found.knots
+
+
+def test_row_violations_agree_with_group_violations(failed):
+    _, outcome = failed
+    transcription = built_solver(outcome.task, "feasible")[0]
+    from optimizer.analysis.failure import constraint_values
+    g = constraint_values(transcription, outcome.task, outcome.last)
+    per_group = transcription.constraints.violations(g, transcription.lbg, transcription.ubg)
+    rows = transcription.constraints.row_violations(g, transcription.lbg, transcription.ubg)
+    for name, per_knot in per_group.items():
+        np.testing.assert_allclose(rows[name].max(axis=0, initial=0.0), per_knot, rtol=0, atol=0)
+    # the planner recorded the same violations at the stopping point
+    for name, per_knot in outcome.violations.items():
+        np.testing.assert_allclose(per_group[name], per_knot, rtol=1e-9, atol=1e-12)
+
+
+def test_robust_torque_rows_are_upper_then_lower_per_joint(failed):
+    _, outcome = failed
+    task = outcome.task
+
+    class Group:
+        name, rows = "robust torque", 2 * task.robot.nj
+
+    names = row_names("robust torque", Group, task, task.facets)
+    assert names[0] == f"{task.robot.joint_names[0]} (upper)"
+    assert names[task.robot.nj] == f"{task.robot.joint_names[0]} (lower)"
+
+
+def test_knot_ranges():
+    assert knot_ranges([7, 1, 2, 3]) == "1-3, 7"
+    assert knot_ranges([]) == "-"
