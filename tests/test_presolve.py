@@ -10,7 +10,6 @@ common practice), and the weight shared by contacts on flat ground
 """
 from __future__ import annotations
 
-import json
 import math
 import xml.etree.ElementTree as ET
 from pathlib import Path
@@ -20,10 +19,9 @@ import pinocchio as pin
 import pytest
 import yaml
 
-from optimizer.analysis.presolve import frames_chain_length, run_checks, standing_findings
+from optimizer.analysis.presolve import frames_chain_length, require_possible, run_checks, standing_findings
 from optimizer.cli import main
 from optimizer.errors import InfeasibleTask
-from optimizer.analysis.presolve import require_possible
 from optimizer.problem.task import load_task
 
 ROOT = Path(__file__).resolve().parents[1]

@@ -39,7 +39,7 @@ from scipy.optimize import linprog
 
 from ..errors import InfeasibleTask, TaskError
 from ..problem.friction import pyramid_facets
-from ..problem.stance import frame_position, solve_stance, stance_checks, static_support_lp
+from ..problem.stance import stance_checks, static_support_lp
 
 CONE_FACETS = 16          # facets of the pyramid circumscribing each Coulomb cone (proof of "cannot stand")
 FRICTION_SCALE_MAX = 1e3  # beyond this scale of mu the surfaces "cannot carry the weight at any friction"
