@@ -46,6 +46,9 @@ FAMILIES = {
                         "more friction or a wider stance"),
     "robust normal force": ("robustness: normal-force room per contact", "the named feet would lift off under the "
                             "disturbance: a wider stance or a smaller disturbance shape"),
+    "robust limits": ("robustness: room at the torque, friction and normal-force limits", "a posture that loads "
+                      "the limits less, a wider stance, or a smaller disturbance shape"),
+    "limit rooms": ("room left at each limit", "a posture that loads the limits less, or a smaller disturbance shape"),
 }
 
 
