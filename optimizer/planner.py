@@ -161,11 +161,10 @@ def solve(task, objective: str | None = None, *, knots: int | None = None, progr
 def _run_stage(task, objective, start, outcome, progress, log_path, expand, torque_gains):
     transcription, solver, log = built_solver(task, objective, expand, torque_gains)
     layout = transcription.variables
-    x0 = layout.zeros()
-    for name, value in start.items():
-        if name in layout:
-            layout.set(x0, name, value)
+    x0 = layout.pack(start)
     p = parameter_values(task, transcription.structure, transcription.parameters)
+    if "rooms" in layout and "rooms" not in start:
+        layout.set(x0, "rooms", transcription.rooms_at(start, p))
     lbx, ubx = transcription.bounds(task.initial_posture)
     _ProgressRelay.listener = None if progress is None else _listener(progress, objective, transcription)
     try:

@@ -150,16 +150,34 @@ def test_row_violations_agree_with_group_violations(failed):
         np.testing.assert_allclose(per_group[name], per_knot, rtol=1e-9, atol=1e-12)
 
 
-def test_robust_torque_rows_are_upper_then_lower_per_joint(failed):
+def test_robust_limit_rows_are_named_after_the_limit_they_measure(failed):
+    # Name the rows from the transcription's own room function: a torque put exactly at
+    # one joint's upper limit must leave zero room in the row named after that joint and
+    # side, and a foot carrying exactly the minimum normal force zero room in its row.
+    from optimizer.planner import built_solver
+    from optimizer.transcription.parameters import parameter_values
     _, outcome = failed
     task = outcome.task
+    transcription, _, _ = built_solver(task, "robust")
+    p = parameter_values(task, transcription.structure, transcription.parameters)
+    robot, K, nc = task.robot, task.knots, len(task.contacts)
+    tau = np.zeros((robot.nj, K))
+    tau[3, :] = robot.torque_upper[3]
+    lam = np.zeros((3 * nc, K))
+    for c, contact in enumerate(task.contacts):
+        lam[3 * c:3 * c + 3, :] = 100.0 * np.asarray(contact.normal)[:, None]
+    lam[3:6, :] = task.min_normal_force * np.asarray(task.contacts[1].normal)[:, None]
+    rooms = transcription.rooms_at({"tau": tau, "lam": lam}, p)[:, 0]
 
     class Group:
-        name, rows = "robust torque", 2 * task.robot.nj
+        name, rows = "robust limits", rooms.size
 
-    names = row_names("robust torque", Group, task, task.facets)
-    assert names[0] == f"{task.robot.joint_names[0]} (upper)"
-    assert names[task.robot.nj] == f"{task.robot.joint_names[0]} (lower)"
+    names = row_names("robust limits", Group, task, task.facets)
+    assert len(names) == rooms.size
+    zero = {names[i] for i in np.flatnonzero(np.abs(rooms) < 1e-9)}
+    assert f"{robot.joint_names[3]} torque (upper)" in zero
+    assert f"{task.contacts[1].frame} normal force" in zero
+    assert not any(name.startswith(task.contacts[0].frame) for name in zero)
 
 
 def test_knot_ranges():

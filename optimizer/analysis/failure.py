@@ -40,12 +40,6 @@ FAMILIES = {
                     "(e.g. the rear feet closer) toward it"),
     "robust balance": ("robustness: balance of the disturbance response", "shrink the disturbance shape, or solve "
                        "with --objective feasible to see whether the plain task is possible"),
-    "robust torque": ("robustness: torque room per joint", "the named joints run out of torque under the "
-                      "disturbance: a posture that loads them less, or a smaller disturbance shape"),
-    "robust friction": ("robustness: friction room per contact", "the named feet would slip under the disturbance: "
-                        "more friction or a wider stance"),
-    "robust normal force": ("robustness: normal-force room per contact", "the named feet would lift off under the "
-                            "disturbance: a wider stance or a smaller disturbance shape"),
     "robust limits": ("robustness: room at the torque, friction and normal-force limits", "a posture that loads "
                       "the limits less, a wider stance, or a smaller disturbance shape"),
     "limit rooms": ("room left at each limit", "a posture that loads the limits less, or a smaller disturbance shape"),
@@ -82,7 +76,7 @@ class Violation:
 
 
 def family_of(group: str) -> str:
-    """``hand target grip_point@12`` -> ``hand target``; ``robust torque (disturbance 1)`` -> ``robust torque``."""
+    """``hand target grip_point@12`` -> ``hand target``; ``robust limits (disturbance 1)`` -> ``robust limits``."""
     name = group.split(" (disturbance")[0]
     return "hand target" if name.startswith("hand target") else name
 
@@ -112,6 +106,14 @@ def _configuration_row_names(robot) -> list[str]:
     return names
 
 
+def room_row_names(robot, frames, facets: int) -> list[str]:
+    """Names of the limit rooms in the transcription's order: torques up, torques down,
+    every contact's facets, every contact's normal force."""
+    return ([f"{j} torque (upper)" for j in robot.joint_names] + [f"{j} torque (lower)" for j in robot.joint_names]
+            + [f"{f} friction facet {k}" for f in frames for k in range(facets)]
+            + [f"{f} normal force" for f in frames])
+
+
 def row_names(family: str, group, task, facets: int) -> list[str]:
     """Who each row of a group is about (contact, joint, target), length ``group.rows``."""
     robot, frames = task.robot, [c.frame for c in task.contacts]
@@ -122,13 +124,12 @@ def row_names(family: str, group, task, facets: int) -> list[str]:
         return _configuration_row_names(robot)[:rows]
     if family == "stance contacts":
         return [frames[i // 3] for i in range(rows)]
-    if family in ("friction pyramid", "robust friction"):
+    if family == "friction pyramid":
         return [frames[i // facets] for i in range(rows)]
-    if family in ("minimum normal force", "robust normal force"):
+    if family == "minimum normal force":
         return frames[:rows]
-    if family == "robust torque":
-        nj = robot.nj
-        return [f"{robot.joint_names[i % nj]} ({'upper' if i < nj else 'lower'})" for i in range(rows)]
+    if family in ("robust limits", "limit rooms"):
+        return room_row_names(robot, frames, facets)[:rows]
     if family == "robust balance":
         per = _velocity_row_names(robot)
         block = 6 if rows % (6 + robot.nj) else 6 + robot.nj
@@ -148,11 +149,7 @@ def constraint_values(transcription, task, arrays: dict) -> np.ndarray:
 
     from ..transcription.parameters import parameter_values
 
-    layout = transcription.variables
-    x = layout.zeros()
-    for name, value in arrays.items():
-        if name in layout:
-            layout.set(x, name, value)
+    x = transcription.variables.pack(arrays)
     p = parameter_values(task, transcription.structure, transcription.parameters)
     g = ca.Function("brace_constraints", [transcription.nlp["x"], transcription.nlp["p"]], [transcription.nlp["g"]])
     return np.array(g(x, p)).ravel()

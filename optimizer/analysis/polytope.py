@@ -271,21 +271,22 @@ class _Queries:
 
     def __init__(self, lp: SupportLP):
         self.lp, self.items = lp, []
+        self._directions = np.zeros((0, lp.dim))
 
     def ask(self, d) -> Support:
         d = np.asarray(d, float) / np.linalg.norm(d)
-        for s in self.items:
-            if s.direction @ d > 1.0 - 1e-12:
-                return s
-        s = self.lp.support(d)
-        self.items.append(s)
+        s = self.asked(d)
+        if s is None:
+            s = self.lp.support(d)
+            self.items.append(s)
+            self._directions = np.vstack([self._directions, s.direction])
         return s
 
     def asked(self, d) -> Support | None:
-        for s in self.items:
-            if s.direction @ d > 1.0 - 1e-12:
-                return s
-        return None
+        if not self.items:
+            return None
+        hits = np.flatnonzero(self._directions @ np.asarray(d, float) > 1.0 - 1e-12)
+        return self.items[hits[0]] if hits.size else None
 
     def points(self) -> np.ndarray:
         return np.array([s.point for s in self.items])
@@ -423,12 +424,9 @@ def _refine_all_facets(q: _Queries, hull: ConvexHull, atol: float) -> bool:
     normals, offsets = _facet_planes(hull)
     added = False
     for n, o in zip(normals, offsets):
-        s = q.asked(n)
-        if s is not None and s.value - o <= atol:
-            continue
-        if s is None:
-            s = q.ask(n)
-        added |= s.value - o > atol
+        if q.asked(n) is not None:
+            continue  # its support point is in the hull already: asking again adds nothing
+        added |= q.ask(n).value - o > atol
     return added
 
 

@@ -8,6 +8,9 @@ shape (``build`` once, ``solve`` many times, :class:`SolverResult`).
 """
 from __future__ import annotations
 
+import contextlib
+import signal
+import threading
 import time
 from dataclasses import dataclass, field
 
@@ -41,6 +44,7 @@ DEFAULT_OPTIONS = {
     "linear_solver": "mumps",
     "hessian_approximation": "exact",
     "print_level": 0,
+    "honor_original_bounds": "yes",  # the final point lies inside the bounds, not 1e-8 outside
 }
 
 
@@ -104,8 +108,29 @@ class _Progress(ca.Callback):
             self.iteration += 1
         except KeyboardInterrupt:
             self.interrupted = True
-            return [1]
-        return [0]
+        return [1 if self.interrupted else 0]
+
+
+@contextlib.contextmanager
+def _ctrl_c_stops(callback):
+    """While Ipopt runs, Ctrl-C asks the iteration callback to stop cleanly.
+
+    Without this, the interrupt surfaces inside CasADi and Ipopt reports a
+    generic failure; with it, Ipopt ends at the next iteration and
+    :meth:`IpoptSolver.solve` raises ``KeyboardInterrupt``.
+    """
+    if callback is None or threading.current_thread() is not threading.main_thread():
+        yield
+        return
+
+    def request_stop(signum, frame):
+        callback.interrupted = True
+
+    previous = signal.signal(signal.SIGINT, request_stop)
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
 
 
 class IpoptSolver:
@@ -145,7 +170,8 @@ class IpoptSolver:
         if self.callback is not None:
             self.callback.iteration, self.callback.interrupted = 0, False
         started = time.perf_counter()
-        out = self.solver(x0=x0, p=p, lbx=lbx, ubx=ubx, lbg=lbg, ubg=ubg)
+        with _ctrl_c_stops(self.callback):
+            out = self.solver(x0=x0, p=p, lbx=lbx, ubx=ubx, lbg=lbg, ubg=ubg)
         wall = time.perf_counter() - started
         if self.callback is not None and self.callback.interrupted:
             raise KeyboardInterrupt

@@ -40,6 +40,7 @@ class KnotFunctions:
         self.dynamics = self._dynamics()
         self.stance = self._stance()
         self.friction = self._friction()
+        self.rooms = self._rooms()
         self.step = self._step()
         self.robust = [self._robust(p, slot) for p, slot in enumerate(structure.disturbances)]
         self.hand = {frame: self._hand(frame) for frame in {s.frame for s in structure.targets}}
@@ -85,61 +86,86 @@ class KnotFunctions:
         return ca.Function("configuration_step", [q0, q1, v1, h],
                            [q1 - self.sym.integrate(q0, h * v1)], ["q0", "q1", "v1", "h"], ["error"])
 
+    def _rooms(self) -> ca.Function:
+        """(tau, lam, facets, normals, f_min, tau_lower, tau_upper) -> room left at every limit.
+
+        Output (2 nj + nc m + nc,): ``tau_upper - tau``, ``tau - tau_lower``
+        [N m], then per contact ``-g . lam`` for each facet and
+        ``n . lam - f_min`` [N]. Every entry is >= 0 exactly when the plain
+        limits hold.
+        """
+        nc, m, nj = self.structure.nc, self.structure.facets, self.nj
+        tau, lam = self._sym("tau", nj), self._sym("lam", 3 * nc)
+        facets, normals, f_min = self._sym("facets", 3 * m, nc), self._sym("normals", 3, nc), self._sym("f_min")
+        lower, upper = self._sym("tau_lower", nj), self._sym("tau_upper", nj)
+        facet_rooms, normal_rooms = [], []
+        for c in range(nc):
+            force = lam[3 * c:3 * c + 3]
+            facet_rooms.append(-ca.mtimes(ca.reshape(facets[:, c], 3, m).T, force))
+            normal_rooms.append(ca.dot(normals[:, c], force) - f_min)
+        rooms = ca.vertcat(upper - tau, tau - lower, *facet_rooms, *normal_rooms)
+        return ca.Function("limit_rooms", [tau, lam, facets, normals, f_min, lower, upper], [rooms],
+                           ["tau", "lam", "facets", "normals", "f_min", "tau_lower", "tau_upper"], ["rooms"])
+
+    def room_scales(self, torque_limit) -> "np.ndarray":
+        """Scale of each room row: the joint's torque limit [N m], or ``m g / nc`` [N]."""
+        import numpy as np
+        nc, m = self.structure.nc, self.structure.facets
+        return np.concatenate([torque_limit, torque_limit, np.full(nc * (m + 1), self.weight / nc)])
+
     def _robust(self, index: int, slot: DisturbanceSlot) -> ca.Function:
         """Robust rows of disturbance ``index`` in the homogenized gain form (FORMULATION 4).
 
-        Inputs: q, tau, lam, G (3 nc d,), rho, facets, normals, f_min, tau_lower,
-        tau_upper, shape (d d,). Outputs:
+        Inputs: q, G (3 nc d,), rho, rooms (the limit rooms, kept as variables,
+        see :meth:`_rooms`), facets, normals, shape (d d,), scales (the rooms'
+        scales). Outputs:
 
         - ``balance`` (6 d,): ``Jc_b^T G + rho (W^T Je)_b^T = 0`` / (m g);
-        - ``torque`` (2 nj,): ``(tau_max - tau)^2 - |[G_tau]_i|^2 >= 0`` and the
-          same towards ``tau_min``, divided by the limit squared;
-        - ``facet`` (m nc,): ``(g . lam)^2 - |G_c^T g|^2 >= 0`` / (m g / nc)^2;
-        - ``normal`` (nc,): ``(n . lam - f_min)^2 - |G_c^T n|^2 >= 0`` / (m g / nc)^2.
+        - ``cone`` (2 nj + nc m + nc,): for every limit row with room ``s`` and
+          reach ``r`` (the row's gain, ``|[G_tau]_i|``, ``|G_c^T g|`` or
+          ``|G_c^T n|``), ``s - r^2 / s >= 0`` divided by the row's scale.
+          This is ``r <= s`` written so its gradient never vanishes and never
+          nearly does: the rooms are variables kept strictly positive by the
+          interior-point method, so a limit with almost no room left stays a
+          well-scaled constraint (a squared row ``s^2 - r^2`` would have a
+          gradient of size ``s`` there).
 
         ``G_tau = -(Jc_j^T G + rho (W^T Je)_j^T)`` is the closed form of the
         joint-torque gains from the joint rows: they are not variables.
-        The right sides' signs (slack >= 0) are kept by the plain limits.
 
         With ``torque_gains="variables"`` (kept for the ablation benchmark)
         ``G_tau`` is one more input (nj d,) and ``balance`` holds all nv rows
         of the balance, base and joints, ``(6 + nj) d`` equalities.
         """
         nc, m, d, nj = self.structure.nc, self.structure.facets, slot.dim, self.nj
-        q, tau, lam = self._sym("q", self.nq), self._sym("tau", nj), self._sym("lam", 3 * nc)
-        gains, rho = self._sym("G", 3 * nc * d), self._sym("rho")
-        facets, normals, f_min = self._sym("facets", 3 * m, nc), self._sym("normals", 3, nc), self._sym("f_min")
-        lower, upper, shape = self._sym("tau_lower", nj), self._sym("tau_upper", nj), self._sym("shape", d * d)
+        n_rooms = 2 * nj + nc * (m + 1)
+        q, gains, rho = self._sym("q", self.nq), self._sym("G", 3 * nc * d), self._sym("rho")
+        rooms, scales = self._sym("rooms", n_rooms), self._sym("scales", n_rooms)
+        facets, normals, shape = self._sym("facets", 3 * m, nc), self._sym("normals", 3, nc), self._sym("shape", d * d)
         G = ca.reshape(gains, 3 * nc, d)
         _, jc = self.contacts(q)
         je = self._disturbance_jacobian(slot)(q)
         je = ca.mtimes(ca.reshape(shape, d, d).T, je)
         balance = ca.mtimes(jc[:, :6].T, G) + rho * je[:, :6].T
         g_tau = -(ca.mtimes(jc[:, 6:].T, G) + rho * je[:, 6:].T)
-        inputs = [q, tau, lam, gains, rho, facets, normals, f_min, lower, upper, shape]
-        names = ["q", "tau", "lam", "G", "rho", "facets", "normals", "f_min", "tau_lower", "tau_upper", "shape"]
+        inputs = [q, gains, rho, rooms, facets, normals, shape, scales]
+        names = ["q", "G", "rho", "rooms", "facets", "normals", "shape", "scales"]
         if self.torque_gains == "variables":
             torque_gains = self._sym("G_tau", nj * d)
-            joint_rows = ca.reshape(torque_gains, nj, d) - g_tau
-            balance = ca.vertcat(balance, joint_rows)
+            balance = ca.vertcat(balance, ca.reshape(torque_gains, nj, d) - g_tau)
             g_tau = ca.reshape(torque_gains, nj, d)
             inputs, names = inputs + [torque_gains], names + ["G_tau"]
-        row_sq = ca.sum2(g_tau * g_tau)
-        limit_sq = ca.fmax(upper * upper, lower * lower)
-        torque = ca.vertcat(((upper - tau) ** 2 - row_sq) / limit_sq, ((tau - lower) ** 2 - row_sq) / limit_sq)
-        per_contact = (self.weight / nc) ** 2
-        facet_rows, normal_rows = [], []
+        torque_reach = ca.sum2(g_tau * g_tau)
+        facet_reach, normal_reach = [], []
         for c in range(nc):
-            Gc, force = G[3 * c:3 * c + 3, :], lam[3 * c:3 * c + 3]
-            rows = ca.reshape(facets[:, c], 3, m).T
-            along = ca.mtimes(rows, Gc)
-            facet_rows.append((ca.mtimes(rows, force) ** 2 - ca.sum2(along * along)) / per_contact)
-            n_gain = ca.mtimes(normals[:, c].T, Gc)
-            normal_rows.append(((ca.dot(normals[:, c], force) - f_min) ** 2 - ca.sumsqr(n_gain)) / per_contact)
-        return ca.Function(
-            f"robust{index}", inputs,
-            [ca.vec(balance) / self.weight, torque, ca.vertcat(*facet_rows), ca.vertcat(*normal_rows)],
-            names, ["balance", "torque", "facet", "normal"])
+            Gc = G[3 * c:3 * c + 3, :]
+            along = ca.mtimes(ca.reshape(facets[:, c], 3, m).T, Gc)
+            facet_reach.append(ca.sum2(along * along))
+            normal_reach.append(ca.sumsqr(ca.mtimes(normals[:, c].T, Gc)))
+        reach_sq = ca.vertcat(torque_reach, torque_reach, *facet_reach, *normal_reach)
+        cone = (rooms - reach_sq / rooms) / scales
+        return ca.Function(f"robust{index}", inputs, [ca.vec(balance) / self.weight, cone],
+                           names, ["balance", "cone"])
 
     def _disturbance_jacobian(self, slot: DisturbanceSlot) -> ca.Function:
         if slot.kind == "force":

@@ -81,6 +81,18 @@ class VectorLayout:
         value = np.broadcast_to(value, (b.rows, b.cols))
         vector[b.offset:b.stop] = value.reshape(-1, order="F") / b.scale
 
+    def pack(self, values: dict) -> np.ndarray:
+        """A scaled vector holding the physical ``values`` of the named blocks (others zero).
+
+        Names that are not blocks of this layout are ignored, so one dict of
+        arrays can fill the layouts of several objectives.
+        """
+        vector = self.zeros()
+        for name, value in values.items():
+            if name in self._blocks:
+                self.set(vector, name, value)
+        return vector
+
     def unpack(self, vector) -> dict[str, np.ndarray]:
         """Every block's physical value from a scaled numeric vector."""
         return {name: self.get(vector, name) for name in self._blocks}

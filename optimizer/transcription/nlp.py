@@ -90,6 +90,7 @@ class Transcription:
                 layout.add(f"rho{p}", 1, K, scale=per_contact)
                 if self.torque_gains == "variables":
                     layout.add(f"G_tau{p}", r.nj * slot.dim, K, scale=per_contact)
+            layout.add("rooms", 2 * r.nj + s.nc * (s.facets + 1), K, scale=per_contact)
         self.objective.add_variables(layout, self.context)
         return layout
 
@@ -113,10 +114,20 @@ class Transcription:
 
     def _contacts(self, V, P):
         K, f = self.structure.knots, self.functions
+        # Knot 0 is skipped when the start is fixed (the posture meets it already) and the
+        # last knot always: at rest, q[K-1] = integrate(q[K-2], 0) = q[K-2], so its
+        # contact positions repeat knot K-2's and Ipopt would see dependent equalities.
         first = 1 if self.structure.fixed_start else 0
-        knots = range(first, K)
-        stance = self._map(f.stance, len(knots))(V["q"][:, first:], P["footholds"])
+        knots = range(first, K - 1)
+        stance = self._map(f.stance, len(knots))(V["q"][:, first:K - 1], P["footholds"])
         self.constraints.add("stance contacts", stance, knots, unit="m")
+        if self.objective.robust:
+            rooms = self._map(f.rooms, K)(V["tau"], V["lam"], P["facets"], P["normals"], P["min_normal_force"],
+                                          P["tau_lower"], P["tau_upper"])
+            scales = ca.repmat(self._room_scales(P), 1, K)
+            self.constraints.add("limit rooms", (rooms - V["rooms"]) / scales, range(K),
+                                 unit="limit or m g/nc")
+            return  # the rooms' bounds carry the plain limits
         facet_rows, pushes = self._map(f.friction, K)(V["lam"], P["facets"], P["normals"])
         self.constraints.add("friction pyramid", facet_rows, range(K), -INF, -LIMIT_BACKOFF, unit="m g")
         self.constraints.add("minimum normal force", pushes - P["min_normal_force"] / self.weight,
@@ -129,18 +140,31 @@ class Transcription:
             residual = ca.vertcat(position, orientation) if slot.orientation else position
             self.constraints.add(f"hand target {slot.frame}@{slot.knot}", residual, [slot.knot], unit="m or rad")
 
+    def _room_scales(self, P):
+        """Scale of each room row (column): torque limit [N m] or m g / nc [N]."""
+        limit = ca.fmax(ca.fabs(P["tau_lower"]), ca.fabs(P["tau_upper"]))
+        s = self.structure
+        return ca.vertcat(limit, limit, ca.DM.ones(s.nc * (s.facets + 1)) * (self.weight / s.nc))
+
     def _robustness(self, V, P):
         K = self.structure.knots
+        scales = self._room_scales(P)
         for p, function in enumerate(self.functions.robust):
             extra = [V[f"G_tau{p}"]] if self.torque_gains == "variables" else []
-            balance, torque, facet, normal = self._map(function, K)(
-                V["q"], V["tau"], V["lam"], V[f"G{p}"], V[f"rho{p}"], P["facets"], P["normals"],
-                P["min_normal_force"], P["tau_lower"], P["tau_upper"], P[f"shape{p}"], *extra)
+            balance, cone = self._map(function, K)(V["q"], V[f"G{p}"], V[f"rho{p}"], V["rooms"], P["facets"],
+                                                   P["normals"], P[f"shape{p}"], scales, *extra)
             tag = f" (disturbance {p})" if len(self.functions.robust) > 1 else ""
             self.constraints.add("robust balance" + tag, balance, range(K), unit="m g")
-            self.constraints.add("robust torque" + tag, torque, range(K), 0.0, INF, unit="limit^2")
-            self.constraints.add("robust friction" + tag, facet, range(K), 0.0, INF, unit="(m g/nc)^2")
-            self.constraints.add("robust normal force" + tag, normal, range(K), 0.0, INF, unit="(m g/nc)^2")
+            self.constraints.add("robust limits" + tag, cone, range(K), 0.0, INF, unit="limit or m g/nc")
+
+    def rooms_at(self, arrays, p) -> np.ndarray:
+        """Room left at every limit, shape (rows, K), for physical ``tau`` and ``lam`` arrays."""
+        P = {name: self.parameters.get(p, name) for name in
+             ("facets", "normals", "min_normal_force", "tau_lower", "tau_upper")}
+        rooms = self.functions.rooms.map(self.structure.knots)(
+            arrays["tau"], arrays["lam"], P["facets"], P["normals"], P["min_normal_force"],
+            P["tau_lower"], P["tau_upper"])
+        return np.array(rooms)
 
     # -- bounds ------------------------------------------------------------
     def bounds(self, initial_posture=None) -> tuple[np.ndarray, np.ndarray]:
@@ -162,8 +186,13 @@ class Transcription:
         a_lo, a_hi = np.full((r.nv, K), -INF), np.full((r.nv, K), INF)
         a_lo[:, -1] = a_hi[:, -1] = 0.0
         L.set(lo, "a", a_lo), L.set(hi, "a", a_hi)
-        backoff = LIMIT_BACKOFF * np.maximum(abs(r.torque_lower), abs(r.torque_upper))
-        L.set(lo, "tau", (r.torque_lower + backoff)[:, None]), L.set(hi, "tau", (r.torque_upper - backoff)[:, None])
+        limit = np.maximum(abs(r.torque_lower), abs(r.torque_upper))
+        if "rooms" in L:  # the rooms carry the backed-off torque limits; plain bounds stay loose
+            L.set(lo, "tau", r.torque_lower[:, None]), L.set(hi, "tau", r.torque_upper[:, None])
+            L.set(lo, "rooms", LIMIT_BACKOFF * self.functions.room_scales(limit)[:, None])
+        else:
+            backoff = LIMIT_BACKOFF * limit
+            L.set(lo, "tau", (r.torque_lower + backoff)[:, None]), L.set(hi, "tau", (r.torque_upper - backoff)[:, None])
         for p in range(self.disturbance_count):
             L.set(lo, f"rho{p}", 0.0)
         if "floor" in L:

@@ -103,6 +103,9 @@ def structure_of(task) -> Structure:
             if (k, target.frame) not in taken:
                 taken.add((k, target.frame))
                 slots.append(TargetSlot(k, i, target.frame, target.orientation is not None))
+    # At rest q[K-1] equals q[K-2]: a target binding both would be a repeated equality.
+    last = task.knots - 1
+    slots = [s for s in slots if not (s.knot == last and (last - 1, s.frame) in taken)]
     return Structure(
         knots=task.knots,
         contact_frames=tuple(c.frame for c in task.contacts),
