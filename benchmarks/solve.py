@@ -62,7 +62,7 @@ def task_rows(names, knots):
                 feasible_time = seed.solve_time
             main = stages.get(objective) if objective != "feasible" else None
             ratio = f"{solve_time / feasible_time:.2f}" if objective == "robust" and feasible_time else ""
-            figures = "failed" if margin is None else f"{margin.min():.1f} / {margin.mean():.1f}"
+            figures = "failed" if margin is None else f"{margin.min():.3g} / {margin.mean():.3g}"
             rows.append(f"| {name} | {objective} | {stage_text(seed)} | {stage_text(main) if main else '-'} | "
                         f"{solve_time:.1f} | {build:.1f} | {ratio} | {figures} |")
             print(rows[-1], flush=True)
@@ -77,7 +77,7 @@ def ablation_rows(name, knots):
                         ("variables", "decision variables (full nv x 3 balance)")):
         outcome, stages, wall, margin = run(task, "robust", knots, torque_gains=form)
         stage = stages["robust"]
-        figures = "failed" if margin is None else f"{margin.min():.2f} / {margin.mean():.2f}"
+        figures = "failed" if margin is None else f"{margin.min():.3g} / {margin.mean():.3g}"
         rows.append(f"| {label} | {stage.solve_time:.1f} s / {stage.iterations} it | "
                     f"{stage.build_time:.1f} | {stage.status} | {figures} |")
         print(rows[-1], flush=True)

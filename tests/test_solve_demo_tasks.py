@@ -158,3 +158,19 @@ def test_plan_file_round_trip_keeps_every_array_and_meta(tmp_path):
     for key in ("t", "q", "v", "a", "tau", "contact_forces", "contact_active", "margin"):
         np.testing.assert_array_equal(getattr(again, key), getattr(plan, key))
     assert certify_plan(again).knots[0].rho >= again.margin[0]
+
+
+@pytest.mark.parametrize("objective", OBJECTIVES)
+@pytest.mark.parametrize("task_name", TASKS)
+def test_every_plans_margin_is_below_its_exact_figure(task_name, objective):
+    # The linear-gain margin is one admissible response, so it never exceeds the exact smallest
+    # unrejectable force of the residual polytope (FORMULATION.md section 6); the ratio says
+    # how tight the bound is. Tolerance:
+    # 1e-6 relative, plus 0.1 micronewton absolute for figures near zero (the projection
+    # stops when its inner and outer bounds agree to 1e-7 of the polytope's size).
+    _, plan = plan_of(task_name, objective)
+    report = certify_plan(plan)
+    for knot in report.knots:
+        assert plan.margin[knot.knot] <= knot.rho * (1 + 1e-6) + 1e-7, (knot.knot, plan.margin[knot.knot], knot.rho)
+        if knot.rho > 1e-3:   # the report gives the ratio, at most 1 within the same tolerance
+            assert 0.0 <= knot.ratio * knot.rho <= knot.rho * (1 + 1e-6) + 1e-7
