@@ -116,3 +116,10 @@ def test_progress_line_on_a_terminal_and_silent_elsewhere():
         line.clear()
     assert "\rcertifying knot 3/60: exact 53.6 N" in tty.getvalue()
     assert pipe.getvalue() == ""
+
+
+def test_report_ends_with_the_model_caveat_and_the_safety_note(plan_path, capsys):
+    assert main(["certify", str(plan_path), "--quiet"]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert out[-2].startswith("These figures hold for the robot model")
+    assert out[-1].startswith("Safety:") and "emergency stop" in out[-1] and "simulation" in out[-1]

@@ -17,6 +17,8 @@ from ..errors import InputError
 from ..files import atomic_output
 from ..planfile import load_plan
 
+from .notices import MODEL_ONLY, SAFETY
+
 HELP = "compute the exact smallest unrejectable force of a plan, knot by knot"
 CLI = "command line"
 
@@ -160,6 +162,7 @@ def summary_lines(cert, unit: str) -> list:
     problems = s["problems"]
     lines.append("result: certified" if not problems else "result: NOT certified")
     lines += [f"  {p}" for p in problems]
+    lines += [MODEL_ONLY, SAFETY]
     return lines
 
 

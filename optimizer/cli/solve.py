@@ -25,15 +25,13 @@ import numpy as np
 from ..errors import InputError, OutputError
 from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
+from .notices import SAFETY
 
 if TYPE_CHECKING:
     from ..planner import SolveOutcome
 
 HELP = "plan a whole-body motion for a task file and write a plan file"
 CLI = "command line"
-SAFETY = ("Safety: this plan is not validated on hardware. Check it in simulation first, run it at "
-          "reduced speed and torque limits in a cleared area with an emergency stop at hand, and "
-          "follow your local robot-safety rules and qualified staff.")
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
