@@ -3,7 +3,7 @@
     python benchmarks/solve.py [--knots 60] [--tasks stair_landing,steep_ramp,...]
                                [--ablation-task steep_ramp] [--write benchmarks/RESULTS.md]
 
-For each demo task it plans with ``feasible``, ``robust`` and ``torque`` (each
+For each demo task it plans with ``feasible``, ``robust``, ``robust-min`` and ``torque`` (each
 run repeats the feasibility seed, as ``brace solve`` does) and reports wall
 time and iterations per stage, the solver build time (paid once per NLP
 shape, shared by every task of that shape) and the ratio of the robust plan's
@@ -53,7 +53,7 @@ def task_rows(names, knots):
     for name in names:
         task = load_task(ROOT / "tasks" / f"{name}.yaml")
         feasible_time = None
-        for objective in ("feasible", "robust", "torque"):
+        for objective in ("feasible", "robust", "robust-min", "torque"):
             outcome, stages, wall, margin = run(task, objective, knots)
             solve_time = sum(s.solve_time for s in stages.values())
             build = sum(s.build_time for s in stages.values())

@@ -12,7 +12,6 @@ tasks of one shape (terrain variants) builds each NLP once.
 from __future__ import annotations
 
 import hashlib
-import shutil
 import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -250,7 +249,7 @@ def _finished_plan(task, objective, arrays, outcome) -> Plan:
 
 
 def _plan_arrays(task, objective, arrays, margin, solver_meta) -> Plan:
-    robot, K, nc = task.robot, task.knots, len(task.contacts)
+    K, nc = task.knots, len(task.contacts)
     footholds = np.array([c.foothold for c in task.contacts])
     return Plan(
         t=task.times.copy(), q=arrays["q"].T.copy(), v=arrays["v"].T.copy(), a=arrays["a"].T.copy(),

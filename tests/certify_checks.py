@@ -222,7 +222,7 @@ def least_squares_margin(plan: Plan, k: int, disturbance: int = 0) -> float:
     """
     lp = LiftedLP(plan, k, disturbance=disturbance)
     d, nj = lp.dim, plan.tau.shape[1]
-    e_u, e_tau, e_lam = lp.a_eq[:, :d], lp.a_eq[:, d:d + nj], lp.a_eq[:, d + nj:]
+    e_u, e_lam = lp.a_eq[:, :d], lp.a_eq[:, d + nj:]
     base = slice(0, 6)
     gain_lam = -np.linalg.pinv(e_lam[base]) @ e_u[base]
     gain_tau = -(e_u[6:] + e_lam[6:] @ gain_lam)

@@ -14,7 +14,10 @@ import pinocchio as pin
 import pytest
 from scipy.linalg import null_space
 
-from optimizer.analysis.statics import friction_statics, rest_terms, standing_statics, torque_use
+from optimizer.analysis.statics import rest_terms, standing_statics, torque_use
+from optimizer.problem.friction import tangent_basis
+from optimizer.problem.stance import static_support_lp
+from optimizer.problem.task import ContactSpec
 from optimizer.robot.model import load_robot
 
 STILT = Path(__file__).resolve().parents[1] / "models" / "stilt.yaml"
@@ -107,17 +110,23 @@ def test_torque_use_fraction():
     assert use[3] == np.inf
 
 
+def contacts_with(robot, normal, mu):
+    """Every foot of ``robot`` on a surface of unit ``normal`` and friction ``mu``."""
+    normal = np.asarray(normal, float)
+    return [ContactSpec(frame, np.zeros(3), normal, tangent_basis(normal), mu) for frame in robot.contact_frames]
+
+
 def test_friction_lp_on_flat_ground(stilt):
     # SciPy HiGHS finds forces inside the 4-facet pyramids (|f_t| <= mu/sqrt2 f_n)
     # and torque limits; Newton still holds.
     mu = 0.6
-    result = friction_statics(stilt, stilt.standing_posture, np.tile([0.0, 0.0, 1.0], (4, 1)), mu)
+    result = static_support_lp(stilt, stilt.standing_posture, contacts_with(stilt, [0.0, 0.0, 1.0], mu))
     assert result.feasible
     np.testing.assert_allclose(result.forces[:, 2].sum(), stilt.mass * 9.81, rtol=1e-6)
     tangential = np.abs(result.forces[:, :2]).max(axis=1)
     assert np.all(tangential <= mu / np.sqrt(2) * result.forces[:, 2] + 1e-6)
-    assert np.all(result.torques <= stilt.torque_upper + 1e-6)
-    assert np.all(result.torques >= stilt.torque_lower - 1e-6)
+    assert np.all(result.tau <= stilt.torque_upper + 1e-6)
+    assert np.all(result.tau >= stilt.torque_lower - 1e-6)
 
 
 @pytest.mark.parametrize("ratio, feasible", [(0.9, True), (1.1, False)])
@@ -128,5 +137,5 @@ def test_friction_lp_inclined_plane(stilt, ratio, feasible):
     mu = 0.5
     theta = np.arctan(ratio * mu / np.sqrt(2))
     normal = [np.sin(theta), 0.0, np.cos(theta)]
-    result = friction_statics(stilt, stilt.standing_posture, np.tile(normal, (4, 1)), mu)
+    result = static_support_lp(stilt, stilt.standing_posture, contacts_with(stilt, normal, mu))
     assert result.feasible is feasible

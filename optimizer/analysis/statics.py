@@ -6,9 +6,9 @@ At rest (``v = a = 0``) the equations of motion reduce to
 
 The six floating-base rows involve no torque. :func:`standing_statics` takes
 the smallest contact forces (least squares, ``min |lambda|^2``) that satisfy
-them and reads the torques off the joint rows. :func:`friction_statics`
-instead asks SciPy's LP solver for forces inside friction pyramids and torque
-limits.
+them and reads the torques off the joint rows.
+:func:`optimizer.problem.stance.static_support_lp` instead asks SciPy's LP
+solver for forces inside friction pyramids and torque limits.
 """
 from __future__ import annotations
 
@@ -16,9 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import pinocchio as pin
-from scipy.optimize import linprog
 
-from ..problem.friction import pyramid_facets, tangent_basis
 from ..robot.model import RobotModel
 
 
@@ -42,8 +40,8 @@ class StaticsResult:
         Norm of the floating-base rows left unbalanced, N and N m mixed;
         near zero when the contacts can hold the robot at all.
     feasible : bool
-        For :func:`friction_statics`: the LP found forces within the
-        pyramids and torque limits. Always True for :func:`standing_statics`.
+        Always True for :func:`standing_statics` (no friction or unilateral
+        limits are imposed).
     """
 
     q: np.ndarray
@@ -125,42 +123,3 @@ def standing_statics(robot: RobotModel, q, contact_frames=None) -> StaticsResult
     return _result(robot, q, frames, gravity, jacobian, positions, lam)
 
 
-def friction_statics(robot: RobotModel, q, normals, mu, contact_frames=None,
-                     min_normal_force: float = 0.0, facets: int = 4) -> StaticsResult:
-    """Contact forces inside friction pyramids and torque limits, if any exist.
-
-    Solves an LP (SciPy HiGHS) with the floating-base rows as equalities,
-    ``g_j . f_c <= 0`` for the inscribed pyramid of each contact,
-    ``n_c . f_c >= min_normal_force`` and ``tau_lower <= tau <= tau_upper``,
-    minimizing the sum of normal forces. ``feasible`` is False (and forces
-    are the least-squares ones) when no such forces exist.
-
-    Parameters
-    ----------
-    normals : array-like, shape (nc, 3)
-        Unit surface normals, world frame.
-    mu : float or array-like, shape (nc,)
-        Friction coefficients.
-    """
-    frames = robot.contact_frames if contact_frames is None else list(contact_frames)
-    gravity, jacobian, positions = rest_terms(robot, q, frames)
-    nc = len(frames)
-    normals = np.asarray(normals, dtype=float).reshape(nc, 3)
-    mus = np.broadcast_to(np.asarray(mu, dtype=float), (nc,))
-    rows, rhs = [], []
-    for c in range(nc):
-        block = np.zeros((facets + 1, 3 * nc))
-        block[:facets, 3 * c:3 * c + 3] = pyramid_facets(normals[c], tangent_basis(normals[c]), mus[c], facets)
-        block[facets, 3 * c:3 * c + 3] = -normals[c]
-        rows.append(block)
-        rhs.extend([0.0] * facets + [-min_normal_force])
-    joint_map = jacobian[:, 6:].T  # tau = g_j - joint_map @ lam
-    a_ub = np.vstack(rows + [joint_map, -joint_map])
-    b_ub = np.concatenate([rhs, gravity[6:] - robot.torque_lower, robot.torque_upper - gravity[6:]])
-    cost = np.concatenate([normals[c] for c in range(nc)])
-    solution = linprog(cost, A_ub=a_ub, b_ub=b_ub, A_eq=jacobian[:, :6].T, b_eq=gravity[:6],
-                       bounds=[(None, None)] * (3 * nc), method="highs")
-    if solution.status != 0:
-        lam = np.linalg.lstsq(jacobian[:, :6].T, gravity[:6], rcond=None)[0]
-        return _result(robot, q, frames, gravity, jacobian, positions, lam, feasible=False)
-    return _result(robot, q, frames, gravity, jacobian, positions, solution.x)

@@ -12,6 +12,7 @@ stored column-major as (3 nc d,); ``rho`` the margin [N].
 from __future__ import annotations
 
 import casadi as ca
+import numpy as np
 
 from .structure import DisturbanceSlot, Structure
 
@@ -107,9 +108,8 @@ class KnotFunctions:
         return ca.Function("limit_rooms", [tau, lam, facets, normals, f_min, lower, upper], [rooms],
                            ["tau", "lam", "facets", "normals", "f_min", "tau_lower", "tau_upper"], ["rooms"])
 
-    def room_scales(self, torque_limit) -> "np.ndarray":
+    def room_scales(self, torque_limit) -> np.ndarray:
         """Scale of each room row: the joint's torque limit [N m], or ``m g / nc`` [N]."""
-        import numpy as np
         nc, m = self.structure.nc, self.structure.facets
         return np.concatenate([torque_limit, torque_limit, np.full(nc * (m + 1), self.weight / nc)])
 

@@ -11,7 +11,6 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..problem.friction import pyramid_facets
 
 
 @dataclass(frozen=True)
