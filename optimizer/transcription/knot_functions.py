@@ -12,7 +12,6 @@ stored column-major as (3 nc d,); ``rho`` the margin [N].
 from __future__ import annotations
 
 import casadi as ca
-import numpy as np
 
 from .structure import DisturbanceSlot, Structure
 
@@ -108,10 +107,14 @@ class KnotFunctions:
         return ca.Function("limit_rooms", [tau, lam, facets, normals, f_min, lower, upper], [rooms],
                            ["tau", "lam", "facets", "normals", "f_min", "tau_lower", "tau_upper"], ["rooms"])
 
-    def room_scales(self, torque_limit) -> np.ndarray:
-        """Scale of each room row: the joint's torque limit [N m], or ``m g / nc`` [N]."""
+    def room_scales(self, tau_lower, tau_upper):
+        """Scale of each room row: the joint's largest torque limit [N m], or ``m g / nc`` [N].
+
+        Works on CasADi symbols (parameters) and on numbers alike; returns a column.
+        """
         nc, m = self.structure.nc, self.structure.facets
-        return np.concatenate([torque_limit, torque_limit, np.full(nc * (m + 1), self.weight / nc)])
+        limit = ca.fmax(ca.fabs(tau_lower), ca.fabs(tau_upper))
+        return ca.vertcat(limit, limit, ca.DM.ones(nc * (m + 1)) * (self.weight / nc))
 
     def _robust(self, index: int, slot: DisturbanceSlot) -> ca.Function:
         """Robust rows of disturbance ``index`` in the homogenized gain form (FORMULATION 4).

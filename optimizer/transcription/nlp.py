@@ -122,10 +122,8 @@ class Transcription:
         stance = self._map(f.stance, len(knots))(V["q"][:, first:K - 1], P["footholds"])
         self.constraints.add("stance contacts", stance, knots, unit="m")
         if self.objective.robust:
-            rooms = self._map(f.rooms, K)(V["tau"], V["lam"], P["facets"], P["normals"], P["min_normal_force"],
-                                          P["tau_lower"], P["tau_upper"])
-            scales = ca.repmat(self._room_scales(P), 1, K)
-            self.constraints.add("limit rooms", (rooms - V["rooms"]) / scales, range(K),
+            scales = ca.repmat(f.room_scales(P["tau_lower"], P["tau_upper"]), 1, K)
+            self.constraints.add("limit rooms", (self._rooms(V["tau"], V["lam"], P) - V["rooms"]) / scales, range(K),
                                  unit="limit or m g/nc")
             return  # the rooms' bounds carry the plain limits
         facet_rows, pushes = self._map(f.friction, K)(V["lam"], P["facets"], P["normals"])
@@ -140,15 +138,14 @@ class Transcription:
             residual = ca.vertcat(position, orientation) if slot.orientation else position
             self.constraints.add(f"hand target {slot.frame}@{slot.knot}", residual, [slot.knot], unit="m or rad")
 
-    def _room_scales(self, P):
-        """Scale of each room row (column): torque limit [N m] or m g / nc [N]."""
-        limit = ca.fmax(ca.fabs(P["tau_lower"]), ca.fabs(P["tau_upper"]))
-        s = self.structure
-        return ca.vertcat(limit, limit, ca.DM.ones(s.nc * (s.facets + 1)) * (self.weight / s.nc))
+    def _rooms(self, tau, lam, P):
+        """Room left at every limit, (rows, K), for symbolic or numeric ``tau``, ``lam`` and parameters."""
+        return self._map(self.functions.rooms, self.structure.knots)(
+            tau, lam, P["facets"], P["normals"], P["min_normal_force"], P["tau_lower"], P["tau_upper"])
 
     def _robustness(self, V, P):
         K = self.structure.knots
-        scales = self._room_scales(P)
+        scales = self.functions.room_scales(P["tau_lower"], P["tau_upper"])
         for p, function in enumerate(self.functions.robust):
             extra = [V[f"G_tau{p}"]] if self.torque_gains == "variables" else []
             balance, cone = self._map(function, K)(V["q"], V[f"G{p}"], V[f"rho{p}"], V["rooms"], P["facets"],
@@ -161,10 +158,7 @@ class Transcription:
         """Room left at every limit, shape (rows, K), for physical ``tau`` and ``lam`` arrays."""
         P = {name: self.parameters.get(p, name) for name in
              ("facets", "normals", "min_normal_force", "tau_lower", "tau_upper")}
-        rooms = self.functions.rooms.map(self.structure.knots)(
-            arrays["tau"], arrays["lam"], P["facets"], P["normals"], P["min_normal_force"],
-            P["tau_lower"], P["tau_upper"])
-        return np.array(rooms)
+        return np.array(self._rooms(arrays["tau"], arrays["lam"], P))
 
     # -- bounds ------------------------------------------------------------
     def bounds(self, initial_posture=None) -> tuple[np.ndarray, np.ndarray]:
@@ -189,7 +183,8 @@ class Transcription:
         limit = np.maximum(abs(r.torque_lower), abs(r.torque_upper))
         if "rooms" in L:  # the rooms carry the backed-off torque limits; plain bounds stay loose
             L.set(lo, "tau", r.torque_lower[:, None]), L.set(hi, "tau", r.torque_upper[:, None])
-            L.set(lo, "rooms", LIMIT_BACKOFF * self.functions.room_scales(limit)[:, None])
+            scales = np.array(self.functions.room_scales(r.torque_lower, r.torque_upper))
+            L.set(lo, "rooms", LIMIT_BACKOFF * scales)
         else:
             backoff = LIMIT_BACKOFF * limit
             L.set(lo, "tau", (r.torque_lower + backoff)[:, None]), L.set(hi, "tau", (r.torque_upper - backoff)[:, None])

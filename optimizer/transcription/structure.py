@@ -75,11 +75,6 @@ class Structure:
         return self.knots - 1
 
 
-def knot_times(duration: float, knots: int) -> np.ndarray:
-    """Knot times [s], shape (K,): uniform from 0 to ``duration``."""
-    return np.linspace(0.0, duration, knots)
-
-
 def target_knots(t_start: float, t_end: float, times: np.ndarray) -> list[int]:
     """Knots a hand target binds: all knots inside ``[t_start, t_end]``, or the nearest one.
 
@@ -95,7 +90,7 @@ def target_knots(t_start: float, t_end: float, times: np.ndarray) -> list[int]:
 
 def structure_of(task) -> Structure:
     """The :class:`Structure` of a loaded task."""
-    times = knot_times(task.duration, task.knots)
+    times = task.times
     slots, taken = [], set()
     for i, target in enumerate(task.hand_targets):
         for k in target_knots(target.t_start, target.t_end, times):
