@@ -58,7 +58,8 @@ class SolveOutcome:
 
     ``plan`` is the finished plan (None when a stage failed); ``last`` the
     physical arrays where the last solver run stopped, ``violations`` its
-    largest violation per constraint group and knot (for diagnosis).
+    largest violation per constraint group and knot (for diagnosis),
+    ``parameters`` the parameter vector of the last solver run.
     """
 
     task: object
@@ -67,6 +68,7 @@ class SolveOutcome:
     stages: list = field(default_factory=list)
     last: dict = field(default_factory=dict)
     violations: dict = field(default_factory=dict)
+    parameters: np.ndarray | None = None
 
     @property
     def success(self) -> bool:
@@ -161,7 +163,7 @@ def _run_stage(task, objective, start, outcome, progress, log_path, expand, torq
     transcription, solver, log = built_solver(task, objective, expand, torque_gains)
     layout = transcription.variables
     x0 = layout.pack(start)
-    p = parameter_values(task, transcription.structure, transcription.parameters)
+    p = parameter_values(task, transcription.structure, transcription.parameters, motion=start["q"])
     if "rooms" in layout and "rooms" not in start:
         layout.set(x0, "rooms", transcription.rooms_at(start, p))
     lbx, ubx = transcription.bounds(task.initial_posture)
@@ -175,6 +177,7 @@ def _run_stage(task, objective, start, outcome, progress, log_path, expand, torq
                                       result.wall_time, solver.build_time, result.max_violation, result.message))
     solver.build_time = 0.0  # reported once, with the first solve that paid for it
     outcome.last = layout.unpack(result.x)
+    outcome.parameters = p
     outcome.violations = transcription.constraints.violations(result.g, transcription.lbg, transcription.ubg)
     return outcome.last, result
 

@@ -43,6 +43,9 @@ FAMILIES = {
     "robust limits": ("robustness: room at the torque, friction and normal-force limits", "a posture that loads "
                       "the limits less, a wider stance, or a smaller disturbance shape"),
     "limit rooms": ("room left at each limit", "a posture that loads the limits less, or a smaller disturbance shape"),
+    "terrain clearance": ("clearance: collision shapes kept away from the terrain (link vs surface)",
+                          "move the hand targets or footholds away from the named surface, or lower "
+                          "clearance.distance"),
 }
 
 
@@ -134,6 +137,8 @@ def row_names(family: str, group, task, facets: int) -> list[str]:
         per = _velocity_row_names(robot)
         block = 6 if rows % (6 + robot.nj) else 6 + robot.nj
         return [per[i % block] for i in range(rows)]
+    if family == "terrain clearance":
+        return [f"{link} vs {surface}" for link, surface in map(task.clearance.row_label, range(rows))]
     if family == "hand target":
         where = group.name[len("hand target "):]
         return [f"{where} {'position' if i < 3 else 'orientation'}" for i in range(rows)]
@@ -143,14 +148,18 @@ def row_names(family: str, group, task, facets: int) -> list[str]:
 # ---------------------------------------------------------------- diagnosis
 
 
-def constraint_values(transcription, task, arrays: dict) -> np.ndarray:
-    """The NLP's constraint vector g at the physical ``arrays`` (names of the variable layout)."""
+def constraint_values(transcription, task, arrays: dict, p=None) -> np.ndarray:
+    """The NLP's constraint vector g at the physical ``arrays`` (names of the variable layout).
+
+    ``p`` is the parameter vector the solve used (default: the task's, box faces chosen at ``arrays``).
+    """
     import casadi as ca
 
     from ..transcription.parameters import parameter_values
 
     x = transcription.variables.pack(arrays)
-    p = parameter_values(task, transcription.structure, transcription.parameters)
+    if p is None:
+        p = parameter_values(task, transcription.structure, transcription.parameters, motion=arrays.get("q"))
     g = ca.Function("brace_constraints", [transcription.nlp["x"], transcription.nlp["p"]], [transcription.nlp["g"]])
     return np.array(g(x, p)).ravel()
 
@@ -166,7 +175,7 @@ def diagnose(outcome, transcription=None) -> list[Violation]:
 
         transcription = built_solver(outcome.task, outcome.stages[-1].objective)[0]
     task = outcome.task
-    g = constraint_values(transcription, task, outcome.last)
+    g = constraint_values(transcription, task, outcome.last, getattr(outcome, "parameters", None))
     rows = transcription.constraints.row_violations(g, transcription.lbg, transcription.ubg)
     weight = task.robot.mass * float(np.linalg.norm(task.robot.gravity))
     families: dict[str, list] = {}

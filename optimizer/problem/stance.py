@@ -59,41 +59,57 @@ def default_guess(robot, contacts) -> np.ndarray:
 
 @dataclass
 class _Residuals:
-    """Errors and Jacobians at one configuration."""
+    """Errors and Jacobians at one configuration.
+
+    The soft rows (the hand's error, then the clearance rows that fall short)
+    are scaled by the square root of their weight.
+    """
 
     contact_error: np.ndarray      # (3 nc,) m
     contact_jacobian: np.ndarray   # (3 nc, nv)
     hand_error: np.ndarray         # (3,) or (6,) m / rad; empty without a target
     hand_jacobian: np.ndarray      # (3 or 6, nv)
+    soft_error: np.ndarray = None  # (n,) weighted
+    soft_jacobian: np.ndarray = None
 
 
-def _residuals(model, data, q, contact_ids, holds, hand) -> _Residuals:
+def _residuals(model, data, q, contact_ids, holds, hand, soft=None) -> _Residuals:
     pin.computeJointJacobians(model, data, q)
     pin.updateFramePlacements(model, data)
     err = np.concatenate([data.oMf[f].translation - h for f, h in zip(contact_ids, holds)])
     jac = np.vstack([frame_position_jacobian(model, data, f) for f in contact_ids])
-    if hand is None:
-        return _Residuals(err, jac, np.zeros(0), np.zeros((0, model.nv)))
-    fid, target = hand.frame_id, hand.position
-    placement = data.oMf[fid]
-    j6 = pin.getFrameJacobian(model, data, fid, WORLD_ALIGNED)
-    h_err, h_jac = placement.translation - target, j6[:3]
-    if hand.orientation is not None:
-        rot_err = pin.log3(placement.rotation @ np.asarray(hand.orientation).T)
-        h_err = np.concatenate([h_err, rot_err])
-        h_jac = np.vstack([h_jac, j6[3:]])
-    return _Residuals(err, jac, h_err, h_jac)
+    h_err, h_jac = np.zeros(0), np.zeros((0, model.nv))
+    if hand is not None:
+        fid, target = hand.frame_id, hand.position
+        placement = data.oMf[fid]
+        j6 = pin.getFrameJacobian(model, data, fid, WORLD_ALIGNED)
+        h_err, h_jac = placement.translation - target, j6[:3]
+        if hand.orientation is not None:
+            rot_err = pin.log3(placement.rotation @ np.asarray(hand.orientation).T)
+            h_err = np.concatenate([h_err, rot_err])
+            h_jac = np.vstack([h_jac, j6[3:]])
+    res = _Residuals(err, jac, h_err, h_jac)
+    weight = 0.0 if hand is None else hand.weight
+    soft_err, soft_jac = [np.sqrt(weight) * h_err], [np.sqrt(weight) * h_jac]
+    if soft is not None:
+        values, rows = soft.rows(q, data)
+        short = values < 0
+        soft_err.append(np.sqrt(soft.weight) * values[short])
+        soft_jac.append(np.sqrt(soft.weight) * rows[short])
+    res.soft_error, res.soft_jacobian = np.concatenate(soft_err), np.vstack(soft_jac)
+    return res
 
 
-def _kkt_step(res: _Residuals, weights, toward, hand_weight, free) -> np.ndarray:
-    """Step ``dx`` (nv,) minimizing the regularizer and hand error with contacts linearized exactly.
+def _kkt_step(res: _Residuals, weights, toward, free) -> np.ndarray:
+    """Step ``dx`` (nv,) minimizing the regularizer and the soft rows with contacts linearized exactly.
 
-    min 1/2 (dx - toward)' W (dx - toward) + 1/2 w_h |J_h dx + e_h|^2
+    min 1/2 (dx - toward)' W (dx - toward) + 1/2 |J_s dx + e_s|^2
     s.t. J_c dx = -e_c, dx = 0 on blocked joints (``free`` is False).
     """
     idx = np.flatnonzero(free)
-    hess = np.diag(weights[idx]) + hand_weight * res.hand_jacobian[:, idx].T @ res.hand_jacobian[:, idx]
-    grad = weights[idx] * toward[idx] - hand_weight * res.hand_jacobian[:, idx].T @ res.hand_error
+    js = res.soft_jacobian[:, idx]
+    hess = np.diag(weights[idx]) + js.T @ js
+    grad = weights[idx] * toward[idx] - js.T @ res.soft_error
     a = res.contact_jacobian[:, idx]
     m = a.shape[0]
     kkt = np.block([[hess, a.T], [a, np.zeros((m, m))]])
@@ -104,11 +120,11 @@ def _kkt_step(res: _Residuals, weights, toward, hand_weight, free) -> np.ndarray
     return dx
 
 
-def _bounded_step(res, weights, toward, hand_weight, q, joints, lower, upper) -> np.ndarray:
+def _bounded_step(res, weights, toward, q, joints, lower, upper) -> np.ndarray:
     """KKT step with joints at a limit and pushed outward held fixed (small active set)."""
     free = np.ones(len(weights), dtype=bool)
     for _ in range(len(joints) + 1):
-        dx = _kkt_step(res, weights, toward, hand_weight, free)
+        dx = _kkt_step(res, weights, toward, free)
         pushing = [iv for (iq, iv), lo, hi in zip(joints, lower, upper)
                    if free[iv] and ((q[iq] <= lo + 1e-12 and dx[iv] < 0) or (q[iq] >= hi - 1e-12 and dx[iv] > 0))]
         if not pushing:
@@ -144,11 +160,28 @@ class _HandGoal:
     frame_id: int
     position: np.ndarray
     orientation: np.ndarray | None
+    weight: float
+
+
+@dataclass
+class _ClearanceGoal:
+    """Clearance rows kept ``margin`` m beyond the task's clearance, as a penalty of ``weight``."""
+
+    spec: object
+    robot: object
+    weight: float
+    margin: float
+
+    def rows(self, q, data):
+        from .clearance import clearance_rows
+
+        return clearance_rows(self.spec, self.robot, q, data, self.margin)
 
 
 def solve_stance(robot, contacts, q_guess=None, hand_target=None, *, nominal=None, base_pose=None,
                  base_weight: float = 10.0, tol: float = 1e-9, max_iter: int = 300,
-                 hand_weight: float = 1e3) -> np.ndarray:
+                 hand_weight: float = 1e3, clearance=None, clearance_weight: float = 1e3,
+                 clearance_margin: float = 0.01) -> np.ndarray:
     """A configuration with every contact frame on its foothold.
 
     Parameters
@@ -174,6 +207,12 @@ def solve_stance(robot, contacts, q_guess=None, hand_target=None, *, nominal=Non
         left almost free.
     tol : float
         Largest accepted distance of a contact frame from its foothold, m.
+    clearance : ClearanceSpec, optional
+        Keep every collision shape ``clearance_margin`` m beyond the required
+        clearance from the terrain (a penalty of weight ``clearance_weight``
+        on the rows that fall short, m; boxes' faces re-chosen every step).
+        The result is not guaranteed to clear: callers check it
+        (:func:`optimizer.problem.clearance.smallest_clearance`).
 
     Returns
     -------
@@ -194,7 +233,10 @@ def solve_stance(robot, contacts, q_guess=None, hand_target=None, *, nominal=Non
     ids = [robot.frame_id(c.frame) for c in contacts]
     holds = [np.asarray(c.foothold, float) for c in contacts]
     hand = None if hand_target is None else _HandGoal(
-        robot.frame_id(hand_target.frame), np.asarray(hand_target.position, float), hand_target.orientation)
+        robot.frame_id(hand_target.frame), np.asarray(hand_target.position, float), hand_target.orientation,
+        hand_weight)
+    soft = None if clearance is None or not clearance.pairs else _ClearanceGoal(
+        clearance, robot, clearance_weight, clearance_margin)
     reference = np.array(robot.standing_posture if nominal is None else nominal, dtype=float)
     weights = np.full(model.nv, 1e-2)
     if base_pose is None:
@@ -205,19 +247,18 @@ def solve_stance(robot, contacts, q_guess=None, hand_target=None, *, nominal=Non
         reference[:7] = np.asarray(base_pose, float)
         reference[3:7] /= np.linalg.norm(reference[3:7])
         start = reference
-    h_weight = hand_weight if hand else 0.0
     q = _clamp(start if q_guess is None else np.array(q_guess, float), joints, lower, upper)
 
     def merit(q):
-        """Regularizer + hand error + exact l1 penalty on the foot errors; and the residuals."""
-        res = _residuals(model, data, q, ids, holds, hand)
+        """Regularizer + soft rows + exact l1 penalty on the foot errors; and the residuals."""
+        res = _residuals(model, data, q, ids, holds, hand, soft)
         toward = pin.difference(model, q, reference)
-        value = 0.5 * toward @ (weights * toward) + 0.5 * h_weight * res.hand_error @ res.hand_error
+        value = 0.5 * toward @ (weights * toward) + 0.5 * res.soft_error @ res.soft_error
         return value + 1e3 * np.abs(res.contact_error).sum(), res, toward
 
     value, res, toward = merit(q)
     for _ in range(max_iter):
-        dx = _bounded_step(res, weights, toward, h_weight, q, joints, lower, upper)
+        dx = _bounded_step(res, weights, toward, q, joints, lower, upper)
         dx *= min(1.0, 0.5 / max(np.linalg.norm(dx), 1e-12))
         alpha = 1.0
         while True:         # backtracking on the merit function
@@ -397,11 +438,12 @@ def stance_checks(task, base_weight: float = 0.1) -> list[StanceCheck]:
     pose. A design aid and a pre-solve diagnosis, not a plan.
     """
     robot = task.robot
-    start = task.initial_posture if task.initial_posture is not None else solve_stance(robot, task.contacts)
+    start = task.initial_posture if task.initial_posture is not None else solve_stance(
+        robot, task.contacts, clearance=task.clearance)
     postures = [("start", start, None)]
     for i, target in enumerate(task.hand_targets):
         q = solve_stance(robot, task.contacts, start, target, nominal=start, base_pose=start[:7],
-                         base_weight=base_weight)
+                         base_weight=base_weight, clearance=task.clearance)
         postures.append((target.label or f"target {i}", q, target))
     return [_check(task, label, q, target) for label, q, target in postures]
 

@@ -20,7 +20,9 @@ import numpy as np
 from ..errors import InfeasibleTask, TaskError
 from ..files import read_yaml_mapping
 from ..schema import Fields
+from .clearance import DEFAULT_CLEARANCE, ClearanceSpec, clearance_spec
 from .friction import tangent_basis
+from .geometry import ground_planes
 from .terrain import build_terrain
 
 OBJECTIVES = ("feasible", "robust", "robust-min", "torque")
@@ -29,7 +31,7 @@ UNIT_TOLERANCE = 1e-3      # |n| may differ from 1 by this much before it counts
 MAX_KNOTS = 2000           # more knots than this is a typo, not a plan (the NLP grows linearly)
 MAX_FACETS = 64            # a pyramid finer than this adds rows without changing the answer
 TOP_LEVEL = {"name", "description", "robot", "horizon", "stance", "hand_targets", "disturbances",
-             "objective", "pyramid_facets", "min_normal_force", "initial_posture", "solver"}
+             "objective", "pyramid_facets", "min_normal_force", "initial_posture", "solver", "clearance"}
 
 
 @dataclass
@@ -48,6 +50,9 @@ class ContactSpec:
         Unit tangents ``t1, t2`` of the surface (``t2 = n x t1``).
     friction : float
         Coulomb friction coefficient mu > 0.
+    surface : str
+        Name of the terrain surface the contact stands on (its own points
+        are exempt from it in the clearance checks).
     """
 
     frame: str
@@ -55,6 +60,7 @@ class ContactSpec:
     normal: np.ndarray
     tangents: np.ndarray
     friction: float
+    surface: str = ""
 
 
 @dataclass
@@ -121,6 +127,9 @@ class Task:
         Passed to the solver adapter as given.
     initial_posture : ndarray, shape (nq,), or None
         Fixed start configuration; None leaves it free (at rest).
+    clearance : ClearanceSpec
+        Collision shapes, terrain surfaces and the required clearance (m)
+        (:mod:`optimizer.problem.clearance`); no pairs when switched off.
     raw : dict
         The task mapping as read (JSON-serializable), ``horizon.knots``
         updated by :meth:`with_knots`.
@@ -141,6 +150,7 @@ class Task:
     solver_options: dict
     initial_posture: np.ndarray | None
     raw: dict
+    clearance: ClearanceSpec = None
 
     def with_knots(self, knots: int) -> "Task":
         """A copy with ``knots`` knots (>= 2); the robot object is shared."""
@@ -171,7 +181,8 @@ def load_task(path) -> Task:
         top.string("description")
     robot_path, robot = read_robot(top)
     duration, knots = read_horizon(top.sub("horizon"))
-    contacts = read_stance(top.sub("stance"), robot)
+    contacts, surfaces = read_stance(top.sub("stance"), robot)
+    clearance = read_clearance(top, robot, contacts, surfaces)
     weight = robot.mass * float(np.linalg.norm(robot.gravity))
     return Task(
         name=top.string("name", path.stem),
@@ -187,8 +198,9 @@ def load_task(path) -> Task:
         facets=top.integer("pyramid_facets", 4, lo=3, hi=MAX_FACETS),
         min_normal_force=top.number("min_normal_force", 0.05 * weight / len(contacts), lo=0.0),
         solver_options=read_solver_options(top),
-        initial_posture=read_initial_posture(top, robot, contacts),
+        initial_posture=read_initial_posture(top, robot, contacts, clearance),
         raw=json_copy(data, path),
+        clearance=clearance,
     )
 
 
@@ -234,22 +246,46 @@ def unit_vector(fields: Fields, key: str, default=...) -> np.ndarray:
 # ---------------------------------------------------------------- stance
 
 
-def read_stance(stance: Fields, robot) -> list[ContactSpec]:
-    """Contacts from ``stance.contacts`` (explicit) or ``stance.terrain`` + ``stance.feet``."""
+def read_stance(stance: Fields, robot) -> tuple[list[ContactSpec], list]:
+    """Contacts from ``stance.contacts`` (explicit) or ``stance.terrain`` + ``stance.feet``, and the surfaces.
+
+    Surfaces (:class:`~optimizer.problem.geometry.Surface`) are the terrain's
+    geometry, or for explicit contacts a ground plane through each distinct
+    foothold plane that no other foothold lies below.
+    """
     stance.allow_only({"contacts", "terrain", "feet"})
     explicit, placed = stance.has("contacts"), stance.has("terrain") or stance.has("feet")
     if explicit == placed:
         raise TaskError(stance.file, stance.path, "either 'contacts' or 'terrain' with 'feet'", sorted(stance.data))
-    contacts = read_explicit_contacts(stance.sub("contacts")) if explicit else read_placed_feet(stance)
+    if explicit:
+        contacts = read_explicit_contacts(stance.sub("contacts"))
+        surfaces, names = ground_planes(contacts) if contacts else ([], {})
+        for c in contacts:
+            c.surface = names[c.frame]
+    else:
+        contacts, surfaces = read_placed_feet(stance)
     if not contacts:
         stance.fail("contacts" if explicit else "feet", "at least one contact", "none")
     for c in contacts:
         check_frame(stance, ("contacts." if explicit else "feet.") + c.frame, robot, c.frame)
-    return contacts
+    return contacts, surfaces
 
 
-def make_contact(frame, foothold, normal, friction) -> ContactSpec:
-    return ContactSpec(frame, np.asarray(foothold, float), np.asarray(normal, float), tangent_basis(normal), friction)
+def read_clearance(top: Fields, robot, contacts, surfaces) -> ClearanceSpec:
+    """``clearance: {distance: m (default 0.03), surfaces: true|false}``: the shape-to-terrain rows.
+
+    ``surfaces: false`` switches the clearance rows off (no surface is checked).
+    """
+    section = top.sub("clearance", {})
+    section.allow_only({"distance", "surfaces"})
+    distance = section.number("distance", DEFAULT_CLEARANCE, lo=0.0, hi=1.0)
+    used = surfaces if section.boolean("surfaces", True) else []
+    return clearance_spec(robot, contacts, used, distance)
+
+
+def make_contact(frame, foothold, normal, friction, surface: str = "") -> ContactSpec:
+    return ContactSpec(frame, np.asarray(foothold, float), np.asarray(normal, float), tangent_basis(normal), friction,
+                       surface)
 
 
 def read_explicit_contacts(contacts: Fields) -> list[ContactSpec]:
@@ -264,7 +300,7 @@ def read_explicit_contacts(contacts: Fields) -> list[ContactSpec]:
     return out
 
 
-def read_placed_feet(stance: Fields) -> list[ContactSpec]:
+def read_placed_feet(stance: Fields) -> tuple[list[ContactSpec], list]:
     """Feet ``{frame: [x, y]}`` or ``{frame: {xy: [x, y], surface: name}}`` placed on the terrain."""
     terrain = build_terrain(stance.sub("terrain"))
     feet = stance.sub("feet")
@@ -279,8 +315,8 @@ def read_placed_feet(stance: Fields) -> list[ContactSpec]:
         else:
             xy, surface = feet.vector(key, 2), None
         where = terrain.place(xy, surface, feet.at(key))
-        out.append(make_contact(key, where.foothold, where.normal, where.friction))
-    return out
+        out.append(make_contact(key, where.foothold, where.normal, where.friction, where.surface))
+    return out, terrain.geometry()
 
 
 # ---------------------------------------------------------------- hand targets
@@ -382,7 +418,7 @@ def read_solver_options(top: Fields) -> dict:
     return dict(options.data)
 
 
-def read_initial_posture(top: Fields, robot, contacts) -> np.ndarray | None:
+def read_initial_posture(top: Fields, robot, contacts, clearance=None) -> np.ndarray | None:
     """``initial_posture``: absent (free start), ``stance``, a mapping of stance hints, or nq numbers.
 
     ``stance`` solves the stance IK from the standing posture; the mapping
@@ -396,13 +432,13 @@ def read_initial_posture(top: Fields, robot, contacts) -> np.ndarray | None:
     value = top.raw("initial_posture")
     if value == "stance" or isinstance(value, dict):
         hints = top.sub("initial_posture") if isinstance(value, dict) else Fields({}, top.file, "initial_posture", TaskError)
-        return solve_stance_hinted(hints, robot, contacts)
+        return solve_stance_hinted(hints, robot, contacts, clearance)
     if isinstance(value, str):
         top.fail("initial_posture", "'stance', a mapping of stance hints or a list of nq numbers", value)
     return read_posture_list(top, robot, contacts)
 
 
-def solve_stance_hinted(hints: Fields, robot, contacts) -> np.ndarray:
+def solve_stance_hinted(hints: Fields, robot, contacts, clearance=None) -> np.ndarray:
     """The stance IK with the optional base pose and joint hints of ``hints``."""
     import pinocchio as pin
 
@@ -425,7 +461,8 @@ def solve_stance_hinted(hints: Fields, robot, contacts) -> np.ndarray:
         guess[joint.idx_q] = joints.number(str(name))
     try:
         hinted = base is not None or bool(joints.data)
-        return solve_stance(robot, contacts, q_guess=guess if hinted else None, nominal=guess, base_pose=base)
+        return solve_stance(robot, contacts, q_guess=guess if hinted else None, nominal=guess, base_pose=base,
+                            clearance=clearance)
     except InfeasibleTask as exc:
         raise TaskError(hints.file, hints.path, "footholds the robot reaches within its joint limits",
                         str(exc).split(": ", 2)[-1]) from None

@@ -19,6 +19,10 @@ Kinds
 
 Every parameter and every friction value is validated; a mistake raises
 ``TaskError`` naming the task file and the field.
+
+:meth:`Terrain.geometry` gives the same surfaces as geometry for clearance
+(:mod:`optimizer.problem.geometry`): planes whose free side faces the robot,
+and solid boxes (the blocks).
 """
 from __future__ import annotations
 
@@ -29,6 +33,7 @@ import numpy as np
 
 from ..errors import TaskError
 from ..schema import Fields
+from .geometry import Surface
 
 UP = np.array([0.0, 0.0, 1.0])
 DOWN = np.array([0.0, 0.0, -1.0])
@@ -95,6 +100,10 @@ class Terrain:
     def _place(self, xy, surface, field) -> Placement:  # pragma: no cover - abstract
         raise NotImplementedError
 
+    def geometry(self) -> list[Surface]:  # pragma: no cover - abstract
+        """The terrain's surfaces as half-spaces and boxes, named as in ``surfaces``."""
+        raise NotImplementedError
+
 
 class FlatTerrain(Terrain):
     """One horizontal plane at ``height`` (m, default 0) with one ``friction``."""
@@ -109,6 +118,9 @@ class FlatTerrain(Terrain):
 
     def _place(self, xy, surface, field) -> Placement:
         return Placement(np.array([xy[0], xy[1], self.height]), UP.copy(), self.friction["ground"], "ground")
+
+    def geometry(self) -> list[Surface]:
+        return [Surface.plane("ground", UP, [0.0, 0.0, self.height])]
 
 
 class BlocksTerrain(Terrain):
@@ -164,6 +176,14 @@ class BlocksTerrain(Terrain):
         block = self.blocks[best]
         return Placement(np.array([xy[0], xy[1], block["height"]]), UP.copy(), block["friction"], name)
 
+    def geometry(self) -> list[Surface]:
+        """The floor plane and one solid box per block, from the floor up to its top."""
+        out = [Surface.plane("floor", UP, [0.0, 0.0, self.floor_height])]
+        for i, block in enumerate(self.blocks):
+            lo, hi = block["center"] - block["half"], block["center"] + block["half"]
+            out.append(Surface.box(f"block{i}", [lo[0], lo[1], self.floor_height], [hi[0], hi[1], block["height"]]))
+        return out
+
 
 class RampTerrain(Terrain):
     """One plane through ``origin`` [x, y, z] m rising at ``slope_deg`` along ``uphill``.
@@ -193,6 +213,9 @@ class RampTerrain(Terrain):
     def _place(self, xy, surface, field) -> Placement:
         foothold = np.array([xy[0], xy[1], self.height(xy)])
         return Placement(foothold, slope_normal(self.angle, self.uphill), self.friction["ramp"], "ramp")
+
+    def geometry(self) -> list[Surface]:
+        return [Surface.plane("ramp", slope_normal(self.angle, self.uphill), self.origin)]
 
 
 class TrenchTerrain(Terrain):
@@ -231,6 +254,18 @@ class TrenchTerrain(Terrain):
         foothold = np.array([xy[0], xy[1], self.bottom + math.tan(self.angle) * run])
         return Placement(foothold, normal, self.friction[name], name)
 
+    def geometry(self) -> list[Surface]:
+        """Both wall planes and the bottom plane: the free space above a trench is the
+        intersection of their half-spaces (the ground height is the largest of three affine
+        functions). The bottom plane is left out when the walls meet in a line."""
+        edge = self.center_y + self.half_width
+        out = [Surface.plane("left", slope_normal(self.angle, (0.0, 1.0)), [0.0, edge, self.bottom]),
+               Surface.plane("right", slope_normal(self.angle, (0.0, -1.0)),
+                             [0.0, self.center_y - self.half_width, self.bottom])]
+        if self.half_width > 0:
+            out.append(Surface.plane("bottom", UP, [0.0, self.center_y, self.bottom]))
+        return out
+
 
 class CeilingTerrain(Terrain):
     """A floor at ``floor_height`` and a ceiling at ``ceiling_height`` above it.
@@ -255,6 +290,10 @@ class CeilingTerrain(Terrain):
         name = surface or "floor"
         height, normal = (self.ceiling, DOWN.copy()) if name == "ceiling" else (self.floor, UP.copy())
         return Placement(np.array([xy[0], xy[1], height]), normal, self.friction[name], name)
+
+    def geometry(self) -> list[Surface]:
+        return [Surface.plane("floor", UP, [0.0, 0.0, self.floor]),
+                Surface.plane("ceiling", DOWN, [0.0, 0.0, self.ceiling])]
 
 
 TERRAINS = {

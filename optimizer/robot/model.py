@@ -26,8 +26,9 @@ import pinocchio as pin
 from ..errors import ModelError
 from ..files import read_text, read_yaml_mapping
 from ..schema import Fields
+from .collision import CollisionModel, load_collision
 
-ROBOT_FIELDS = ("name", "urdf", "contacts", "hand", "standing", "limits")
+ROBOT_FIELDS = ("name", "urdf", "contacts", "hand", "standing", "limits", "collision")
 MOVING_JOINTS = ("revolute", "continuous", "prismatic")
 NUMERIC_ATTRIBUTES = ("xyz", "rpy", "value", "ixx", "ixy", "ixz", "iyy", "iyz", "izz",
                       "lower", "upper", "effort", "velocity", "radius", "length", "size")
@@ -76,6 +77,8 @@ class RobotModel:
         m/s^2, world frame.
     standing_posture : ndarray, shape (nq,)
         Pinocchio layout.
+    collision : CollisionModel
+        Collision shapes (:mod:`optimizer.robot.collision`).
     """
 
     name: str
@@ -98,6 +101,7 @@ class RobotModel:
     mass: float
     gravity: np.ndarray
     standing_posture: np.ndarray = field(repr=False)
+    collision: CollisionModel = field(default_factory=lambda: CollisionModel((), 0.0), repr=False)
 
     def frame_id(self, name: str, field: str = "") -> int:
         """Pinocchio id of the frame ``name``; ModelError listing close names if unknown."""
@@ -137,6 +141,7 @@ def load_robot(path) -> RobotModel:
     check_moving_inertias(model, urdf_joints, urdf_path)
     robot = _assemble(fields, yaml_path, urdf_path, urdf_text, model, urdf_joints)
     robot.standing_posture = standing_posture(robot, fields.sub("standing"))
+    robot.collision = load_collision(fields, urdf_text, model)
     return robot
 
 

@@ -387,6 +387,19 @@ class SymbolicRobot:
         return self._cached(("points", tuple(names)), build)
 
 
+def body_points_function(robot: "SymbolicRobot", points) -> ca.Function:
+    """``q -> P[3 x n]``: world positions (m) of points fixed on joints' bodies.
+
+    ``points`` is a list of ``(joint index, (3,) point in that joint's frame, m)``.
+    """
+    columns = []
+    for joint, point in points:
+        rot, pos = robot._kin.world[int(joint)]
+        columns.append(pos + rot @ ca.DM(np.asarray(point, float)))
+    out = ca.horzcat(*columns) if columns else ca.SX(3, 0)
+    return ca.Function("body_points", [robot._q], [out], ["q"], ["P"])
+
+
 def _safe(name: str) -> str:
     """A frame name turned into a valid CasADi function-name suffix."""
     return "".join(ch if ch.isalnum() else "_" for ch in name)

@@ -19,10 +19,11 @@ from ..problem.stance import solve_stance, static_support_lp
 def keyframes(task) -> list[tuple[float, np.ndarray]]:
     """(time [s], configuration (nq,)) pairs: the start, then each hand target's window ends."""
     robot = task.robot
-    q = task.initial_posture if task.initial_posture is not None else solve_stance(robot, task.contacts)
+    q = task.initial_posture if task.initial_posture is not None else solve_stance(
+        robot, task.contacts, clearance=task.clearance)
     frames = [(0.0, q)]
     for target in sorted(task.hand_targets, key=lambda t: t.t_start):
-        q = solve_stance(robot, task.contacts, q_guess=q, hand_target=target)
+        q = solve_stance(robot, task.contacts, q_guess=q, hand_target=target, clearance=task.clearance)
         frames.append((target.t_start, q))
         if target.t_end > target.t_start:
             frames.append((target.t_end, q))

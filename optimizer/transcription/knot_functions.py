@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import casadi as ca
 
+from ..robot.symbolic import body_points_function
 from .structure import DisturbanceSlot, Structure
 
 
@@ -30,7 +31,8 @@ class KnotFunctions:
         its square for the squared robust rows) so every group is of order one.
     """
 
-    def __init__(self, symbolic, structure: Structure, weight: float, torque_gains: str = "eliminated"):
+    def __init__(self, symbolic, structure: Structure, weight: float, torque_gains: str = "eliminated",
+                 shapes=()):
         self.torque_gains = torque_gains
         self.sym = symbolic
         self.structure = structure
@@ -44,6 +46,7 @@ class KnotFunctions:
         self.step = self._step()
         self.robust = [self._robust(p, slot) for p, slot in enumerate(structure.disturbances)]
         self.hand = {frame: self._hand(frame) for frame in {s.frame for s in structure.targets}}
+        self.clearance = self._clearance(shapes)
 
     def _sym(self, name, rows=1, cols=1):
         return ca.SX.sym(name, rows, cols)
@@ -174,6 +177,22 @@ class KnotFunctions:
         if slot.kind == "force":
             return self.sym.frame_translation_jacobian(slot.frame)
         return self.sym.frame_jacobian(slot.frame)
+
+    def _clearance(self, shapes) -> ca.Function | None:
+        """(q, planes (4, rows)) -> ``n . p - offset`` per clearance row [m], >= 0 when clear.
+
+        ``p`` is the row's shape point (``structure.clearance_rows``) in the
+        world; ``(n, offset)`` the row's plane with the shape's radius and the
+        required clearance already in the offset (``parameters.clearance_planes``).
+        """
+        rows = self.structure.clearance_rows
+        if not rows:
+            return None
+        points = body_points_function(self.sym, [(shapes[s].joint, shapes[s].joint_points[p]) for s, p in rows])
+        q, planes = self._sym("q", self.nq), self._sym("planes", 4, len(rows))
+        world = points(q)
+        values = ca.sum1(planes[:3, :] * world) - planes[3, :]
+        return ca.Function("clearance", [q, planes], [values.T], ["q", "planes"], ["clearance"])
 
     def _hand(self, frame: str) -> ca.Function:
         """(q, position (3,), rotation (9,)) -> (position error [m] (3,), orientation error (3,)).

@@ -52,7 +52,7 @@ class Transcription:
         self.weight = robot.mass * float(np.linalg.norm(robot.gravity))
         self.context = Context(self.weight, float(np.mean(np.maximum(abs(robot.torque_lower), abs(robot.torque_upper)))),
                                structure.knots)
-        self.functions = KnotFunctions(symbolic, structure, self.weight, torque_gains)
+        self.functions = KnotFunctions(symbolic, structure, self.weight, torque_gains, robot.collision.shapes)
         self.map_mode = map_mode
         self.variables = self._variable_layout()
         self.parameters = parameter_layout(structure, robot)
@@ -63,6 +63,7 @@ class Transcription:
         self._dynamics(V, P)
         self._contacts(V, P)
         self._hand_targets(V, P)
+        self._clearance(V, P)
         if objective.robust:
             self._robustness(V, P)
         objective.add_constraints(V, self.constraints, self.context, self.disturbance_count)
@@ -137,6 +138,17 @@ class Transcription:
                 V["q"][:, slot.knot], P["target_position"][:, i], P["target_rotation"][:, i])
             residual = ca.vertcat(position, orientation) if slot.orientation else position
             self.constraints.add(f"hand target {slot.frame}@{slot.knot}", residual, [slot.knot], unit="m or rad")
+
+    def _clearance(self, V, P):
+        """Every collision shape at least the required clearance from every terrain surface it is paired with."""
+        knots = self.structure.clearance_knots
+        if self.functions.clearance is None or not len(knots):
+            return
+        rows = len(self.structure.clearance_rows)
+        planes = ca.reshape(P["clearance_planes"][:, knots.start:knots.stop], 4, rows * len(knots))
+        values = self._map(self.functions.clearance, len(knots))(
+            V["q"][:, knots.start:knots.stop], planes)
+        self.constraints.add("terrain clearance", values, knots, 0.0, INF, unit="m")
 
     def _rooms(self, tau, lam, P):
         """Room left at every limit, (rows, K), for symbolic or numeric ``tau``, ``lam`` and parameters."""

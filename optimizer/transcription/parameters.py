@@ -16,7 +16,10 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     stacked; ``min_normal_force`` [N]; ``tau_lower``/``tau_upper`` (nj,) [N m];
     ``target_position`` (3, n_slots) [m]; ``target_rotation`` (9, n_slots),
     column-major rotation matrices; ``shape<p>`` (d*d,) per disturbance;
-    ``posture`` (nq,), the nominal configuration of the regularizer.
+    ``posture`` (nq,), the nominal configuration of the regularizer;
+    ``clearance_planes`` (4 rows, K): per clearance row and knot the plane
+    ``(n, offset)`` with ``n . p >= offset`` (offset includes the shape's
+    radius and the required clearance) [m].
     """
     layout = VectorLayout()
     layout.add("step")
@@ -31,14 +34,17 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     for p, slot in enumerate(structure.disturbances):
         layout.add(f"shape{p}", slot.dim * slot.dim)
     layout.add("posture", robot.nq)
+    layout.add("clearance_planes", 4 * len(structure.clearance_rows), structure.knots)
     return layout
 
 
-def parameter_values(task, structure: Structure, layout: VectorLayout, posture=None) -> np.ndarray:
+def parameter_values(task, structure: Structure, layout: VectorLayout, posture=None, motion=None) -> np.ndarray:
     """The parameter vector of ``task`` (which must have ``structure``).
 
     ``posture`` (nq,) is the regularizer's nominal configuration; by default
-    the robot's standing posture.
+    the robot's standing posture. ``motion`` (nq, K), the stage's starting
+    configurations, picks the face of each box the clearance rows keep to
+    (default: the standing posture at every knot).
     """
     robot = task.robot
     values = layout.zeros()
@@ -58,4 +64,18 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
     for p, spec in enumerate(task.disturbances):
         layout.set(values, f"shape{p}", np.asarray(spec.shape, dtype=float).reshape(-1, order="F"))
     layout.set(values, "posture", robot.standing_posture if posture is None else posture)
+    if structure.clearance_rows:
+        layout.set(values, "clearance_planes", clearance_planes(task, structure, motion))
     return values
+
+
+def clearance_planes(task, structure: Structure, motion=None) -> np.ndarray:
+    """Per knot the planes of every clearance row, shape (4 rows, K), faces chosen at ``motion``."""
+    from ..problem.clearance import CLEARANCE_BACKOFF, world_points
+
+    robot, K = task.robot, structure.knots
+    motion = np.repeat(robot.standing_posture[:, None], K, axis=1) if motion is None else motion
+    data = robot.model.createData()
+    columns = [task.clearance.planes_at(world_points(robot, motion[:, k], data), CLEARANCE_BACKOFF).reshape(-1, order="F")
+               for k in range(K)]
+    return np.array(columns).T

@@ -57,6 +57,9 @@ class Structure:
         P >= 1 disturbance points; each gets gains and a margin per knot.
     fixed_start : bool
         The start configuration is fixed (task ``initial_posture``).
+    clearance_rows : tuple of (int, int)
+        Per clearance row (shape, point index within the shape); the plane
+        of each row and knot is a parameter (:mod:`optimizer.problem.clearance`).
     """
 
     knots: int
@@ -65,6 +68,13 @@ class Structure:
     targets: tuple
     disturbances: tuple
     fixed_start: bool
+    clearance_rows: tuple = ()
+
+    @property
+    def clearance_knots(self) -> range:
+        """Knots with clearance rows: not a fixed start (checked before the solve), not the last
+        (at rest it repeats knot K-2)."""
+        return range(1 if self.fixed_start else 0, self.knots - 1)
 
     @property
     def nc(self) -> int:
@@ -107,4 +117,5 @@ def structure_of(task) -> Structure:
         targets=tuple(sorted(slots, key=lambda s: (s.knot, s.frame))),
         disturbances=tuple(DisturbanceSlot(d.frame, d.kind) for d in task.disturbances),
         fixed_start=task.initial_posture is not None,
+        clearance_rows=tuple((shape, point) for _, shape, point in task.clearance.rows),
     )

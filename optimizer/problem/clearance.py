@@ -1,0 +1,159 @@
+"""Clearance between the robot's collision shapes and the terrain's surfaces.
+
+Which (shape, surface) pairs are checked, and the rows that keep them apart:
+for a plane every checked point ``p`` of the shape gives one row
+``n . p - d - radius >= clearance`` (exact for the swollen hull of the
+points); for a box the same rows against one face, chosen per pair and knot
+before the solve as the face that separates the shape best at the starting
+point (:meth:`ClearanceSpec.planes_at`); the chosen face is re-chosen from each
+stage's own start, and every plan is re-checked against the best face
+afterwards (:mod:`optimizer.analysis.clearance`).
+
+Points of a shape near a contact frame on the same link are exempt from the
+surface that contact stands on (the foot sphere touches its foothold).
+This module is numeric (NumPy and Pinocchio); the NLP builds the same rows
+symbolically from :attr:`ClearanceSpec.rows`.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pinocchio as pin
+
+from ..robot.collision import shape_points_world
+
+DEFAULT_CLEARANCE = 0.03   # m: the task default, "a few centimetres"
+# The NLP's rows keep this much more than the required clearance (m): more than the
+# solver's feasibility tolerance, so a solved plan clears by the full distance exactly.
+CLEARANCE_BACKOFF = 1e-6
+
+
+@dataclass(frozen=True)
+class ClearancePair:
+    """Shape ``shape`` (index into the robot's shapes) against surface ``surface``; ``points`` checked."""
+
+    shape: int
+    surface: int
+    points: tuple
+
+
+@dataclass
+class ClearanceSpec:
+    """Everything needed to keep a task's robot clear of its terrain.
+
+    Attributes
+    ----------
+    distance : float
+        Required clearance, m.
+    shapes : tuple of CollisionShape
+    surfaces : list of Surface
+    pairs : list of ClearancePair
+    """
+
+    distance: float
+    shapes: tuple
+    surfaces: list
+    pairs: list
+
+    @property
+    def rows(self) -> list[tuple[int, int, int]]:
+        """One row per (pair, checked point): ``(pair index, shape index, point index)``."""
+        return [(i, pair.shape, p) for i, pair in enumerate(self.pairs) for p in pair.points]
+
+    def row_label(self, row: int) -> tuple[str, str]:
+        """(link, surface) of row ``row``."""
+        pair, shape, _ = self.rows[row]
+        return self.shapes[shape].link, self.surfaces[self.pairs[pair].surface].name
+
+    def pair_points(self, pair: ClearancePair, world: list) -> np.ndarray:
+        """World positions (n, 3) of a pair's checked points, from :func:`shape_points_world` output."""
+        return world[pair.shape][list(pair.points)]
+
+    def selected_faces(self, world: list) -> list[int]:
+        """Per pair, the face of its surface that separates its checked points best."""
+        return [self.surfaces[pair.surface].best_face(self.pair_points(pair, world)) for pair in self.pairs]
+
+    def planes_at(self, world: list, backoff: float = 0.0) -> np.ndarray:
+        """Per row, the plane ``(n, d + radius + clearance + backoff)`` of its pair's selected face; shape (4, rows).
+
+        The row is then ``n . p - offset >= 0``.
+        """
+        faces = self.selected_faces(world)
+        out = np.zeros((4, len(self.rows)))
+        for r, (i, shape, _) in enumerate(self.rows):
+            n, d = self.surfaces[self.pairs[i].surface].faces()[faces[i]]
+            out[:3, r], out[3, r] = n, d + self.shapes[shape].radius + self.distance + backoff
+        return out
+
+    def pair_distances(self, world: list) -> np.ndarray:
+        """Signed distance of every pair (m), checked points only; shape (pairs,)."""
+        return np.array([self.surfaces[pair.surface].distance(self.pair_points(pair, world), self.shapes[pair.shape].radius)
+                         for pair in self.pairs])
+
+
+def clearance_spec(robot, contacts, surfaces, distance: float) -> ClearanceSpec:
+    """Pairs of every shape with every surface, the feet's own points exempt from their own surface.
+
+    ``contacts`` need ``frame`` and ``surface`` (the name of the surface the
+    contact stands on).
+    """
+    model, collision = robot.model, robot.collision
+    by_name = {s.name: i for i, s in enumerate(surfaces)}
+    near: dict[tuple[int, int], set] = {}
+    for c in contacts:
+        if c.surface not in by_name:
+            continue
+        frame = model.frames[robot.frame_id(c.frame)]
+        at = np.array(frame.placement.translation)
+        for s, shape in enumerate(collision.shapes):
+            if shape.joint != frame.parentJoint:
+                continue
+            close = np.linalg.norm(shape.joint_points - at, axis=1) <= collision.exempt_radius
+            near.setdefault((s, by_name[c.surface]), set()).update(np.flatnonzero(close).tolist())
+    pairs = []
+    for s, shape in enumerate(collision.shapes):
+        for j in range(len(surfaces)):
+            points = tuple(p for p in range(len(shape.points)) if p not in near.get((s, j), set()))
+            if points:
+                pairs.append(ClearancePair(s, j, points))
+    return ClearanceSpec(float(distance), collision.shapes, list(surfaces), pairs)
+
+
+def world_points(robot, q, data=None) -> list[np.ndarray]:
+    """World positions of every shape's points at ``q`` (Pinocchio forward kinematics)."""
+    data = robot.model.createData() if data is None else data
+    pin.forwardKinematics(robot.model, data, np.asarray(q, float))
+    return shape_points_world(robot.model, data, robot.collision.shapes)
+
+
+def smallest_clearance(spec: ClearanceSpec, robot, q) -> tuple[float, str, str]:
+    """Smallest pair distance at ``q`` (m) with its link and surface; ``(inf, "", "")`` without pairs."""
+    if not spec.pairs:
+        return float("inf"), "", ""
+    distances = spec.pair_distances(world_points(robot, q))
+    i = int(np.argmin(distances))
+    pair = spec.pairs[i]
+    return float(distances[i]), spec.shapes[pair.shape].link, spec.surfaces[pair.surface].name
+
+
+def clearance_rows(spec: ClearanceSpec, robot, q, data, margin: float = 0.0):
+    """Rows ``n . p - d - radius - clearance - margin`` (m) and their Jacobians (rows, nv) at ``q``.
+
+    Faces of boxes are re-chosen at ``q``. Needs nothing computed on ``data``.
+    """
+    model = robot.model
+    pin.computeJointJacobians(model, data, q)
+    world = shape_points_world(model, data, spec.shapes)
+    planes = spec.planes_at(world)
+    values, jacobians = [], []
+    for r, (_, s, p) in enumerate(spec.rows):
+        shape = spec.shapes[s]
+        point = world[s][p]
+        jac = pin.getJointJacobian(model, data, shape.joint, pin.ReferenceFrame.LOCAL_WORLD_ALIGNED)
+        offset = point - np.array(data.oMi[shape.joint].translation)
+        linear = jac[:3] - pin.skew(offset) @ jac[3:]
+        n = planes[:3, r]
+        values.append(n @ point - planes[3, r] - margin)
+        jacobians.append(n @ linear)
+    return np.array(values), np.array(jacobians).reshape(len(values), model.nv)
