@@ -221,6 +221,8 @@ def _sizes_from_meta(path: Path, meta: dict) -> dict:
     for side in ("lower", "upper"):
         _limit_vector(limits, side, nj)
     count = _check_disturbances(f, model)
+    if f.has("clearance"):
+        _check_clearance(f.sub("clearance"), model)
     return {"nq": model.nq, "nv": model.nv, "nj": nj, "nc": nc, "P": count}
 
 
@@ -266,6 +268,48 @@ def _check_disturbances(f: Fields, model) -> int:
         size = 3 if d.string("kind", choices=("force", "wrench")) == "force" else 6
         d.matrix("shape", (size, size))
     return len(entries)
+
+
+def _check_clearance(f: Fields, model) -> None:
+    """``meta.clearance`` (optional): distance, surfaces, shapes on the URDF's links, pairs naming both."""
+    import pinocchio as pin
+
+    f.number("distance", lo=0.0)
+    surfaces, shapes = set(), {}
+    for i, entry in enumerate(_list(f, "surfaces")):
+        s = Fields(entry, f.file, f.at(f"surfaces[{i}]"), f.error)
+        kind = s.string("kind", choices=("plane", "box"))
+        if kind == "plane":
+            s.vector("normal", 3), s.number("offset")
+        else:
+            s.vector("lower", 3), s.vector("upper", 3)
+        surfaces.add(s.string("name"))
+    for i, entry in enumerate(_list(f, "shapes")):
+        s = Fields(entry, f.file, f.at(f"shapes[{i}]"), f.error)
+        link = s.string("link")
+        if not model.existFrame(link, pin.FrameType.BODY):
+            s.fail("link", "a link of the URDF", link)
+        points = s.raw("points")
+        if not isinstance(points, list) or not points:
+            s.fail("points", "a non-empty list of [x, y, z] points, m", points)
+        s.matrix("points", (len(points), 3))
+        s.number("radius", lo=0.0)
+        shapes[s.string("name")] = len(points)
+    for i, entry in enumerate(_list(f, "pairs")):
+        s = Fields(entry, f.file, f.at(f"pairs[{i}]"), f.error)
+        shape = s.string("shape", choices=sorted(shapes))
+        s.string("surface", choices=sorted(surfaces))
+        points = s.raw("points")
+        if not isinstance(points, list) or not points or not all(
+                isinstance(p, int) and not isinstance(p, bool) and 0 <= p < shapes[shape] for p in points):
+            s.fail("points", f"a non-empty list of point indices below {shapes[shape]}", points)
+
+
+def _list(f: Fields, key: str) -> list:
+    value = f.raw(key)
+    if not isinstance(value, list):
+        f.fail(key, "a list", value)
+    return value
 
 
 def _knot_count(path: Path, raw: dict) -> int:

@@ -19,6 +19,7 @@ from pathlib import Path
 import numpy as np
 
 from . import __version__
+from .analysis.clearance import clearance_meta
 from .analysis.knot_response import knot_responses
 from .analysis.linear_margin import best_linear_margin, certify_gains
 from .errors import SolveFailed
@@ -283,6 +284,7 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
         "disturbances": [{"frame": d.frame, "kind": d.kind, "shape": np.asarray(d.shape, float).tolist()}
                          for d in task.disturbances],
         "objective": objective,
+        "clearance": clearance_meta(task.clearance),
         "task": task.raw,
         "solver": solver_meta,
     }

@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .clearance import PlanClearance, plan_clearance
 from .knot_response import knot_responses
 from .polytope import EmptyResidualSet, SupportLP, project, sample_support
 from .response import KnotResponse
@@ -278,6 +279,7 @@ class PlanCertificate:
     disturbance: dict
     settings: Settings
     replay: ReplayCounts | None = None
+    clearance: PlanClearance | None = None    # terrain clearance of the certified knots (None: no shapes in the plan)
 
     def smallest(self) -> KnotCertificate:
         return min(self.knots, key=lambda c: c.rho)
@@ -293,6 +295,10 @@ class PlanCertificate:
             r = self.replay
             out.append(f"replay: {r.drawn - r.rejected} of {r.drawn} draws not rejectable, "
                        f"{r.beyond_tried - r.beyond_unrejectable} of {r.beyond_tried} pushes beyond rho rejectable")
+        if self.clearance is not None:
+            out += [f"knot {k.knot}: clearance {k.distance * 100:.1f} cm ({k.link} vs {k.surface}) below the required "
+                    f"{self.clearance.required * 100:.1f} cm" + (" - penetration" if k.distance < 0 else "")
+                    for k in self.clearance.short]
         return out
 
     def summary(self) -> dict:
@@ -319,6 +325,10 @@ class PlanCertificate:
             "settings": {"tol": s.tol, "cap_N": s.cap, "full": s.full, "samples": s.samples},
             "summary": self.summary(), "knots": [c.to_json() for c in self.knots],
             "replay": None if self.replay is None else _replay_json(self.replay),
+            "clearance": None if self.clearance is None else {
+                "required_m": self.clearance.required,
+                "knots": [{"knot": k.knot, "smallest_m": _num(k.distance), "link": k.link, "surface": k.surface}
+                          for k in self.clearance.knots]},
         }
 
 
@@ -364,4 +374,7 @@ def certify_plan(plan, knots=None, disturbance: int = 0, settings: Settings | No
             progress(i + 1, len(chosen), cert)
     entry = plan.meta["disturbances"][disturbance]
     info = {"index": disturbance, "frame": entry["frame"], "kind": entry["kind"]}
-    return PlanCertificate(certs, info, settings, total)
+    clearance = plan_clearance(plan)
+    if clearance is not None:
+        clearance.knots = [clearance.knots[k] for k in chosen]
+    return PlanCertificate(certs, info, settings, total, clearance)

@@ -12,6 +12,11 @@ Proofs (posture-free, so they hold for every motion):
   (joint placements from the Pinocchio model, plus the travel of prismatic
   joints). A hand target farther than that from some foothold, or two
   footholds farther apart than the chain between them, cannot be reached.
+- ``clearance``: a fixed start posture (``initial_posture``) must already
+  keep every collision shape the required clearance from the terrain; and a
+  hand target whose frame lies inside one of its link's collision shapes
+  cannot be reached when the target itself is closer to a surface than the
+  clearance (the shape contains the frame, so it is at least as close).
 - ``standing``: the motion ends at rest (zero velocity and acceleration at
   the last knot), so gravity must be carried by the contact forces alone:
   ``sum_c f_c = -m g`` with each ``f_c`` in its Coulomb cone (checked with a
@@ -341,9 +346,64 @@ def timing_findings(task, checks) -> list[Finding]:
 # ---------------------------------------------------------------- all checks
 
 
+def _holding_pairs(task, frame: str) -> list:
+    """Clearance pairs whose checked shape (all its points) contains ``frame``'s origin."""
+    robot, spec = task.robot, task.clearance
+    f = robot.model.frames[robot.frame_id(frame)]
+    at = np.array(f.placement.translation)
+    out = []
+    for pair in spec.pairs:
+        shape = spec.shapes[pair.shape]
+        if shape.joint != f.parentJoint or len(pair.points) != len(shape.points):
+            continue
+        if _inside_swollen_hull(at, shape.joint_points, shape.radius):
+            out.append(pair)
+    return out
+
+
+def _inside_swollen_hull(point, points, radius) -> bool:
+    """``point`` within ``radius`` of the segment or point ``points`` (1 or 2 points), or inside a box's corners."""
+    if len(points) == 1:
+        return bool(np.linalg.norm(point - points[0]) <= radius)
+    if len(points) == 2:
+        a, b = points
+        s = float(np.clip((point - a) @ (b - a) / max((b - a) @ (b - a), 1e-18), 0.0, 1.0))
+        return bool(np.linalg.norm(point - (a + s * (b - a))) <= radius)
+    return bool(np.all(point >= points.min(axis=0) - radius) and np.all(point <= points.max(axis=0) + radius))
+
+
+def clearance_findings(task) -> list[Finding]:
+    """Proofs: a fixed start that does not clear the terrain; a hand target too close to a surface."""
+    from ..problem.clearance import smallest_clearance
+
+    spec, out = task.clearance, []
+    if not spec.pairs:
+        return out
+    need = spec.distance
+    if task.initial_posture is not None:
+        distance, link, surface = smallest_clearance(spec, task.robot, task.initial_posture)
+        if distance < need:
+            out.append(Finding("clearance", True, f"the start posture keeps link {link} {distance * 100:.1f} cm from "
+                               f"surface {surface}; the task asks for {need * 100:.1f} cm",
+                               "change the initial_posture hints or the footholds, or lower clearance.distance",
+                               need - distance, "m"))
+    for i, target in enumerate(task.hand_targets):
+        for pair in _holding_pairs(task, target.frame):
+            surface = spec.surfaces[pair.surface]
+            gap = surface.point_distance(target.position)
+            if gap < need:
+                link = spec.shapes[pair.shape].link
+                where = "inside" if gap < 0 else f"{gap * 100:.1f} cm from"
+                out.append(Finding("clearance", True, f"{_target_name(task, i)} at {_fmt(target.position)} m lies {where} "
+                                   f"surface {surface.name}; link {link} holds the {target.frame} frame and must stay "
+                                   f"{need * 100:.1f} cm clear of it", "move the target away from the surface",
+                                   need - gap, "m"))
+    return out
+
+
 def run_checks(task) -> list[Finding]:
     """Every pre-solve finding of ``task``: proofs first; estimates only when nothing is proven."""
-    proofs = reach_findings(task) + standing_findings(task)
+    proofs = reach_findings(task) + standing_findings(task) + clearance_findings(task)
     if proofs:
         return proofs
     try:

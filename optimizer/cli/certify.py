@@ -159,6 +159,10 @@ def summary_lines(cert, unit: str) -> list:
         r = cert.replay
         lines.append(f"replay: {r.rejected} of {r.drawn} disturbances within the planned margin rejected; "
                      f"{r.beyond_unrejectable} of {r.beyond_tried} pushes 0.01% beyond the exact margin not rejectable")
+    if cert.clearance is not None:
+        lines += cert.clearance.lines()
+    else:
+        lines.append("clearance: not checked (the plan file carries no collision shapes)")
     problems = s["problems"]
     lines.append("result: certified" if not problems else "result: NOT certified")
     lines += [f"  {p}" for p in problems]

@@ -62,6 +62,16 @@ class Surface:
         """Signed distance of the swollen hull of ``points`` (n, 3) from the surface (m; see module doc)."""
         return float(np.max(self.face_distances(points))) - float(radius)
 
+    def point_distance(self, point) -> float:
+        """Exact signed distance of one point (3,) from the surface, m (negative inside a box)."""
+        p = np.asarray(point, float)
+        if self.kind == "plane":
+            return float(p @ self.normal - self.offset)
+        outside = np.maximum(np.maximum(self.lower - p, p - self.upper), 0.0)
+        if np.any(outside > 0):
+            return float(np.linalg.norm(outside))
+        return -float(np.min(np.minimum(p - self.lower, self.upper - p)))
+
     def as_dict(self) -> dict:
         """Plan-file form."""
         if self.kind == "plane":

@@ -1,0 +1,108 @@
+"""Clearance of a plan: how far every collision shape stays from the terrain, knot by knot.
+
+Works from the plan file alone: ``meta.clearance`` carries the required
+distance, the terrain's surfaces (planes and boxes), the collision shapes
+(points on a link, link frame, with a radius) and the checked (shape, surface)
+pairs with their points (a foot's own points are left out against the
+surface it stands on). Positions come from Pinocchio's forward kinematics of
+the plan's own URDF; distances are those of :mod:`optimizer.problem.geometry`
+(exact for planes, the best separating face for boxes: a lower bound).
+
+A plan without ``meta.clearance`` (written before collision shapes existed)
+has nothing to check: :func:`plan_clearance` returns None.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pinocchio as pin
+
+from ..problem.geometry import Surface
+
+TOLERANCE = 1e-9   # m: rounding allowed below the required clearance before a knot fails
+
+
+@dataclass
+class KnotClearance:
+    """Smallest clearance at one knot: distance (m, negative inside), link and surface."""
+
+    knot: int
+    distance: float
+    link: str
+    surface: str
+
+
+@dataclass
+class PlanClearance:
+    """Per-knot smallest clearance of a plan and the distance it must keep (m)."""
+
+    required: float
+    knots: list
+
+    @property
+    def smallest(self) -> KnotClearance:
+        return min(self.knots, key=lambda k: k.distance)
+
+    @property
+    def penetrating(self) -> list:
+        """Knots where some shape is inside a surface (distance < 0)."""
+        return [k for k in self.knots if k.distance < 0.0]
+
+    @property
+    def short(self) -> list:
+        """Knots closer to the terrain than required."""
+        return [k for k in self.knots if k.distance < self.required - TOLERANCE]
+
+    @property
+    def passed(self) -> bool:
+        return not self.short
+
+    def lines(self) -> list[str]:
+        """Plain-text report: the smallest clearance and every knot that falls short."""
+        low = self.smallest
+        head = (f"clearance: smallest {low.distance * 100:.1f} cm ({low.link} vs {low.surface}, knot {low.knot}); "
+                f"required {self.required * 100:.1f} cm")
+        out = [head + (" - ok" if self.passed else " - FAILED")]
+        for k in self.short:
+            what = "inside" if k.distance < 0 else "closer than required to"
+            out.append(f"  knot {k.knot}: {k.link} {what} {k.surface} ({k.distance * 100:.1f} cm)")
+        return out
+
+
+def plan_clearance(plan) -> PlanClearance | None:
+    """Smallest clearance at every knot of ``plan`` (None when its meta has no clearance section)."""
+    section = plan.meta.get("clearance")
+    if not section:
+        return None
+    model = pin.buildModelFromXML(plan.meta["urdf"], pin.JointModelFreeFlyer())
+    data = model.createData()
+    surfaces = [Surface.from_dict(s) for s in section["surfaces"]]
+    shapes = {s["name"]: s for s in section["shapes"]}
+    ids = {name: model.getFrameId(s["link"], pin.FrameType.BODY) for name, s in shapes.items()}
+    by_surface = {s.name: s for s in surfaces}
+    knots = []
+    for k, q in enumerate(plan.q):
+        pin.framesForwardKinematics(model, data, q)
+        best = KnotClearance(k, float("inf"), "", "")
+        for pair in section["pairs"]:
+            shape = shapes[pair["shape"]]
+            placement = data.oMf[ids[pair["shape"]]]
+            local = np.asarray(shape["points"], float)[pair["points"]]
+            world = local @ np.array(placement.rotation).T + np.array(placement.translation)
+            distance = by_surface[pair["surface"]].distance(world, shape["radius"])
+            if distance < best.distance:
+                best = KnotClearance(k, distance, shape["link"], pair["surface"])
+        knots.append(best)
+    return PlanClearance(float(section["distance"]), knots)
+
+
+def clearance_meta(spec) -> dict:
+    """The ``meta.clearance`` mapping of a task's :class:`~optimizer.problem.clearance.ClearanceSpec`."""
+    return {
+        "distance": float(spec.distance),
+        "surfaces": [s.as_dict() for s in spec.surfaces],
+        "shapes": [s.as_dict() for s in spec.shapes],
+        "pairs": [{"shape": spec.shapes[p.shape].name, "surface": spec.surfaces[p.surface].name,
+                   "points": list(p.points)} for p in spec.pairs],
+    }
