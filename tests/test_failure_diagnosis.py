@@ -183,3 +183,32 @@ def test_robust_limit_rows_are_named_after_the_limit_they_measure(failed):
 def test_knot_ranges():
     assert knot_ranges([7, 1, 2, 3]) == "1-3, 7"
     assert knot_ranges([]) == "-"
+
+
+def test_clearance_blocking_a_solve_is_named_with_link_and_surface(tmp_path):
+    # A pick 5 cm below the ground plane of the feet (explicit contacts get a ground plane through
+    # their footholds). Pre-solve would refuse it; solved anyway, the diagnosis names clearance,
+    # the hand's link and the ground, and no plan comes out. Reference for the named row:
+    # Pinocchio forward kinematics of the gripper capsule at the stopping point (its end points
+    # and radius from the plan-file shapes) against the plane z = 0.
+    task = copy.deepcopy(TASK)
+    task["hand_targets"] = [{"position": [0.6, 0.0, -0.05], "time": 0.8, "label": "pick"}]
+    path = tmp_path / "task.yaml"
+    path.write_text(yaml.safe_dump(task), encoding="utf-8")
+    outcome = solve(load_task(path))
+    assert not outcome.success and outcome.plan is None
+    found = by_family(diagnose(outcome))["terrain clearance"]
+    assert "clearance" in found.words and found.worst
+    link, surface = found.worst[0].split(" vs ")
+    assert surface == "ground"
+    robot = outcome.task.robot
+    data = robot.model.createData()
+    lowest = math.inf
+    for k in found.knots:
+        pin.forwardKinematics(robot.model, data, outcome.last["q"][:, k])
+        for shape in robot.collision.shapes:
+            if shape.link == link:
+                placement = data.oMi[shape.joint]
+                ends = shape.joint_points @ placement.rotation.T + placement.translation
+                lowest = min(lowest, ends[:, 2].min() - shape.radius)
+    assert lowest < outcome.task.clearance.distance - 1e-6

@@ -6,6 +6,7 @@ and SciPy's LP solver only, never our CasADi model.
 """
 from __future__ import annotations
 
+import copy
 import json
 
 import numpy as np
@@ -13,7 +14,9 @@ import pinocchio as pin
 import pytest
 
 from certify_checks import check_plan_against_sampled_lps, sampled_bounds
+from clearance_checks import smallest_clearances, terrain_primitives
 from optimizer.analysis.certify import certify_plan
+from optimizer.analysis.clearance import plan_clearance
 from optimizer.planfile import load_plan, save_plan
 from optimizer.planner import solve
 from optimizer.problem.task import load_task
@@ -110,6 +113,47 @@ def test_hand_reaches_its_targets(task_name):
         for k in knots:
             pin.framesForwardKinematics(model, data, plan.q[k])
             assert np.linalg.norm(data.oMf[model.getFrameId(target.frame)].translation - target.position) <= 1e-5
+
+
+@pytest.mark.parametrize("objective", OBJECTIVES)
+@pytest.mark.parametrize("task_name", TASKS)
+def test_every_collision_shape_clears_the_terrain_at_every_knot(task_name, objective):
+    # Independent of the NLP: Pinocchio forward kinematics of the plan's own URDF places each
+    # collision shape; Coal (hpp-fcl) measures its distance to terrain primitives written in the
+    # test from the task file's numbers (tests/clearance_checks.py).
+    task, plan = plan_of(task_name, objective)
+    section = plan.meta["clearance"]
+    required = section["distance"]
+    assert required == pytest.approx(task.raw.get("clearance", {}).get("distance", 0.03))
+    # every shape is checked against every surface of the scene, all its points except a
+    # foot's own points near the surface that foot stands on
+    surfaces = set(terrain_primitives(task.raw))
+    pairs = {(p["shape"], p["surface"]): p["points"] for p in section["pairs"]}
+    for shape in section["shapes"]:
+        for surface in surfaces:
+            points = pairs[(shape["name"], surface)] if (shape["name"], surface) in pairs else []
+            if len(points) < len(shape["points"]):
+                assert shape["link"].endswith("_shank") and points, (shape["name"], surface)
+    for k, (distance, link, surface) in enumerate(smallest_clearances(plan, task.raw)):
+        assert distance >= required - 1e-9, (k, distance, link, surface)
+
+
+def test_a_plan_sunk_into_the_floor_fails_certification_naming_link_and_surface():
+    # The crawl-space plan with its base lowered 0.2 m: Coal (tests/clearance_checks.py) finds
+    # shapes inside the floor; brace's own clearance analysis must say the same and refuse it.
+    task, plan = plan_of("crawl_space", "robust")
+    sunk = copy.deepcopy(plan)
+    sunk.q[:, 2] -= 0.2
+    independent = smallest_clearances(sunk, task.raw)
+    ours = plan_clearance(sunk)
+    assert not ours.passed and ours.penetrating
+    for k, (distance, link, surface) in enumerate(independent):
+        assert distance < 0.0 and ours.knots[k].distance <= distance + 1e-9
+    assert ours.smallest.surface == "floor"
+    problems = certify_plan(sunk, knots=[0]).problems()
+    assert any("clearance" in p and "penetration" in p and ours.knots[0].link in p and "floor" in p
+               for p in problems), problems
+    assert plan_clearance(plan).passed
 
 
 @pytest.mark.parametrize("objective", ["robust", "torque"])
