@@ -60,6 +60,8 @@ class Structure:
     clearance_rows : tuple of (int, int)
         Per clearance row (shape, point index within the shape); the plane
         of each row and knot is a parameter (:mod:`optimizer.problem.clearance`).
+    clearance_labels : tuple of str
+        Per clearance row ``"<link> vs <surface>"``, for reports.
     """
 
     knots: int
@@ -69,6 +71,7 @@ class Structure:
     disturbances: tuple
     fixed_start: bool
     clearance_rows: tuple = ()
+    clearance_labels: tuple = ()
 
     @property
     def clearance_knots(self) -> range:
@@ -118,4 +121,5 @@ def structure_of(task) -> Structure:
         disturbances=tuple(DisturbanceSlot(d.frame, d.kind) for d in task.disturbances),
         fixed_start=task.initial_posture is not None,
         clearance_rows=tuple((shape, point) for _, shape, point in task.clearance.rows),
+        clearance_labels=tuple(" vs ".join(task.clearance.row_label(r)) for r in range(len(task.clearance.rows))),
     )
