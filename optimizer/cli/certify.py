@@ -1,7 +1,7 @@
 """``brace certify PLAN.npz``: the exact smallest unrejectable force, knot by knot.
 
 Prints a table (exact figure, planned margin, their ratio, weakest direction,
-facet count, bottleneck) and a summary; ``--json OUT`` writes the same for
+facet count, smallest terrain clearance, bottleneck) and a summary; ``--json OUT`` writes the same for
 machines; ``--replay N`` adds the disturbance replay. Exit code 0 when the plan
 is certified (no limit broken, planned margin never above the exact figure,
 replay passed), 1 when not, 2 on bad input.
@@ -127,14 +127,16 @@ def _fmt(x, spec=".3f") -> str:
 
 def knot_table(cert, unit: str) -> list:
     """Lines of the per-knot table."""
+    clear = {k.knot: k.distance for k in cert.clearance.knots} if cert.clearance is not None else {}
     head = (f"{'knot':>5} {'t [s]':>8} {'exact [' + unit + ']':>12} {'planned [' + unit + ']':>13} "
-            f"{'planned/exact':>14}  {'weakest direction (world)':<27} {'facets':>6}  bottleneck")
+            f"{'planned/exact':>14}  {'weakest direction (world)':<27} {'facets':>6} {'clear [cm]':>10}  bottleneck")
     lines = [head]
     for c in cert.knots:
         flag = "" if c.status == "ok" else f"  [{c.status}]"
         cap = " (capped)" if c.capped else ""
+        gap = _fmt(100 * clear[c.knot], ".1f") if c.knot in clear else "-"
         lines.append(f"{c.knot:>5} {c.time:>8.3f} {_fmt(c.rho):>12} {_fmt(c.planned):>13} {_fmt(c.ratio):>14}  "
-                     f"{_direction(c.direction):<27} {c.facets:>6}  {_names(c.bottleneck)}{cap}{flag}")
+                     f"{_direction(c.direction):<27} {c.facets:>6} {gap:>10}  {_names(c.bottleneck)}{cap}{flag}")
     return lines
 
 
