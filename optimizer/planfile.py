@@ -1,4 +1,4 @@
-"""Plan files (``plan/1``, /work/shared/PLAN_FORMAT.md): one self-contained ``.npz``.
+"""Plan files (``plan/1``, the contract in docs/plan-files.md): one self-contained ``.npz``.
 
 ``save_plan`` writes the arrays and the ``meta`` JSON (a 0-d unicode array)
 atomically and without pickle; ``load_plan`` reads any file that follows the

@@ -2,8 +2,8 @@
 
 A solve is made to fail quickly (6 knots, Ipopt max_iter 2). References:
 Pinocchio's forward kinematics (feet off their footholds) and RNEA with
-contact Jacobians (equations-of-motion residual, PLAN_FORMAT.md "What a
-reader can check"), and the 4-facet inscribed pyramid written out by hand
+contact Jacobians (equations-of-motion residual, docs/plan-files.md,
+"Checking a plan with Pinocchio alone"), and the 4-facet inscribed pyramid written out by hand
 (|f.t| <= mu cos(45 deg) f.n, common practice).
 """
 from __future__ import annotations

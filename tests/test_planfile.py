@@ -58,7 +58,7 @@ def test_save_without_npz_suffix_writes_exactly_that_path(plan, tmp_path):
 
 
 def test_fixture_plan_satisfies_equations_of_motion_checked_with_pinocchio(plan):
-    # What a reader can check (PLAN_FORMAT.md): rnea(q, v, a) - S^T tau - sum J_c^T lambda_c = 0,
+    # What a reader can check (docs/plan-files.md): rnea(q, v, a) - S^T tau - sum J_c^T lambda_c = 0,
     # and Newton on flat ground: sum of normal forces = m g.
     model = pin.buildModelFromXML(plan.meta["urdf"], pin.JointModelFreeFlyer())
     data = model.createData()
