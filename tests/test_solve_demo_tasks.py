@@ -17,9 +17,10 @@ from optimizer.analysis.certify import certify_plan
 from optimizer.planfile import load_plan, save_plan
 from optimizer.planner import solve
 from optimizer.problem.task import load_task
+from optimizer.transcription.objectives import OBJECTIVES as REGISTERED_OBJECTIVES
 
 TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
-OBJECTIVES = ["feasible", "robust", "robust-min", "torque"]
+OBJECTIVES = sorted(REGISTERED_OBJECTIVES)   # every registered objective on every demo task
 KNOTS = 8
 _SOLVED: dict = {}
 
