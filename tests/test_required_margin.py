@@ -19,7 +19,9 @@ from optimizer.robot.symbolic import SymbolicRobot
 from optimizer.transcription.nlp import Transcription
 from optimizer.transcription.objectives import objective_named
 from optimizer.transcription.structure import structure_of
-from test_task_file import BASE_TASK
+from test_task_file import BASE_TASK, ROBOT
+
+ROOT_MODELS = ROBOT.parent
 
 
 def write_task(tmp_path, **extra):
@@ -112,3 +114,96 @@ def test_robust_bounds_carry_the_requirement_and_torque_has_none(tmp_path):
     assert np.all(rho[need[:, 0] > 0] >= 15) and np.all(rho[need[:, 0] == 0] == 0)
     torque = Transcription(task.robot, symbolic, structure_of(task), objective_named("torque"))
     assert "rho0" not in torque.variables
+
+
+# ---------------------------------------------------------------- end to end (small knot counts)
+
+from optimizer.analysis.requirement_checks import rest_push  # noqa: E402
+from optimizer.cli import main  # noqa: E402
+from optimizer.planfile import load_plan, save_plan  # noqa: E402
+from optimizer.planner import solve  # noqa: E402
+from test_solve_demo_tasks import KNOTS, plan_of  # noqa: E402
+
+
+def test_rest_bound_on_the_ramp_is_the_inclined_plane_figure():
+    # Textbook inclined plane (slope theta, pyramid coefficient mu' = mu / sqrt 2 for the
+    # 4-facet inscribed pyramid, all feet on one plane): a horizontal push t down the slope
+    # is held at rest while t cos(theta) + m g sin(theta) <= mu' (m g cos(theta) - t sin(theta)),
+    # i.e. t <= m g (mu' cos - sin) / (cos + mu' sin).
+    task = load_task("tasks/steep_ramp.yaml")
+    theta, mu = np.radians(task.raw["stance"]["terrain"]["slope_deg"]), task.contacts[0].friction / np.sqrt(2)
+    mg = weight_of(task)
+    textbook = mg * (mu * np.cos(theta) - np.sin(theta)) / (np.cos(theta) + mu * np.sin(theta))
+    t, tight = rest_push(task, 0, [-1.0, 0.0, 0.0])
+    assert t == pytest.approx(textbook, rel=1e-6)
+    assert any("friction" in name for name in tight)
+
+
+def test_a_reachable_requirement_is_met_at_every_knot_by_the_certified_margin():
+    # Witness of reachability: the robust-min plan keeps its floor at every knot, so a
+    # requirement just under it is reachable. Checked on the certified margin (the closed-form
+    # linear-response figure), not on the optimizer's own rho.
+    task, witness = plan_of("trench", "robust-min")
+    required = 0.97 * float(witness.margin.min())
+    outcome = solve(task.with_required_margin(required), "robust", knots=KNOTS)
+    assert outcome.success, [(s.objective, s.status) for s in outcome.stages]
+    assert np.all(outcome.plan.margin >= required)
+    assert outcome.plan.meta["requirements"]["items"][0]["newtons"] == pytest.approx(required)
+
+
+def test_an_unreachable_requirement_is_refused_before_solving(tmp_path, capsys):
+    out = tmp_path / "ramp.npz"
+    assert main(["solve", "tasks/steep_ramp.yaml", "--knots", "6", "--require-margin", "5000",
+                 "--out", str(out), "--quiet"]) == 1
+    err = capsys.readouterr().err
+    assert "5000.0 N at the last knot" in err and "limited by" in err and "friction" in err
+    assert not out.exists() and not list(tmp_path.glob("*.npz"))
+
+
+def test_a_requirement_the_solver_cannot_reach_names_knots_and_bottleneck(tmp_path, capsys):
+    data = yaml.safe_load(open("tasks/trench.yaml"))
+    data["robot"] = str(ROOT_MODELS / "stilt.yaml")
+    data["solver"] = {"max_iter": 25}
+    data["require"] = [{"at_least": 150, "window": [0.0, 0.5]}]
+    path = tmp_path / "trench.yaml"
+    path.write_text(yaml.safe_dump(data))
+    out = tmp_path / "trench.npz"
+    assert main(["solve", str(path), "--knots", str(KNOTS), "--out", str(out), "--quiet", "--skip-checks"]) == 1
+    err = capsys.readouterr().err
+    assert "required margin" in err and "required 150.0 N" in err and "limited by" in err
+    assert "knot" in err and not out.exists()
+
+
+def test_torque_baseline_is_checked_not_constrained(tmp_path, capsys):
+    _, baseline = plan_of("trench", "torque")
+    required = 1.5 * float(baseline.margin.max())        # above the baseline's margin everywhere
+    out = tmp_path / "torque.npz"
+    argv = ["solve", "tasks/trench.yaml", "--knots", str(KNOTS), "--objective", "torque", "--out", str(out),
+            "--quiet", "--skip-checks", "--require-margin", f"{required:.3f}"]
+    assert main(argv) == 1
+    text = capsys.readouterr().out
+    assert "REQUIRED MARGIN NOT MET" in text and "NO plan written" in text and not out.exists()
+    assert main(argv + ["--keep-unmet"]) == 1
+    kept = load_plan(out)
+    assert kept.meta["requirements"]["met"] is False
+    # the baseline was not bent toward the requirement: same margins as without it
+    assert np.allclose(kept.margin, baseline.margin, rtol=1e-4, atol=1e-3)
+
+
+@pytest.mark.parametrize("command", ["solve", "certify"])
+def test_low_margins_are_flagged_with_their_time_range(tmp_path, capsys, command):
+    task, plan = plan_of("trench", "torque")
+    low, high = float(plan.margin.min()), float(plan.margin.max())
+    if command == "solve":
+        argv = ["solve", "tasks/trench.yaml", "--knots", str(KNOTS), "--objective", "torque", "--quiet",
+                "--skip-checks", "--out", str(tmp_path / "p.npz")]
+    else:
+        save_plan(plan, tmp_path / "p.npz")
+        argv = ["certify", str(tmp_path / "p.npz"), "--quiet"]
+    # the exact figure of certify is >= the planned margin, so a level above the plan's
+    # largest margin flags knots in both commands, one below its smallest flags none
+    assert main(argv + ["--warn-below", f"{0.5 * low:.4f}"]) == 0
+    assert "!!" not in capsys.readouterr().out
+    main(argv + ["--warn-below", f"{2.0 * high + 100:.4f}"])
+    text = capsys.readouterr().out
+    assert "!! LOW MARGIN" in text and f"t = 0.00-{plan.t[-1]:.2f} s (knots 0-{len(plan.t) - 1})" in text

@@ -9,9 +9,15 @@ one time range with the smallest margin in it and what limits it there.
 """
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
+import pinocchio as pin
+
+from ..problem.requirement import from_json, required_margins
+from .knot_response import PlanRobot, knot_responses
+from .linear_margin import best_linear_margin
 
 # Below 5 % of body weight a plan rejects hardly any push: a warning level of
 # our own choosing (no standard states one), overridable per command.
@@ -134,3 +140,67 @@ def _runs(flagged, required):
 def unmet(shortfalls) -> list:
     """The shortfalls that break a stated requirement."""
     return [s for s in shortfalls if s.required]
+
+
+# ---------------------------------------------------------------- from plans and certificates
+
+
+def plan_weight(meta: dict) -> float:
+    """The robot's weight m g of a plan, N, from its own URDF and gravity (Pinocchio's total mass)."""
+    model = PlanRobot(meta).model
+    return float(pin.computeTotalMass(model) * np.linalg.norm(meta["gravity"]))
+
+
+def plan_requirements(meta: dict) -> list:
+    """The required margins a plan was made under (its ``meta.requirements``), or none."""
+    return from_json((meta.get("requirements") or {}).get("items", []))
+
+
+def linear_bottleneck(plan, knot: int, point: int) -> str:
+    """The limit that sets the best linear-response margin of ``plan`` at ``knot``."""
+    _, response = next(knot_responses(plan, [knot], point))
+    return best_linear_margin(response.limit_rows()).limiting
+
+
+def plan_shortfalls(plan, requirements, warn_below: float | None = None) -> list:
+    """Shortfalls of a plan's certified margins (``plan.margins``, one column per point)."""
+    margins = plan.margin[:, None] if plan.margins is None else plan.margins
+    need = required_margins(requirements, plan.t, margins.shape[1])
+    return find_shortfalls(plan.t, margins, need, plan_weight(plan.meta),
+                           lambda k, p: linear_bottleneck(plan, k, p), warn_below)
+
+
+def certificate_shortfalls(cert, plan, requirements, warn_below: float | None = None) -> list:
+    """Shortfalls of the exact figures of a certificate (its disturbance point, its knots)."""
+    point = cert.disturbance["index"]
+    exact = np.full(len(plan.t), np.nan)
+    names = {}
+    for c in cert.knots:
+        exact[c.knot] = c.rho
+        names[c.knot] = ", ".join(c.bottleneck[:2])
+    need = required_margins(requirements, plan.t, point + 1)[:, point]
+    found = find_shortfalls(plan.t, exact[:, None], need[:, None], plan_weight(plan.meta),
+                            lambda k, p: names.get(k, ""), warn_below)
+    return [dataclasses.replace(s, point=point) for s in found]
+
+
+def best_linear_margins(plan, points: int) -> np.ndarray:
+    """The best linear-response margin at every knot of ``plan`` (any point, solved or not), N, (K, P)."""
+    return np.array([[best_linear_margin(r.limit_rows()).rho for _, r in knot_responses(plan, None, p)]
+                     for p in range(points)]).T
+
+
+def stopping_point_shortfalls(point_plan, requirements) -> list:
+    """Unmet requirements at a solver's stopping point (a plan-shaped point, not a plan).
+
+    The margin reached is what the best linear response certifies there
+    (negative where the point breaks a limit), not the optimizer's own figure.
+    """
+    points = len(point_plan.meta["disturbances"])
+    need = required_margins(requirements, point_plan.t, points)
+    if not need.any():
+        return []
+    reached = best_linear_margins(point_plan, points)
+    found = find_shortfalls(point_plan.t, reached, need, plan_weight(point_plan.meta),
+                            lambda k, p: linear_bottleneck(point_plan, k, p))
+    return unmet(found)
