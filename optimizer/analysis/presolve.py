@@ -43,6 +43,7 @@ import pinocchio as pin
 from scipy.optimize import linprog
 
 from ..errors import InfeasibleTask, TaskError
+from ..problem.clearance import smallest_clearance
 from ..problem.friction import pyramid_facets
 from ..problem.limits import FRICTION, TORQUE
 from ..problem.stance import stance_checks, static_support_lp
@@ -375,8 +376,6 @@ def _inside_swollen_hull(point, points, radius) -> bool:
 
 def clearance_findings(task) -> list[Finding]:
     """Proofs: a fixed start that does not clear the terrain; a hand target too close to a surface."""
-    from ..problem.clearance import smallest_clearance
-
     spec, out = task.clearance, []
     if not spec.pairs:
         return out

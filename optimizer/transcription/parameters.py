@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..problem.clearance import CLEARANCE_BACKOFF, world_points
 from ..problem.friction import pyramid_facets
 from .layout import VectorLayout
 from .structure import Structure
@@ -71,8 +72,6 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
 
 def clearance_planes(task, structure: Structure, motion=None) -> np.ndarray:
     """Per knot the planes of every clearance row, shape (4 rows, K), faces chosen at ``motion``."""
-    from ..problem.clearance import CLEARANCE_BACKOFF, world_points
-
     robot, K = task.robot, structure.knots
     motion = np.repeat(robot.standing_posture[:, None], K, axis=1) if motion is None else motion
     data = robot.model.createData()
