@@ -70,6 +70,28 @@ def test_terrain_kind_places_feet_on_its_surfaces(kind):
 
 
 @pytest.mark.parametrize("kind", sorted(TERRAINS))
+def test_terrain_kind_gives_its_surfaces_as_geometry(kind):
+    # Every foothold lies on the surface it was placed on, and a point just under it (along
+    # the normal, into the terrain) is on the terrain's side: the clearance rows keep shapes
+    # out of exactly the surfaces the feet stand on (signed distance, plane or box).
+    ground = terrain(TERRAINS[kind].EXAMPLE)
+    surfaces = {s.name: s for s in ground.geometry()}
+    assert set(surfaces) <= set(ground.surfaces) and surfaces
+    placed = 0
+    for xy in np.random.default_rng(5).uniform(-0.6, 0.6, size=(30, 2)):
+        try:
+            here = ground.place(xy, None, "f")
+        except TaskError:
+            continue
+        placed += 1
+        surface = surfaces[here.surface]
+        assert surface.point_distance(here.foothold) == pytest.approx(0.0, abs=1e-9)
+        assert surface.point_distance(here.foothold - 0.01 * here.normal) < 0.0
+        assert surface.point_distance(here.foothold + 0.01 * here.normal) == pytest.approx(0.01, abs=1e-9)
+    assert placed >= 10
+
+
+@pytest.mark.parametrize("kind", sorted(TERRAINS))
 def test_terrain_kind_names_bad_input(kind):
     spec = dict(TERRAINS[kind].EXAMPLE, no_such_key=1.0)
     with pytest.raises(TaskError, match=r"stance\.terrain.*no_such_key"):
