@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import copy
 import json
+import math
 import re
 
 import numpy as np
@@ -16,6 +17,7 @@ import pytest
 
 from certify_checks import check_plan_against_sampled_lps, internal_push, sampled_bounds
 from optimizer.analysis.certify import certify_plan
+from optimizer.analysis.model_change import ModelChange
 from optimizer.analysis.plan_check import check_plan
 from optimizer.cli import main
 from optimizer.planfile import load_plan, save_plan
@@ -223,3 +225,43 @@ def test_a_solved_plan_with_a_foot_force_outside_its_pyramid_is_not_certified(tm
     assert match and match.group(1) == "friction" and int(match.group(2)) == k
     assert match.group(3) in (plan.meta["contact_frames"][front], plan.meta["contact_frames"][rear])
     assert "dynamics check failed" not in text
+
+
+def test_ramp_friction_floor_is_the_inclined_plane_condition():
+    # Inclined plane (textbook): a body at rest on a slope theta needs mu >= tan(theta); with the
+    # plan's inscribed pyramid of m facets the per-axis coefficient is mu cos(pi / m), so the
+    # knot at rest (the last one) stops being feasible at mu = tan(theta) / cos(pi / m).
+    # Moving knots need at least what Newton asks of the summed contact force
+    # F = dh/dt - m g (Pinocchio's centroidal momentum rate), per pyramid axis.
+    task, plan = plan_of("steep_ramp", "robust")
+    meta = plan.meta
+    slope = math.radians(task.raw["stance"]["terrain"]["slope_deg"])
+    m = meta["friction_pyramid"]["facets"]
+    mu = meta["friction"][0]
+    report = certify_plan(plan, check=False, change=ModelChange())
+    floors = [c.changed.friction_floor * mu for c in report.knots]
+    assert floors[-1] == pytest.approx(math.tan(slope) / math.cos(math.pi / m), rel=0.02)
+    model = pin.buildModelFromXML(meta["urdf"], pin.JointModelFreeFlyer())
+    data = model.createData()
+    mass, g = pin.computeTotalMass(model), np.array(meta["gravity"])
+    n, (t1, t2) = np.array(meta["contact_normals"][0]), np.array(meta["friction_pyramid"]["tangents"][0])
+    for k, floor in enumerate(floors):
+        rate = pin.computeCentroidalMomentumTimeVariation(model, data, plan.q[k], plan.v[k], plan.a[k])
+        total = np.array(rate.linear) - mass * g
+        needed = max(abs(total @ t1), abs(total @ t2)) / (total @ n) / math.cos(math.pi / m)
+        assert floor >= needed * (1 - 1e-3), (k, floor, needed)
+
+
+def test_lowering_friction_never_raises_a_margin():
+    # A smaller friction coefficient shrinks every pyramid, so the set of admissible responses
+    # only shrinks (set inclusion): no knot's figure may grow. Tolerance: the projection's own.
+    _, plan = plan_of("steep_ramp", "robust")
+    previous = None
+    for scale in (1.2, 1.0, 0.9, 0.8, 0.7):
+        report = certify_plan(plan, check=False, change=ModelChange(friction_scale=scale), friction_floor=False)
+        figures = np.array([c.changed.cert.rho for c in report.knots])
+        if previous is not None:
+            finite = np.isfinite(figures)
+            assert (figures[finite] <= previous[finite] + 1e-6 * np.abs(previous[finite]) + 1e-7).all(), scale
+        previous = figures
+    assert (previous < 0).any()   # at 0.7 the plan is infeasible somewhere, so the sweep means something

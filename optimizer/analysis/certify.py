@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .knot_response import knot_responses
+from .model_change import ChangedKnots, ModelChange, feasible_at_rest
 from .plan_check import CheckReport, check_plan
 from .polytope import EmptyResidualSet, SupportLP, project, sample_support
 from .response import KnotResponse
@@ -153,6 +154,7 @@ class KnotCertificate:
     replay: ReplayCounts | None = None
     weakest_u: np.ndarray | None = None
     weakest_support: float = math.nan
+    changed: "ChangedFigure | None" = None
 
     @property
     def exact(self) -> bool:
@@ -192,6 +194,7 @@ class KnotCertificate:
             "converged": self.complete, "violations": list(self.violations),
             "seconds": _num(self.seconds), "notes": list(self.notes),
             "replay": None if self.replay is None else _replay_json(self.replay),
+            "changed_model": None if self.changed is None else self.changed.to_json(),
         }
 
 
@@ -306,6 +309,34 @@ def replay_knot(lp: SupportLP, cert: KnotCertificate, draws: int, rng) -> Replay
 
 
 @dataclass
+class ChangedFigure:
+    """One knot under a changed model (the plan fixed).
+
+    Attributes
+    ----------
+    cert : KnotCertificate
+        Certification with the changed limits (and payload); ``cert.rho`` is
+        the margin under the changed model [N].
+    feasible : bool
+        Some response keeps every changed limit with no disturbance.
+    friction_floor : float
+        Smallest friction scale (times the plan's coefficients, the other
+        changes applied) at which the knot stays feasible.
+    """
+
+    cert: KnotCertificate
+    feasible: bool
+    friction_floor: float
+
+    def to_json(self) -> dict:
+        c = self.cert
+        return {"rho_N": _num(c.rho) if c.exact else None, "rho_lower_N": _num(c.lower),
+                "rho_upper_N": _num(c.upper), "figure": "exact" if c.exact else "bounds",
+                "feasible": self.feasible, "friction_floor_scale": _num(self.friction_floor),
+                "bottleneck": list(c.bottleneck), "violations_at_planned_point": list(c.violations)}
+
+
+@dataclass
 class PlanCertificate:
     """Certificates of the chosen knots of one plan and their summary."""
 
@@ -314,6 +345,13 @@ class PlanCertificate:
     settings: Settings
     replay: ReplayCounts | None = None
     checks: CheckReport | None = None
+    change: ModelChange | None = None
+    change_text: str = ""
+    plan_friction: list = field(default_factory=list)
+
+    def infeasible_under_change(self) -> list:
+        """Knots where the plan is not feasible at all under the changed model."""
+        return [c.knot for c in self.knots if c.changed is not None and not c.changed.feasible]
 
     def smallest(self) -> KnotCertificate:
         return min(self.knots, key=lambda c: c.rho)
@@ -326,6 +364,10 @@ class PlanCertificate:
         """Plain-language list of what failed (empty when the plan is certified)."""
         out = [] if self.checks is None else [r.reason() for r in self.checks.failures()]
         out += [f"knot {c.knot}: {c.status}" for c in self.knots if c.status != "ok"]
+        bad = self.infeasible_under_change()
+        if bad:
+            out.append(f"changed model ({self.change_text}): the plan is not feasible at all at knots "
+                       + ", ".join(map(str, bad)))
         if self.replay is not None and not self.replay.passed:
             r = self.replay
             out.append(f"replay: {r.drawn - r.rejected} of {r.drawn} draws not rejectable, "
@@ -347,10 +389,22 @@ class PlanCertificate:
             "exact_knots": sum(c.exact for c in self.knots),
             "smallest_rho_upper_N": _num(low.upper), "smallest_is_exact": low.exact,
             "physics_checked": self.checks is not None,
+            **self._changed_summary(),
             "violation_knots": sum(c.status == "violation" for c in self.knots),
             "median_ms_per_knot": _num(1e3 * float(np.median(seconds))),
             "certified": not self.problems(), "problems": self.problems(),
         }
+
+    def _changed_summary(self) -> dict:
+        if self.change is None:
+            return {}
+        figures = [c.changed for c in self.knots]
+        low = min(figures, key=lambda f: f.cert.rho)
+        floor = max(figures, key=lambda f: -math.inf if math.isnan(f.friction_floor) else f.friction_floor)
+        return {"changed_smallest_rho_N": _num(low.cert.rho), "changed_smallest_at_knot": low.cert.knot,
+                "changed_smallest_is_exact": low.cert.exact,
+                "changed_infeasible_knots": self.infeasible_under_change(),
+                "friction_floor_scale": _num(floor.friction_floor), "friction_floor_at_knot": floor.cert.knot}
 
     def to_json(self) -> dict:
         s = self.settings
@@ -358,6 +412,7 @@ class PlanCertificate:
             "format": "brace-certificate/1", "disturbance": self.disturbance,
             "settings": {"tol": s.tol, "cap_N": s.cap, "full": s.full, "samples": s.samples, "max_lps": s.max_lps},
             "plan_checks": {"run": False} if self.checks is None else self.checks.to_json(),
+            "model_change": None if self.change is None else {**self.change.to_json(), "text": self.change_text},
             "summary": self.summary(), "knots": [c.to_json() for c in self.knots],
             "replay": None if self.replay is None else _replay_json(self.replay),
         }
@@ -374,7 +429,8 @@ def planned_margin(plan, k: int, disturbance: int) -> float:
 
 def certify_plan(plan, knots=None, disturbance: int = 0, settings: Settings | None = None,
                  replay: int = 0, seed: int = 0, progress=None, check: bool = True,
-                 tolerances: dict | None = None) -> PlanCertificate:
+                 tolerances: dict | None = None, change: ModelChange | None = None,
+                 friction_floor: bool = True) -> PlanCertificate:
     """Check the plan's physics, then certify the chosen knots (all by default) of ``plan``.
 
     A plan that fails a physics check (:mod:`.plan_check`) is not certified,
@@ -397,6 +453,13 @@ def certify_plan(plan, knots=None, disturbance: int = 0, settings: Settings | No
         Run the physics checks first (False: skip them; the report says so).
     tolerances : dict of str to float, optional
         Check tolerances by check name (see :data:`.plan_check.CHECKS`).
+    change : ModelChange, optional
+        Also certify every chosen knot under this changed model (the plan
+        fixed): margin, feasibility and (``friction_floor``) the friction
+        floor per knot.
+    friction_floor : bool
+        Find each knot's friction floor under ``change`` (about 15 LPs per
+        knot); False leaves it NaN.
     """
     settings = settings or Settings()
     checks = check_plan(plan, tolerances) if check else None
@@ -404,8 +467,11 @@ def certify_plan(plan, knots=None, disturbance: int = 0, settings: Settings | No
     rng = np.random.default_rng(seed)
     total = ReplayCounts() if replay else None
     certs = []
+    changed = None if change is None else ChangedKnots(plan, change, disturbance)
     for i, (k, resp) in enumerate(knot_responses(plan, chosen, disturbance)):
         cert, lp = certify_response(resp, planned_margin(plan, k, disturbance), settings, k, float(plan.t[k]))
+        if changed is not None:
+            cert.changed = changed_figure(changed, k, cert, settings, friction_floor)
         if replay:
             cert.replay = replay_knot(lp, cert, replay, rng)
             total.add(cert.replay)
@@ -414,4 +480,19 @@ def certify_plan(plan, knots=None, disturbance: int = 0, settings: Settings | No
             progress(i + 1, len(chosen), cert)
     entry = plan.meta["disturbances"][disturbance]
     info = {"index": disturbance, "frame": entry["frame"], "kind": entry["kind"]}
-    return PlanCertificate(certs, info, settings, total, checks)
+    text = "" if change is None else change.describe(plan.meta, disturbance)
+    return PlanCertificate(certs, info, settings, total, checks, change, text, list(plan.meta["friction"]))
+
+
+def changed_figure(changed: ChangedKnots, k: int, planned: KnotCertificate, settings: Settings,
+                   friction_floor: bool = True) -> ChangedFigure:
+    """Knot ``k`` certified under the changed model, with its feasibility and friction floor."""
+    resp = changed.response(k)
+    if not np.isfinite(resp.forces).all():  # the contacts cannot balance the payload at all
+        cert = KnotCertificate(k, planned.time, -math.inf, -math.inf, -math.inf, np.full(resp.dim, math.nan), [],
+                               planned.planned, math.nan, 0, 0, 0, "projection",
+                               notes=["the stance contacts cannot balance the payload"])
+        return ChangedFigure(cert, False, math.inf)
+    cert, _ = certify_response(resp, planned.planned, settings, k, planned.time)
+    floor = changed.friction_floor(resp) if friction_floor else math.nan
+    return ChangedFigure(cert, feasible_at_rest(resp), floor)

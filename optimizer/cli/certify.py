@@ -13,6 +13,7 @@ import math
 import sys
 
 from ..analysis.certify import DEFAULT_CAP, DEFAULT_MAX_LPS, DEFAULT_TOL, Settings, certify_plan
+from ..analysis.model_change import ModelChange
 from ..analysis.plan_check import CHECKS
 from ..errors import InputError
 from ..files import atomic_output
@@ -52,6 +53,15 @@ def add_arguments(parser) -> None:
     defaults = ", ".join(f"{c.name} {c.tolerance:g}{' ' + c.unit if c.unit else ''}" for c in CHECKS)
     parser.add_argument("--check-tol", action="append", default=[], metavar="NAME=VALUE",
                         help=f"tolerance of one physics check, repeatable (defaults: {defaults})")
+    changed = parser.add_argument_group("changed model (the plan fixed; reported beside the planned figures)")
+    changed.add_argument("--friction-scale", type=float, default=None, metavar="S",
+                         help="multiply every contact's friction coefficient by S (> 0)")
+    changed.add_argument("--torque-scale", type=float, default=None, metavar="S",
+                         help="multiply every torque limit by S (> 0)")
+    changed.add_argument("--payload", type=float, default=None, metavar="KG",
+                         help="a mass of KG kg hanging at the disturbance point (a constant force m g there)")
+    changed.add_argument("--min-normal-force", type=float, default=None, metavar="N",
+                         help="minimum normal force of every stance contact, N")
     parser.add_argument("--quiet", action="store_true", help="print only the summary")
 
 
@@ -65,7 +75,7 @@ def run(args) -> int:
     tolerances = parse_check_tolerances(args.check_tol)
     progress = ProgressLine(sys.stderr) if len(knots) > 1 else None
     cert = certify_plan(plan, knots, args.disturbance, settings, args.replay, args.seed, progress,
-                        check=not args.no_check, tolerances=tolerances)
+                        check=not args.no_check, tolerances=tolerances, change=model_change(args))
     if progress is not None:
         progress.clear()
     print(report_text(cert, str(args.plan), quiet=args.quiet))
@@ -87,6 +97,25 @@ def _settings(args) -> Settings:
     if args.max_lps < 1:
         raise InputError(CLI, "--max-lps", "a whole number >= 1", args.max_lps)
     return Settings(tol=args.tol, cap=args.cap, full=args.full, samples=args.samples, max_lps=args.max_lps)
+
+
+def model_change(args) -> ModelChange | None:
+    """The changed model the options ask for, or None when no option is given."""
+    given = {"friction_scale": args.friction_scale, "torque_scale": args.torque_scale,
+             "payload_kg": args.payload, "min_normal_force": args.min_normal_force}
+    if all(v is None for v in given.values()):
+        return None
+    for key, option in (("friction_scale", "--friction-scale"), ("torque_scale", "--torque-scale")):
+        value = given[key]
+        if value is not None and not (math.isfinite(value) and value > 0.0):
+            raise InputError(CLI, option, "a number > 0", value)
+    for key, option, what in (("payload_kg", "--payload", "kg"), ("min_normal_force", "--min-normal-force", "N")):
+        value = given[key]
+        if value is not None and not (math.isfinite(value) and value >= 0.0):
+            raise InputError(CLI, option, f"a number of {what} >= 0", value)
+    return ModelChange(friction_scale=1.0 if given["friction_scale"] is None else given["friction_scale"],
+                       torque_scale=1.0 if given["torque_scale"] is None else given["torque_scale"],
+                       payload_kg=given["payload_kg"] or 0.0, min_normal_force=given["min_normal_force"])
 
 
 def parse_check_tolerances(items) -> dict:
@@ -169,6 +198,8 @@ def _figure_columns(cert, unit: str):
 
 def knot_table(cert, unit: str) -> list:
     """Lines of the per-knot table; columns headed by what they hold (exact figure or bounds)."""
+    if cert.change is not None:
+        return changed_table(cert, unit)
     figure, ratio, cells = _figure_columns(cert, unit)
     head = (f"{'knot':>5} {'t [s]':>8} {figure} {'planned [' + unit + ']':>13} "
             f"{ratio}  {'weakest direction (world)':<27} {'facets':>6}  bottleneck")
@@ -178,6 +209,49 @@ def knot_table(cert, unit: str) -> list:
         cap = " (capped)" if c.capped else ""
         lines.append(f"{c.knot:>5} {c.time:>8.3f} {cells(c)} {_fmt(c.planned):>13} {_fmt(c.ratio):>14}  "
                      f"{_direction(c.direction):<27} {c.facets:>6}  {_names(c.bottleneck)}{cap}{flag}")
+    return lines
+
+
+def _changed_cell(c) -> str:
+    """The changed model's figure: exact, a bound pair, or why there is none."""
+    if c.rho == -math.inf:
+        return "no response"
+    return _fmt(c.rho) if c.exact else f"{_fmt(c.lower)}..{_fmt(c.upper)}"
+
+
+def changed_table(cert, unit: str) -> list:
+    """Per-knot table with the planned model's figure beside the changed model's."""
+    figure, _, cells = _figure_columns(cert, unit)
+    lines = [f"changed model: {cert.change_text}",
+             f"{'knot':>5} {'t [s]':>8} {figure} {'changed [' + unit + ']':>17} {'feasible':>9} "
+             f"{'friction floor':>15}  changed-model bottleneck"]
+    for c in cert.knots:
+        ch = c.changed
+        flag = "" if c.status == "ok" else f"  [planned model: {c.status}]"
+        lines.append(f"{c.knot:>5} {c.time:>8.3f} {cells(c)} {_changed_cell(ch.cert):>17} "
+                     f"{'yes' if ch.feasible else 'NO':>9} {'x' + _fmt(ch.friction_floor, '.4f'):>15}  "
+                     f"{_names(ch.cert.bottleneck)}{flag}")
+    return lines
+
+
+def changed_summary_lines(cert, unit: str) -> list:
+    """What the changed model leaves: smallest margin beside the planned one, infeasible knots, friction floor."""
+    if cert.change is None:
+        return []
+    s = cert.summary()
+    low = min((c.changed.cert for c in cert.knots), key=lambda c: c.rho)
+    planned = cert.smallest()
+    lines = [f"changed model ({cert.change_text}): smallest margin {_changed_cell(low)} {unit} at knot {low.knot} "
+             f"(planned model: {_fmt(planned.rho)} {unit} at knot {planned.knot})"]
+    bad = s["changed_infeasible_knots"]
+    lines.append("  feasible at every knot" if not bad else
+                 f"  NOT feasible at all (no response keeps every limit, even undisturbed) at knots "
+                 + ", ".join(map(str, bad)))
+    floor = s["friction_floor_scale"]
+    mus = sorted({float(m) for m in cert.plan_friction})
+    mu_text = f" (mu {floor * mus[0]:.4g})" if len(mus) == 1 and floor is not None else ""
+    lines.append(f"  friction floor: the plan stays feasible down to friction x{_fmt(floor if floor is not None else math.inf, '.4f')}"
+                 f"{mu_text} of the planned coefficients; first knot to fail below it: {s['friction_floor_at_knot']}")
     return lines
 
 
@@ -230,6 +304,7 @@ def summary_lines(cert, unit: str) -> list:
     if any(c.unbounded for c in cert.knots):
         notes.append(f"some directions are resisted without bound; they were capped at {cert.settings.cap:g} {unit}")
     lines += [f"note: {note}" for note in notes]
+    lines += changed_summary_lines(cert, unit)
     lines.append(f"time: {s['median_ms_per_knot']:.1f} ms per knot (median), "
                  f"{sum(c.lps for c in cert.knots)} LPs")
     if cert.replay is not None:
