@@ -23,11 +23,13 @@ HELP = "resample a plan at a fixed rate for a tracking controller (CSV or NPZ)"
 CLI = "command line"
 FORMATS = ("csv", "npz")
 MAX_RATE = 10000.0    # Hz; above this the file grows without helping any controller
+DEFAULT_RATE = 200.0  # Hz: a common rate for whole-body tracking loops (common practice, not a standard)
 
 
 def add_arguments(parser) -> None:
     parser.add_argument("plan", metavar="PLAN.npz", help="plan file (plan/1)")
-    parser.add_argument("--rate", type=float, required=True, metavar="HZ", help="samples per second")
+    parser.add_argument("--rate", type=float, default=DEFAULT_RATE, metavar="HZ",
+                        help=f"samples per second (default {DEFAULT_RATE:g})")
     parser.add_argument("--format", choices=FORMATS, default="csv", help="csv (default) or npz")
     parser.add_argument("--out", metavar="FILE", help="output file (default: beside the plan, <plan>-<rate>hz.<format>)")
     parser.add_argument("--disturbance", type=int, default=0, metavar="INDEX",
