@@ -29,7 +29,7 @@ from optimizer.robot.model import load_robot
 
 ROOT = Path(__file__).resolve().parents[1]
 MODELS = Path(__file__).parent / "models"
-TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
+TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space", "drawer_pull"]
 CYLINDER = ('<collision><origin xyz="0.01 0.02 -0.14" rpy="0.3 0.2 0.1"/>'
             '<geometry><cylinder radius="0.03" length="0.28"/></geometry></collision>')
 

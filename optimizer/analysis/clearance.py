@@ -5,8 +5,10 @@ distance, the terrain's surfaces (planes and boxes), the collision shapes
 (points on a link, link frame, with a radius) and the checked (shape, surface)
 pairs with their points (a foot's own points are left out against the
 surface it stands on). Positions come from Pinocchio's forward kinematics of
-the plan's own URDF; distances are those of :mod:`optimizer.problem.geometry`
-(exact for planes, the best separating face for boxes: a lower bound).
+the plan's own URDF; distances are computed here from the plan file's
+numbers (exact for planes, the best separating face for boxes: a lower
+bound), apart from the code that builds the NLP's rows. The plan check
+``clearance`` (:mod:`optimizer.analysis.plan_check`) reports them.
 
 A plan without ``meta.clearance`` (written before collision shapes existed)
 has nothing to check: :func:`plan_clearance` returns None.
@@ -18,9 +20,22 @@ from dataclasses import dataclass
 import numpy as np
 import pinocchio as pin
 
-from ..problem.geometry import Surface
 
 TOLERANCE = 1e-9   # m: rounding allowed below the required clearance before a knot fails
+
+
+def _faces(surface: dict) -> list:
+    """Half-spaces ``(n, d)`` (free side ``n . x >= d``) of a plan-file surface: one plane, or a box's top and sides."""
+    if surface["kind"] == "plane":
+        return [(np.asarray(surface["normal"], float), float(surface["offset"]))]
+    lo, hi = np.asarray(surface["lower"], float), np.asarray(surface["upper"], float)
+    x, y, z = np.eye(3)
+    return [(z, hi[2]), (x, hi[0]), (-x, -lo[0]), (y, hi[1]), (-y, -lo[1])]
+
+
+def surface_distance(surface: dict, points: np.ndarray, radius: float) -> float:
+    """Signed distance (m) of the swollen hull of ``points`` (n, 3) from a plan-file surface."""
+    return max(float(np.min(points @ n - d)) for n, d in _faces(surface)) - float(radius)
 
 
 @dataclass
@@ -77,10 +92,9 @@ def plan_clearance(plan) -> PlanClearance | None:
         return None
     model = pin.buildModelFromXML(plan.meta["urdf"], pin.JointModelFreeFlyer())
     data = model.createData()
-    surfaces = [Surface.from_dict(s) for s in section["surfaces"]]
     shapes = {s["name"]: s for s in section["shapes"]}
     ids = {name: model.getFrameId(s["link"], pin.FrameType.BODY) for name, s in shapes.items()}
-    by_surface = {s.name: s for s in surfaces}
+    by_surface = {s["name"]: s for s in section["surfaces"]}
     knots = []
     for k, q in enumerate(plan.q):
         pin.framesForwardKinematics(model, data, q)
@@ -90,7 +104,7 @@ def plan_clearance(plan) -> PlanClearance | None:
             placement = data.oMf[ids[pair["shape"]]]
             local = np.asarray(shape["points"], float)[pair["points"]]
             world = local @ np.array(placement.rotation).T + np.array(placement.translation)
-            distance = by_surface[pair["surface"]].distance(world, shape["radius"])
+            distance = surface_distance(by_surface[pair["surface"]], world, shape["radius"])
             if distance < best.distance:
                 best = KnotClearance(k, distance, shape["link"], pair["surface"])
         knots.append(best)
