@@ -1,8 +1,9 @@
 """Sweep figures, drawn from the stored records alone.
 
-- ``margin_<axis>.png``: the smallest exact margin [N] against each swept
-  parameter, one line per objective (with several axes: the median over the
-  other axes, the band from their smallest to their largest value);
+- ``margin_<axis>.png``: the smallest and the mean exact margin over the
+  knots [N] against each swept parameter, one line per objective (with
+  several axes: the median over the other axes, the band from their smallest
+  to their largest value);
 - ``margin_map.png`` (two or more axes; the first two): per objective, the
   smallest exact margin over the plane of the first two axes, unsolved
   variants crossed out and the boundary where variants stop solving;
@@ -14,13 +15,12 @@ from pathlib import Path
 
 import numpy as np
 
+from ..report import palette
+from ..report.palette import colour
+
 MARGIN = "margin_min_exact_N"
-# one colour per objective, the same in every figure
-COLOURS = {"robust": "#1b6ca8", "robust-min": "#6a3d9a", "torque": "#d95f02", "feasible": "#5f6b6d"}
-
-
-def colour(objective: str) -> str:
-    return COLOURS.get(objective, "#333333")
+MEAN_MARGIN = "margin_mean_exact_N"
+UNSOLVED = "#ececec"   # background of the margin map: cells without a plan
 
 
 def _number(value) -> float:
@@ -33,90 +33,134 @@ def draw_figures(out, manifest: dict, rows: list[dict]) -> list[Path]:
     """Write the figures of ``rows`` into ``out/figures``; returns their paths (none without results)."""
     if not rows:
         return []
-    import matplotlib
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
+    with palette.figure_style():
+        return _draw(out, manifest, rows)
 
+
+def _figure(width: float, height: float):
+    from matplotlib.figure import Figure   # no pyplot: no GUI backend, no global figure list
+
+    return Figure(figsize=(width, height))
+
+
+def _draw(out, manifest: dict, rows: list[dict]) -> list[Path]:
     folder = Path(out) / "figures"
     folder.mkdir(parents=True, exist_ok=True)
     axes = [a["name"] for a in manifest["axes"]]
-    labels = {a["name"]: a["sets"] for a in manifest["axes"]}
+    labels = {a["name"]: a.get("label", a["name"]) for a in manifest["axes"]}
     objectives = [o for o in manifest["objectives"] if any(r["objective"] == o for r in rows)]
     written = []
     for axis in axes:
-        fig, ax = plt.subplots(figsize=(6.4, 4.0))
-        margin_against(ax, rows, axis, axes, objectives, labels[axis])
-        written.append(_save(fig, folder / f"margin_{axis}.png", plt))
+        fig = _figure(10.0, 3.8)
+        for ax, column in zip(fig.subplots(1, 2), (MARGIN, MEAN_MARGIN)):
+            margin_against(ax, rows, axis, axes, objectives, labels[axis], column)
+        written.append(_save(fig, folder / f"margin_{axis}.png"))
     if len(axes) >= 2:
-        fig, panels = plt.subplots(1, len(objectives), figsize=(5.2 * len(objectives), 4.4), squeeze=False)
+        fig = _figure(5.2 * len(objectives), 4.4)
+        panels = fig.subplots(1, len(objectives), squeeze=False)
         for ax, objective in zip(panels[0], objectives):
             margin_map(fig, ax, rows, axes[0], axes[1], objective, labels)
-        written.append(_save(fig, folder / "margin_map.png", plt))
-    fig, ax = plt.subplots(figsize=(1.6 + 1.3 * len(objectives), 3.4))
+        written.append(_save(fig, folder / "margin_map.png"))
+    fig = _figure(1.6 + 1.3 * len(objectives), 3.4)
+    ax = fig.subplots()
     solved_share(ax, rows, objectives)
-    written.append(_save(fig, folder / "solved_share.png", plt))
+    written.append(_save(fig, folder / "solved_share.png"))
     return written
 
 
-def _save(fig, path: Path, plt) -> Path:
+def _save(fig, path: Path) -> Path:
     from ..files import atomic_output
 
     fig.tight_layout()
     with atomic_output(path, suffix=".png") as tmp:
-        fig.savefig(tmp, dpi=110, format="png")
-    plt.close(fig)
+        fig.savefig(tmp, format="png")
     return path
 
 
-def margin_against(ax, rows, axis, axes, objectives, label) -> None:
-    """Smallest exact margin against one parameter, one line per objective."""
+def margin_against(ax, rows, axis, axes, objectives, label, column=MARGIN) -> None:
+    """An exact margin (``column``: smallest or mean over the knots) against one parameter, one line per objective."""
     for objective in objectives:
         mine = [r for r in rows if r["objective"] == objective and r["status"] == "solved"]
         xs = sorted({_number(r[axis]) for r in mine})
         if not xs:
             continue
-        groups = [[_number(r.get(MARGIN)) for r in mine if _number(r[axis]) == x] for x in xs]
+        groups = [[_number(r.get(column)) for r in mine if _number(r[axis]) == x] for x in xs]
         mid = [np.nanmedian(g) for g in groups]
-        ax.plot(xs, mid, "o-", color=colour(objective), label=objective, lw=1.8, ms=4)
+        ax.plot(xs, mid, **palette.line_style(objective))
         if len(axes) > 1:
             ax.fill_between(xs, [np.nanmin(g) for g in groups], [np.nanmax(g) for g in groups],
                             color=colour(objective), alpha=0.15, lw=0)
-    ax.axhline(0.0, color="#999999", lw=0.8)
+    ax.axhline(0.0, color=palette.MUTED, lw=0.8)
     ax.set_xlabel(label)
-    ax.set_ylabel("smallest exact margin [N]")
-    note = " (median; band: range over the other axes)" if len(axes) > 1 else ""
-    ax.set_title(f"Margin against {label}{note}", fontsize=9)
-    ax.grid(alpha=0.3)
+    what = "smallest" if column == MARGIN else "mean"
+    ax.set_ylabel(f"{what} exact margin over the knots [N]")
+    note = "\nmedian over the other axes; band: their range" if len(axes) > 1 else ""
+    ax.set_title(f"{what.capitalize()} exact margin against {label}{note}")
     if ax.get_legend_handles_labels()[0]:
         ax.legend(fontsize=8, title="objective", title_fontsize=8)
 
 
 def margin_map(fig, ax, rows, x_axis, y_axis, objective, labels) -> None:
-    """Smallest exact margin over two parameters; crosses where the variant did not solve."""
+    """Smallest exact margin over two parameters; crosses where the variant did not solve.
+
+    On a full grid each variant is a cell and the boundary where variants
+    stop solving is drawn along the cell edges; scattered samples are drawn
+    as points (that boundary is then left to the eye).
+    """
     mine = [r for r in rows if r["objective"] == objective]
     x = np.array([_number(r[x_axis]) for r in mine])
     y = np.array([_number(r[y_axis]) for r in mine])
     ok = np.array([r["status"] == "solved" for r in mine])
     value = np.array([_number(r.get(MARGIN)) if r["status"] == "solved" else np.nan for r in mine])
-    finite = ok & np.isfinite(value)
-    if finite.any():
-        points = ax.scatter(x[finite], y[finite], c=value[finite], cmap="viridis", s=260, marker="s",
-                            edgecolors="none", vmin=0.0)
-        fig.colorbar(points, ax=ax, label="smallest exact margin [N]")
-        for xi, yi, vi in zip(x[finite], y[finite], value[finite]):
-            ax.annotate(f"{vi:.0f}", (xi, yi), ha="center", va="center", fontsize=6.5,
-                        color="white" if vi < 0.6 * np.nanmax(value[finite]) else "black")
+    xs, ys = np.unique(x), np.unique(y)
+    top = np.nanmax(value) if np.isfinite(value).any() else 1.0
+    if len(xs) * len(ys) == len(mine) and len(xs) > 1 and len(ys) > 1:
+        _grid_map(fig, ax, x, y, ok, value, xs, ys, top)
+    else:
+        finite = ok & np.isfinite(value)
+        if finite.any():
+            points = ax.scatter(x[finite], y[finite], c=value[finite], cmap="viridis", s=40, vmin=0.0, vmax=top)
+            fig.colorbar(points, ax=ax, label="smallest exact margin [N]")
+        ax.margins(0.08)
     if (~ok).any():
-        ax.scatter(x[~ok], y[~ok], marker="x", color="#c0392b", s=60, label="not solved")
-        ax.legend(fontsize=7, loc="upper right")
-    if ok.any() and (~ok).any() and len(set(x)) > 1 and len(set(y)) > 1:
-        try:
-            ax.tricontour(x, y, ok.astype(float), levels=[0.5], colors="#c0392b", linewidths=1.4)
-        except (ValueError, RuntimeError):  # points on a line: no triangulation, no boundary
-            pass
+        ax.scatter(x[~ok], y[~ok], marker="x", color=palette.DANGER, s=50, zorder=3)
+    ax.set_facecolor(UNSOLVED)
     ax.set_xlabel(labels[x_axis])
     ax.set_ylabel(labels[y_axis])
-    ax.set_title(f"{objective}: smallest exact margin", fontsize=9, color=colour(objective))
+    ax.set_title(f"{objective}: smallest exact margin [N]" + ("  (x: not solved)" if (~ok).any() else ""),
+                 color=colour(objective))
+    ax.grid(False)
+
+
+def _edges(centres: np.ndarray) -> np.ndarray:
+    """Cell edges around sorted cell centres (midpoints, the outer cells mirrored)."""
+    mid = 0.5 * (centres[1:] + centres[:-1])
+    return np.concatenate([[2 * centres[0] - mid[0]], mid, [2 * centres[-1] - mid[-1]]])
+
+
+def _grid_map(fig, ax, x, y, ok, value, xs, ys, top) -> None:
+    grid = np.full((len(ys), len(xs)), np.nan)
+    solved = np.zeros((len(ys), len(xs)), dtype=bool)
+    for xi, yi, oi, vi in zip(x, y, ok, value):
+        i, j = int(np.searchsorted(ys, yi)), int(np.searchsorted(xs, xi))
+        grid[i, j], solved[i, j] = vi, oi
+    ex, ey = _edges(xs), _edges(ys)
+    mesh = ax.pcolormesh(ex, ey, np.ma.masked_invalid(grid), cmap="viridis", vmin=0.0, vmax=top,
+                         edgecolors="white", linewidth=0.5)
+    fig.colorbar(mesh, ax=ax, label="smallest exact margin [N]")
+    for i, yi in enumerate(ys):
+        for j, xi in enumerate(xs):
+            if solved[i, j] and np.isfinite(grid[i, j]):
+                ax.text(xi, yi, f"{grid[i, j]:.0f}", ha="center", va="center", fontsize=7,
+                        color="white" if grid[i, j] < 0.55 * top else palette.INK)
+    for i in range(len(ys)):            # the boundary: cell edges between solved and unsolved neighbours
+        for j in range(len(xs)):
+            if j + 1 < len(xs) and solved[i, j] != solved[i, j + 1]:
+                ax.plot([ex[j + 1]] * 2, [ey[i], ey[i + 1]], color=palette.DANGER, lw=2.0)
+            if i + 1 < len(ys) and solved[i, j] != solved[i + 1, j]:
+                ax.plot([ex[j], ex[j + 1]], [ey[i + 1]] * 2, color=palette.DANGER, lw=2.0)
+    ax.set_xlim(ex[0], ex[-1])
+    ax.set_ylim(ey[0], ey[-1])
 
 
 def solved_share(ax, rows, objectives) -> None:

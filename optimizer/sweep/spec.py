@@ -61,12 +61,15 @@ class Axis:
     model: str = ""
 
     @property
+    def sets(self) -> str:
+        """What the axis sets: the dotted task field or the model quantity."""
+        return self.model or field_text(self.field)
+
+    @property
     def label(self) -> str:
-        """What the axis sets, for reports: the dotted field or the model quantity."""
-        if self.model:
-            unit = MODEL_QUANTITIES[self.model][0]
-            return f"{self.model} [{unit}]" if unit else self.model
-        return field_text(self.field)
+        """The axis name for figures, with the model quantity's unit."""
+        unit = MODEL_QUANTITIES[self.model][0] if self.model else ""
+        return f"{self.name} [{unit}]" if unit else self.name
 
 
 @dataclass(frozen=True)

@@ -37,7 +37,7 @@ TRAILING = ("objective", "status", "reason") + FIGURES + ("warm_start_from", "wo
 def manifest_for(sweep) -> dict:
     return {"format": FORMAT, "software": {"name": "brace", "version": __version__}, "name": sweep.name,
             "sweep_file": str(sweep.path), "fingerprint": sweep.fingerprint, "sweep": sweep.raw,
-            "axes": [{"name": a.name, "sets": a.label} for a in sweep.axes], "objectives": sweep.objectives,
+            "axes": [{"name": a.name, "sets": a.sets, "label": a.label} for a in sweep.axes], "objectives": sweep.objectives,
             "variants": [{"id": v.id, "values": v.values} for v in sweep.variants]}
 
 
