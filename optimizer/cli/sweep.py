@@ -105,8 +105,9 @@ class ProgressLine:
         filled = int(self.WIDTH * progress.done / max(progress.total, 1))
         left = progress.seconds_left()
         eta = "" if left is None else f"  about {_duration(left)} left"
+        failed = progress.failed + progress.reused - progress.reused_solved
         text = (f"[{'#' * filled}{'-' * (self.WIDTH - filled)}] {progress.done:4d}/{progress.total}  solved "
-                f"{progress.solved + progress.reused}  failed {progress.failed}  remaining {progress.remaining}{eta}")
+                f"{progress.solved + progress.reused_solved}  failed {failed}  remaining {progress.remaining}{eta}")
         if self.live:
             self.stream.write("\r" + text.ljust(100))
         else:
@@ -154,9 +155,11 @@ def warm_start_lines(rows: list) -> list[str]:
     if not warm or not cold:
         return []
     mean_warm, mean_cold = sum(warm) / len(warm), sum(cold) / len(cold)
-    return [f"  neighbour warm starts: {len(warm)} results, mean {mean_warm:.1f} solver iterations against "
-            f"{mean_cold:.1f} for {len(cold)} cold starts ({100 * (1 - mean_warm / mean_cold):+.0f} % saved; "
-            "different variants, so indicative only: benchmarks/sweep.py measures it on equal terms)"]
+    change = 100 * (mean_warm / mean_cold - 1) if mean_cold else 0.0
+    words = f"{abs(change):.0f} % {'fewer' if change < 0 else 'more'}"
+    return [f"  neighbour warm starts: {len(warm)} results, mean {mean_warm:.1f} solver iterations (seed + "
+            f"objective) against {mean_cold:.1f} for {len(cold)} cold starts ({words}; other variants, so "
+            "indicative only: benchmarks/RESULTS.md compares the same sweep with and without)"]
 
 
 @contextlib.contextmanager

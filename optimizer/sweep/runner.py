@@ -31,6 +31,7 @@ class Progress:
 
     total: int
     reused: int = 0
+    reused_solved: int = 0
     solved: int = 0
     failed: int = 0
     started: float = field(default_factory=time.perf_counter)
@@ -77,12 +78,20 @@ def run_sweep(sweep, out, engine, report=None) -> SweepOutcome:
     texts = read_text(base_task.robot_path) + base_task.robot.urdf_text
     manifest = store.open_results(out, sweep)
     jobs, progress = [], Progress(total=len(sweep.variants) * len(sweep.objectives))
+    current = {}
     for variant in sweep.variants:
         mapping = variant_mapping(base, sweep.axes, variant.values, sweep.knots, sweep.time_limit)
         model = model_values(sweep.axes, variant.values)
         digests = {o: inputs_digest(mapping, model, o, texts) for o in sweep.objectives}
-        todo = [o for o in sweep.objectives if not store.is_done(out, variant.id, o, digests[o])]
-        progress.reused += len(sweep.objectives) - len(todo)
+        current.update({(variant.id, o): d for o, d in digests.items()})
+        todo = []
+        for objective in sweep.objectives:
+            record = store.stored(out, variant.id, objective, digests[objective])
+            if record is None:
+                todo.append(objective)
+            else:
+                progress.reused += 1
+                progress.reused_solved += record.get("status") == SOLVED
         if todo:
             jobs.append((variant, VariantJob(variant.id, variant.values, mapping, str(sweep.task_path), model, todo,
                                              sweep.time_limit), digests))
@@ -92,7 +101,7 @@ def run_sweep(sweep, out, engine, report=None) -> SweepOutcome:
         engine.close()
     except KeyboardInterrupt:
         interrupted = True
-    rows = store.records(out, manifest)
+    rows = store.records(out, manifest, current)
     written = store.write_summary(out, manifest, rows)
     return SweepOutcome(progress, interrupted, time.perf_counter() - progress.started, rows, written,
                         engine.describe())

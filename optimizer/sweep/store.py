@@ -102,12 +102,14 @@ def plan_path(out, variant: str, objective: str) -> Path:
     return Path(out) / "plans" / f"{variant}-{objective}.npz"
 
 
-def is_done(out, variant: str, objective: str, digest: str) -> bool:
-    """A record made from the same inputs exists (and its plan, when it solved)."""
+def stored(out, variant: str, objective: str, digest: str) -> dict | None:
+    """The record made from the same inputs (with its plan, when it solved), or None."""
     record = read_record(record_path(out, variant, objective))
     if record is None or record.get("inputs") != digest:
-        return False
-    return record.get("status") != "solved" or plan_path(out, variant, objective).is_file()
+        return None
+    if record.get("status") == "solved" and not plan_path(out, variant, objective).is_file():
+        return None
+    return record
 
 
 def read_record(path: Path) -> dict | None:
@@ -149,13 +151,19 @@ def clean(value):
     return value
 
 
-def records(out, manifest: dict) -> list[dict]:
-    """The stored records of the manifest's variants and objectives, in sweep order."""
+def records(out, manifest: dict, digests: dict | None = None) -> list[dict]:
+    """The stored records of the manifest's variants and objectives, in sweep order.
+
+    With ``digests`` (``{(variant, objective): inputs hash}``) only records
+    made from those inputs count (stale ones are solved again, not summarized).
+    """
     rows = []
     for variant in manifest["variants"]:
         for objective in manifest["objectives"]:
             record = read_record(record_path(out, variant["id"], objective))
-            if record is not None:
+            if record is None:
+                continue
+            if digests is None or record.get("inputs") == digests.get((variant["id"], objective)):
                 rows.append(record)
     return rows
 
