@@ -13,6 +13,7 @@ import xml.etree.ElementTree as ET
 import numpy as np
 
 from ..errors import ModelError
+from .model import load_robot
 
 PAYLOAD_LINK = "brace_payload"
 PAYLOAD_RADIUS = 0.03  # m; the payload is a solid sphere centred on the hand frame
@@ -46,8 +47,6 @@ def with_payload(robot, mass: float):
     """``robot`` holding ``mass`` kg at its hand frame (a new model; 0 kg returns ``robot``)."""
     if mass == 0.0:
         return robot
-    from .model import load_robot
-
     text = urdf_with_payload(robot.urdf_text, robot.hand_frame, mass, robot.urdf_path)
     derived = load_robot(robot.yaml_path, urdf_text=text)
     return dataclasses.replace(derived, torque_lower=robot.torque_lower.copy(),

@@ -15,6 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..files import atomic_output
 from ..report import palette
 from ..report.palette import colour
 
@@ -69,8 +70,6 @@ def _draw(out, manifest: dict, rows: list[dict]) -> list[Path]:
 
 
 def _save(fig, path: Path) -> Path:
-    from ..files import atomic_output
-
     fig.tight_layout()
     with atomic_output(path, suffix=".png") as tmp:
         fig.savefig(tmp, format="png")

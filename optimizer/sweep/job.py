@@ -18,6 +18,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..analysis.certify import certify_plan
+from ..analysis.failure import diagnose, report_lines
+from ..analysis.presolve import run_checks
+from ..errors import InputError
+from ..planner import Planner
+from .variant import build_task
+
 SOLVED, FAILED, TIMEOUT, ERROR = "solved", "failed", "timeout", "error"
 _ONE_AT_A_TIME = threading.Lock()  # a worker with several threads shares one solver cache: solve in turn
 
@@ -75,13 +82,18 @@ def run_variant(job: VariantJob) -> VariantResult:
         return VariantResult(job.id, [_failure(job, base, o, ERROR, text, started) for o in job.objectives])
 
 
-def _solve_variant(job: VariantJob, base: dict, started: float) -> VariantResult:
-    from ..analysis.presolve import run_checks
-    from ..errors import InputError
-    from ..planner import SolveOutcome, _run_stage
-    from ..transcription.guess import initial_guess
-    from .variant import build_task
+_PLANNER = None
 
+
+def worker_planner():
+    """This worker process's planner: its built solvers serve every variant of one shape."""
+    global _PLANNER
+    if _PLANNER is None:
+        _PLANNER = Planner()
+    return _PLANNER
+
+
+def _solve_variant(job: VariantJob, base: dict, started: float) -> VariantResult:
     try:
         task = build_task(job.mapping, job.task_path, job.model)
     except InputError as exc:
@@ -91,48 +103,38 @@ def _solve_variant(job: VariantJob, base: dict, started: float) -> VariantResult
     if proven:
         reason = "pre-solve: " + proven[0].text()
         return VariantResult(job.id, [_failure(job, base, o, FAILED, reason, started) for o in job.objectives])
-    seed = SolveOutcome(task, "feasible", None)
-    start = _warm(job, "feasible") or initial_guess(task)
-    arrays, result = _run_stage(task, "feasible", start, seed, **_STAGE)
+    planner = worker_planner()
+    seed = planner.seed(task, start=job.warm.get("feasible"))
     out = VariantResult(job.id, [])
-    if not result.success:
-        status, reason = _stage_failure(seed)
-        out.results = [_failure(job, base, o, status, "feasibility seed: " + reason, started, seed) for o in job.objectives]
+    if not seed.success:
+        status, reason = _stage_failure(seed.outcome)
+        out.results = [_failure(job, base, o, status, "feasibility seed: " + reason, started, seed.outcome)
+                       for o in job.objectives]
         return out
-    out.arrays["feasible"] = _portable(arrays)
-    building = seed.stages[0].build_time        # building a solver is not the variant's time
+    out.arrays["feasible"] = _portable(seed.arrays)
+    building = seed.outcome.stages[0].build_time        # building a solver is not the variant's time
     for objective in job.objectives:
         if time.perf_counter() - started - building > job.time_limit:
             out.results.append(_failure(job, base, objective, TIMEOUT,
                                         f"the variant's time limit of {job.time_limit:g} s ran out before this objective",
-                                        started, seed))
+                                        started, seed.outcome))
             continue
-        result = _solve_objective(job, base, task, objective, arrays, seed, started, out.arrays)
-        building += result.record.get("build_time_s", seed.stages[0].build_time) - seed.stages[0].build_time
+        outcome = planner.solve_from_seed(seed, objective, start=job.warm.get(objective))
+        building += sum(s.build_time for s in outcome.stages[1:])
+        result = _objective_result(job, base, objective, outcome, started, out.arrays)
+        if out.results:  # the seed's build is counted once, with the variant's first result
+            result.record["build_time_s"] -= seed.outcome.stages[0].build_time
         out.results.append(result)
     return out
 
 
-_STAGE = dict(progress=None, log_path=None, expand=True, torque_gains="eliminated")
-
-
-def _solve_objective(job, base, task, objective, seed_arrays, seed, started, keep) -> ObjectiveResult:
-    from ..planner import SolveOutcome, _finished_plan, _initial_gains, _run_stage
-    from ..transcription.objectives import objective_named
-
-    outcome = SolveOutcome(task, objective, None, stages=list(seed.stages))
-    arrays = seed_arrays
+def _objective_result(job, base, objective, outcome, started, keep) -> ObjectiveResult:
+    if outcome.plan is None:
+        status, reason = _stage_failure(outcome)
+        return _failure(job, base, objective, status, f"{objective} stage: {reason}", started, outcome)
     if objective != "feasible":
-        start = _warm(job, objective)
-        if start is None:
-            start = dict(seed_arrays, **_initial_gains(task, seed_arrays)) if objective_named(objective).robust \
-                else seed_arrays
-        arrays, result = _run_stage(task, objective, start, outcome, **_STAGE)
-        if not result.success:
-            status, reason = _stage_failure(outcome)
-            return _failure(job, base, objective, status, f"{objective} stage: {reason}", started, outcome)
-        keep[objective] = _portable(arrays)
-    plan = _finished_plan(task, objective, arrays, outcome)
+        keep[objective] = _portable(outcome.last)
+    plan = outcome.plan
     record = dict(base, objective=objective, status=SOLVED, reason="")
     record.update(_stage_figures(outcome))
     record.update(plan_figures(plan))
@@ -141,22 +143,12 @@ def _solve_objective(job, base, task, objective, seed_arrays, seed, started, kee
     return ObjectiveResult(objective, record, plan)
 
 
-def _warm(job: VariantJob, stage: str):
-    """The neighbour's arrays for ``stage`` without the limit rooms (recomputed for this variant's numbers)."""
-    arrays = job.warm.get(stage)
-    if not arrays:
-        return None
-    return {k: np.asarray(v) for k, v in arrays.items() if k != "rooms"}
-
-
 def _portable(arrays: dict) -> dict:
     return {k: np.array(v, copy=True) for k, v in arrays.items()}
 
 
 def _stage_failure(outcome) -> tuple[str, str]:
     """(status, reason) of a failed stage, the reason from the failure diagnosis."""
-    from ..analysis.failure import diagnose, report_lines
-
     stage = outcome.stages[-1]
     status = TIMEOUT if stage.status == "time-limit" else FAILED
     head = f"{stage.status} after {stage.iterations} iterations"
@@ -204,8 +196,6 @@ def plan_figures(plan) -> dict:
 
 def _exact_figures(plan) -> dict:
     """The exact smallest unrejectable force of every knot (``brace certify``'s figure) [N], and its time [s]."""
-    from ..analysis.certify import certify_plan
-
     started = time.perf_counter()
     certificate = certify_plan(plan)
     rho = np.array([c.rho for c in certificate.knots], float)

@@ -15,10 +15,11 @@ import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from ..files import read_text, read_yaml_mapping
 from ..errors import SweepError
+from ..files import read_text, read_yaml_mapping
+from ..problem.task import load_task
 from . import store
-from .job import ERROR, SOLVED, ObjectiveResult, VariantJob
+from .job import ERROR, SOLVED, ObjectiveResult, VariantJob, VariantResult
 from .spec import axis_spans, nearest
 from .variant import inputs_digest, model_values, variant_mapping
 
@@ -70,8 +71,6 @@ def run_sweep(sweep, out, engine, report=None) -> SweepOutcome:
     ``report(progress)`` is called after every stored result. Returns a
     :class:`SweepOutcome`; the summary is written even when interrupted.
     """
-    from ..problem.task import load_task
-
     out = Path(out)
     base_task = load_task(sweep.task_path)   # a bad base task stops here, with its own one-line error
     base = read_yaml_mapping(sweep.task_path, SweepError)
@@ -147,8 +146,6 @@ def _attach_neighbour(job, variant, solved, axes, spans) -> None:
 
 def _collect(engine, future, job):
     """The job's result; a job whose worker died or raised becomes error records."""
-    from .job import VariantResult
-
     try:
         return engine.result(future)
     except Exception as exc:  # e.g. a worker process killed by the system

@@ -24,6 +24,7 @@ from pathlib import Path
 from .. import __version__
 from ..errors import SweepError
 from ..files import atomic_output
+from ..planfile import save_plan
 
 MANIFEST = "sweep.json"
 FORMAT = "sweep-results/1"
@@ -122,8 +123,6 @@ def read_record(path: Path) -> dict | None:
 
 def save_result(out, result, digest: str) -> dict:
     """Store one objective's result: the plan (if any), then its record. Returns the record."""
-    from ..planfile import save_plan
-
     record = dict(result.record, inputs=digest, plan="")
     if result.plan is not None:
         path = plan_path(out, record["variant"], result.objective)

@@ -15,6 +15,8 @@ import json
 from pathlib import Path
 
 from .. import __version__
+from ..problem.task import task_from_mapping
+from ..robot.derived import with_payload, with_torque_scale
 
 
 def variant_mapping(base: dict, axes, values: dict, knots: int | None, time_limit: float) -> dict:
@@ -48,9 +50,6 @@ def build_task(mapping: dict, task_path, model: dict):
     Raises ``TaskError`` (a value the task schema refuses, footholds out of
     reach) like a task file would.
     """
-    from ..problem.task import task_from_mapping
-    from ..robot.derived import with_payload, with_torque_scale
-
     task = task_from_mapping(copy.deepcopy(mapping), Path(task_path))
     robot = with_torque_scale(with_payload(task.robot, model["payload_mass"]), model["torque_scale"])
     return task if robot is task.robot else dataclasses.replace(task, robot=robot)
