@@ -55,7 +55,7 @@ def run(args) -> int:
     with _sigterm_interrupts():
         outcome = run_sweep(sweep, out, engine, report=line)
     line.finish()
-    figures = _figures(out)
+    figures = _figures(out, outcome.rows)
     print("\n".join(summary_lines(outcome, out, figures)))
     print(SAFETY)
     if outcome.interrupted:
@@ -72,7 +72,7 @@ def report(out: Path) -> int:
     manifest = store.read_manifest(out)
     rows = store.records(out, manifest)
     written = store.write_summary(out, manifest, rows)
-    figures = _figures(out)
+    figures = _figures(out, rows)
     print(f"brace sweep: {len(rows)} result(s) of '{manifest['name']}' in {out}")
     for path in written + figures:
         print(f"  {path}")
@@ -81,12 +81,11 @@ def report(out: Path) -> int:
     return 0
 
 
-def _figures(out: Path) -> list:
-    from ..sweep.figures import draw_figures
+def _figures(out: Path, rows: list) -> list:
     from ..sweep import store
+    from ..sweep.figures import draw_figures
 
-    manifest = store.read_manifest(out)
-    return draw_figures(out, manifest, store.records(out, manifest))
+    return draw_figures(out, store.read_manifest(out), rows)
 
 
 class ProgressLine:
