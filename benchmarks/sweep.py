@@ -58,20 +58,25 @@ def one_run(folder: Path, knots: int, workers: int, warm: str) -> dict:
     wall = time.perf_counter() - started
     rows = outcome.rows
     solved = [r for r in rows if r["status"] == "solved"]
-    iterations = sum((r.get("seed_iterations") or 0) + (r.get("iterations") or 0) for r in rows)
-    solver = sum((r.get("seed_time_s") or 0.0) + (r.get("solve_time_s") or 0.0) for r in rows)
-    return {"workers": workers, "warm": warm, "wall": wall, "variants": len(sweep.variants),
+    seeds = {r["variant"]: r for r in rows}          # one seed per variant, shared by its objectives
+    iterations = sum(r.get("iterations") or 0 for r in rows) + sum(r.get("seed_iterations") or 0 for r in seeds.values())
+    solver = sum(r.get("solve_time_s") or 0.0 for r in rows) + sum(r.get("seed_time_s") or 0.0 for r in seeds.values())
+    stages = {"seed": sum(r.get("seed_iterations") or 0 for r in seeds.values())}
+    for objective in sweep.objectives:
+        stages[objective] = sum(r.get("iterations") or 0 for r in rows if r["objective"] == objective)
+    return {"workers": workers, "warm": warm, "wall": wall, "variants": len(sweep.variants), "stages": stages,
             "per_minute": 60.0 * len(sweep.variants) / wall, "solved": len(solved), "results": len(rows),
             "iterations": iterations, "solver_s": solver, "load_before": before, "load_after": load()}
 
 
 def table(runs: list[dict]) -> list[str]:
-    lines = ["| workers | warm start | wall [s] | variants / min | results solved | Ipopt iterations (sum) "
-             "| solver time (sum) [s] | load before / after (1, 5, 15 min) |",
+    lines = ["| workers | warm start | wall [s] | variants / min | results solved | Ipopt iterations: seed / robust "
+             "/ torque = total | solver time (sum) [s] | load before / after (1, 5, 15 min) |",
              "| ---: | --- | ---: | ---: | ---: | ---: | ---: | --- |"]
     for r in runs:
+        stages = " / ".join(str(n) for n in r["stages"].values())
         lines.append(f"| {r['workers']} | {r['warm']} | {r['wall']:.0f} | {r['per_minute']:.2f} | "
-                     f"{r['solved']}/{r['results']} | {r['iterations']} | {r['solver_s']:.0f} | "
+                     f"{r['solved']}/{r['results']} | {stages} = {r['iterations']} | {r['solver_s']:.0f} | "
                      f"{r['load_before']} -> {r['load_after']} |")
     return lines
 
@@ -82,8 +87,10 @@ def ratios(runs: list[dict]) -> list[str]:
     for workers in (1, 2):
         cold, warm = by.get((workers, "none")), by.get((workers, "neighbour"))
         if cold and warm:
+            per_stage = ", ".join(f"{name} {warm['stages'][name] / max(cold['stages'][name], 1):.2f}"
+                                  for name in cold["stages"])
             out.append(f"- {workers} worker(s): warm / cold Ipopt iterations "
-                       f"{warm['iterations'] / cold['iterations']:.2f}, solver time "
+                       f"{warm['iterations'] / cold['iterations']:.2f} ({per_stage}), solver time "
                        f"{warm['solver_s'] / cold['solver_s']:.2f}, wall time {warm['wall'] / cold['wall']:.2f}.")
     for warm in ("none", "neighbour"):
         one, two = by.get((1, warm)), by.get((2, warm))

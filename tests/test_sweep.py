@@ -256,3 +256,11 @@ def test_payload_at_the_hand_adds_its_weight_at_the_hand(tmp_path):
     weaker = with_torque_scale(robot, 0.8)
     assert weaker.torque_upper == pytest.approx(0.8 * robot.torque_upper)
     assert weaker.torque_lower == pytest.approx(0.8 * robot.torque_lower)
+
+
+def test_the_demo_sweep_file_is_valid():
+    from optimizer.sweep.spec import load_sweep
+
+    demo = load_sweep(ROOT / "tasks" / "sweeps" / "ramp.yaml")
+    assert demo.task_path == RAMP.resolve() and demo.objectives == ["robust", "torque"]
+    assert len(demo.variants) == 20 and demo.variants[0].values == {"slope_deg": 10.0, "friction": 0.55}

@@ -163,13 +163,17 @@ def _grid_map(fig, ax, x, y, ok, value, xs, ys, top) -> None:
 
 
 def solved_share(ax, rows, objectives) -> None:
-    shares = []
+    shares, counts = [], []
     for objective in objectives:
         mine = [r for r in rows if r["objective"] == objective]
-        shares.append(100.0 * sum(r["status"] == "solved" for r in mine) / max(len(mine), 1))
-    ax.bar(objectives, shares, color=[colour(o) for o in objectives])
-    for i, share in enumerate(shares):
-        ax.text(i, share + 1.5, f"{share:.0f} %", ha="center", fontsize=8)
+        solved = sum(r["status"] == "solved" for r in mine)
+        shares.append(100.0 * solved / max(len(mine), 1))
+        counts.append(f"{shares[-1]:.0f} % ({solved} of {len(mine)})")
+    ax.set_axisbelow(True)
+    ax.grid(axis="x", visible=False)
+    ax.bar(objectives, shares, color=[colour(o) for o in objectives], width=0.6)
+    for i, text in enumerate(counts):
+        ax.text(i, shares[i] + 1.5, text, ha="center", fontsize=8)
     ax.set_ylim(0, 110)
     ax.set_ylabel("variants solved [%]")
     ax.set_title("Solved per objective", fontsize=9)

@@ -6,7 +6,7 @@ A sweep file is a YAML mapping (schema in docs/sweep-files.md)::
     objectives: [robust, torque]
     knots: 10                          # optional: override the task's knots
     time_limit_s: 300                  # optional: per variant, all objectives
-    warm_start: neighbour              # or none
+    warm_start: none                   # or neighbour
     axes:
       slope_deg: {field: stance.terrain.slope_deg}
       friction: {field: stance.terrain.friction}
@@ -148,7 +148,7 @@ def load_sweep(path) -> Sweep:
         objectives=read_objectives(top),
         knots=top.integer("knots", None, lo=2, hi=2000) if top.has("knots") else None,
         time_limit=top.number("time_limit_s", DEFAULT_TIME_LIMIT, lo=0.0, lo_open=True),
-        warm_start=top.string("warm_start", "neighbour", choices=WARM_STARTS),
+        warm_start=top.string("warm_start", "none", choices=WARM_STARTS),
         axes=axes,
         variants=read_variants(top, axes),
         raw=raw,
