@@ -1,4 +1,4 @@
-"""The best margin a linear response can certify at a fixed knot (FORMULATION 4).
+"""The best margin a linear response can certify at a fixed knot (docs/formulation.md section 6).
 
 With the knot's state, torques and forces fixed, the response problem reads
 ``A_ub x <= b_ub, A_eq x = 0`` in ``x = (u, dlambda)`` (see

@@ -16,12 +16,15 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+import pinocchio as pin
 
 from ..errors import InfeasibleTask, TaskError
 from ..files import read_yaml_mapping
+from ..robot.model import load_robot
 from ..schema import Fields
 from .friction import tangent_basis
 from .requirement import horizon_requirement, read_requirements
+from .stance import foot_residuals, solve_stance
 from .terrain import build_terrain
 
 OBJECTIVES = ("feasible", "robust", "robust-min", "torque")
@@ -220,8 +223,6 @@ def task_from_mapping(data: dict, path) -> Task:
 
 def read_robot(top: Fields):
     """Robot file path (resolved against the task's folder) and the loaded robot."""
-    from ..robot.model import load_robot
-
     robot_path = (Path(top.file).parent / top.string("robot")).resolve()
     if not robot_path.is_file():
         top.fail("robot", "an existing robot file (path relative to the task file's folder)", str(robot_path))
@@ -430,10 +431,6 @@ def read_initial_posture(top: Fields, robot, contacts) -> np.ndarray | None:
 
 def solve_stance_hinted(hints: Fields, robot, contacts) -> np.ndarray:
     """The stance IK with the optional base pose and joint hints of ``hints``."""
-    import pinocchio as pin
-
-    from .stance import solve_stance
-
     hints.allow_only({"base_position", "base_rpy_deg", "joints"})
     guess, base = np.array(robot.standing_posture, dtype=float), None
     if hints.has("base_position") or hints.has("base_rpy_deg"):
@@ -459,8 +456,6 @@ def solve_stance_hinted(hints: Fields, robot, contacts) -> np.ndarray:
 
 def read_posture_list(top: Fields, robot, contacts) -> np.ndarray:
     """nq numbers: unit base quaternion, joints within limits, feet on their footholds."""
-    from .stance import foot_residuals
-
     q = top.vector("initial_posture", robot.nq)
     quat = np.linalg.norm(q[3:7])
     if abs(quat - 1.0) > UNIT_TOLERANCE:
