@@ -104,9 +104,13 @@ def plan_path(out, variant: str, objective: str) -> Path:
 
 
 def stored(out, variant: str, objective: str, digest: str) -> dict | None:
-    """The record made from the same inputs (with its plan, when it solved), or None."""
+    """The record made from the same inputs (with its plan, when it solved), or None.
+
+    ``error`` records (an exception or a lost worker, not an answer about
+    the variant) count as not done, so the next run tries them again.
+    """
     record = read_record(record_path(out, variant, objective))
-    if record is None or record.get("inputs") != digest:
+    if record is None or record.get("inputs") != digest or record.get("status") == "error":
         return None
     if record.get("status") == "solved" and not plan_path(out, variant, objective).is_file():
         return None
