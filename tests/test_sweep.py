@@ -131,9 +131,15 @@ def test_report_rebuilds_summary_and_figures_from_the_folder(pool_run, tmp_path)
 
 def _start(sweep: Path, out: Path) -> subprocess.Popen:
     env = dict(os.environ, OPENBLAS_NUM_THREADS="1", MPLBACKEND="Agg", PYTHONPATH=str(ROOT))
+    # A terminal's Ctrl-C reaches a process whose SIGINT is at its default; an ignored SIGINT would be
+    # inherited from the test process (some tools ignore it), so the child starts with the default.
     return subprocess.Popen([sys.executable, "-m", "optimizer", "sweep", str(sweep), "--out", str(out),
                              "--workers", "1"], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env,
-                            start_new_session=True)
+                            start_new_session=True, preexec_fn=_default_sigint)
+
+
+def _default_sigint() -> None:
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
 
 
 def _wait_for_records(out: Path, count: int, process, limit: float = 300.0) -> int:
