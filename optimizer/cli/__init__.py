@@ -20,12 +20,16 @@ COMMANDS = {
     "check-model": "optimizer.cli.check_model",
     "solve": "optimizer.cli.solve",
     "certify": "optimizer.cli.certify",
+    "compare": "optimizer.cli.compare",
+    "report": "optimizer.cli.report",
 }
 
 COMMAND_HELP = {
     "check-model": "inspect a robot file: mass, frames, limits, standing statics",
     "solve": "plan a whole-body motion for a task file and write a plan file",
     "certify": "compute the exact smallest unrejectable force of a plan, knot by knot",
+    "compare": "plan a task with several objectives and compare them: table, figures, motion preview, HTML page",
+    "report": "draw and compare existing plan files: figures, motion preview and an HTML page",
 }
 
 

@@ -17,7 +17,7 @@ from ..errors import InputError
 from ..files import atomic_output
 from ..planfile import load_plan
 
-from .notices import MODEL_ONLY, SAFETY
+from ..notices import MODEL_ONLY, SAFETY
 
 HELP = "compute the exact smallest unrejectable force of a plan, knot by knot"
 CLI = "command line"

@@ -25,7 +25,7 @@ import numpy as np
 from ..errors import InputError, OutputError
 from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
-from .notices import SAFETY
+from ..notices import SAFETY
 
 if TYPE_CHECKING:
     from ..planner import SolveOutcome

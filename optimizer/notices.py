@@ -1,4 +1,4 @@
-"""Cautions printed under every plan and certification report."""
+"""Cautions printed under every plan, certification report and comparison page."""
 
 SAFETY = ("Safety: this plan is not validated on hardware. Check it in simulation first, run it at "
           "reduced speed and torque limits in a cleared area with an emergency stop at hand, and "
