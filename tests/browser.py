@@ -9,6 +9,7 @@ loads, and saves a full-page screenshot.
 from __future__ import annotations
 
 import base64
+import fcntl
 import json
 import os
 import select
@@ -39,13 +40,16 @@ class Pipe:
     def __init__(self, browser: str, profile: str):
         to_browser_r, self.to_browser = os.pipe()
         self.from_browser, from_browser_w = os.pipe()
-        # Chromium reads commands on fd 3 and writes replies on fd 4; the shell puts the pipe ends there.
-        redirect = f'exec "$0" "$@" 3<&{to_browser_r} 4>&{from_browser_w}'
+        # Chromium reads commands on fd 3 and writes replies on fd 4.
+        def onto_3_and_4():
+            high = [fcntl.fcntl(fd, fcntl.F_DUPFD, 10) for fd in (to_browser_r, from_browser_w)]
+            os.dup2(high[0], 3)
+            os.dup2(high[1], 4)
+
         self.proc = subprocess.Popen(
-            ["/bin/sh", "-c", redirect, browser, *FLAGS, f"--user-data-dir={profile}", "--window-size=1280,900",
-             "about:blank"],
+            [browser, *FLAGS, f"--user-data-dir={profile}", "--window-size=1280,900", "about:blank"],
             stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
-            pass_fds=(to_browser_r, from_browser_w))
+            close_fds=False, preexec_fn=onto_3_and_4)
         os.close(to_browser_r)
         os.close(from_browser_w)
         self.buffer = b""
@@ -104,15 +108,28 @@ class Pipe:
 IMAGES = "JSON.stringify(Array.from(document.images).map(i => [i.getAttribute('src'), i.naturalWidth, i.naturalHeight, i.complete]))"
 
 
-def load_page(browser: str, page: Path, screenshot: Path) -> dict:
-    """Open ``page`` (a local file), wait for it to load, and return what happened.
+class Browser:
+    """One headless Chromium for several pages; use as a context manager."""
 
-    Returns ``{"images": [[src, width, height, complete], ...], "errors": [text, ...],
-    "title": str}`` and writes a full-page PNG screenshot to ``screenshot``.
-    """
-    profile = tempfile.mkdtemp(prefix="brace-browser-")
-    pipe = Pipe(browser, profile)
-    try:
+    def __init__(self, path: str):
+        self.profile = tempfile.mkdtemp(prefix="brace-browser-")
+        self.pipe = Pipe(path, self.profile)
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.pipe.close()
+        shutil.rmtree(self.profile, ignore_errors=True)
+
+    def load(self, page: Path, screenshot: Path) -> dict:
+        """Open ``page`` (a local file) in a new tab, wait for it to load, and say what happened.
+
+        Returns ``{"images": [[src, width, height, complete], ...], "errors": [text, ...],
+        "title": str}`` and writes a full-page PNG screenshot to ``screenshot``.
+        """
+        pipe = self.pipe
+        pipe.events.clear()
         target = pipe.send("Target.createTarget", {"url": "about:blank"})["targetId"]
         session = pipe.send("Target.attachToTarget", {"targetId": target, "flatten": True})["sessionId"]
         for domain in ("Page", "Runtime", "Log", "Network"):
@@ -128,10 +145,15 @@ def load_page(browser: str, page: Path, screenshot: Path) -> dict:
                          session=session, timeout=60)
         screenshot.write_bytes(base64.b64decode(shot["data"]))
         pipe.send("Runtime.evaluate", {"expression": "1"}, session=session)  # flush pending events
-        return {"images": images, "errors": _errors(pipe.events), "title": title}
-    finally:
-        pipe.close()
-        shutil.rmtree(profile, ignore_errors=True)
+        errors = _errors(pipe.events)
+        pipe.send("Target.closeTarget", {"targetId": target})
+        return {"images": images, "errors": errors, "title": title}
+
+
+def load_page(browser: str, page: Path, screenshot: Path) -> dict:
+    """Load one page in a fresh browser (see :meth:`Browser.load`)."""
+    with Browser(browser) as session:
+        return session.load(page, screenshot)
 
 
 def _errors(events: list[dict]) -> list[str]:

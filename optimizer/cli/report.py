@@ -49,6 +49,7 @@ def run(args) -> int:
     status = StatusLine(sys.stderr)
     comparisons = []
     for title, members in groups.items():
+        members.sort(key=lambda item: objective_rank(item[1]))
         entries = certified_entries([(entry_name(plan, path, members), plan, str(path)) for path, plan in members],
                                     status)
         folder = "" if len(groups) == 1 else safe_folder(title)
@@ -85,6 +86,14 @@ def entry_name(plan, path: Path, members) -> str:
     objective = str(plan.meta.get("objective") or path.stem)
     same = [p for p, other in members if str(other.meta.get("objective") or p.stem) == objective]
     return objective if len(same) == 1 else f"{objective} ({path.name})"
+
+
+def objective_rank(plan) -> int:
+    """Objectives in their usual order (feasible, robust, robust-min, torque), others after."""
+    from ..problem.task import OBJECTIVES
+
+    objective = plan.meta.get("objective")
+    return OBJECTIVES.index(objective) if objective in OBJECTIVES else len(OBJECTIVES)
 
 
 def safe_folder(title: str) -> str:

@@ -89,7 +89,7 @@ def task_facts(meta: dict, entries) -> list[tuple[str, str]]:
     terrain = stance.get("terrain")
     feet = stance.get("feet") or {}
     if isinstance(terrain, dict):
-        details = ", ".join(f"{k} {v}" for k, v in terrain.items() if k != "kind")
+        details = "; ".join(f"{k.replace('_', ' ')} {_plain(v)}" for k, v in terrain.items() if k != "kind")
         facts.append(("terrain", f"{terrain.get('kind')} ({details})"))
     placed = []
     for name, spec in feet.items():
@@ -110,6 +110,19 @@ def task_facts(meta: dict, entries) -> list[tuple[str, str]]:
     return facts
 
 
+def _plain(value) -> str:
+    """A task-file value in words: mappings as 'key value, ...', lists in brackets."""
+    if isinstance(value, dict):
+        return ", ".join(f"{k} {_plain(v)}" for k, v in value.items())
+    if isinstance(value, list):
+        return "[" + ", ".join(_plain(v) for v in value) + "]"
+    return str(value)
+
+
+def _newtons(x: float) -> str:
+    return f"{x:.3f} N" if abs(x) < 1.0 else f"{x:.1f} N"
+
+
 def reading(entries) -> list[str]:
     """Plain-language findings (HTML fragments): who is more robust, when, and what limits it."""
     solved = [e for e in entries if e.ok]
@@ -120,14 +133,20 @@ def reading(entries) -> list[str]:
     best = ranked[0]
     low = best.smallest
     out.append(f"{_swatch(best.name)}<b>{_e(best.name)}</b> is the most robust over the whole motion: its smallest "
-               f"exact margin is <b>{low.rho:.1f} N</b>, at t = {low.time:.2f} s.")
+               f"exact margin is <b>{_newtons(low.rho)}</b>, at t = {low.time:.2f} s.")
     for other in ranked[1:]:
         o = other.smallest
-        ratio = f" ({low.rho / o.rho:.1f} times smaller)" if o.rho > 0 and low.rho > o.rho else ""
-        out.append(f"{_swatch(other.name)}<b>{_e(other.name)}</b>: smallest {o.rho:.1f} N at t = {o.time:.2f} s{ratio}.")
+        if o.rho < 0.01 * low.rho:
+            ratio = " (practically no margin: the smallest push can break a limit)"
+        elif o.rho > 0 and low.rho > o.rho:
+            ratio = f" ({low.rho / o.rho:.1f} times smaller)"
+        else:
+            ratio = ""
+        out.append(f"{_swatch(other.name)}<b>{_e(other.name)}</b>: smallest {_newtons(o.rho)} at "
+                   f"t = {o.time:.2f} s{ratio}.")
     by_mean = max(solved, key=lambda e: float(e.exact.mean()))
     out.append(f"On average over the knots, {_swatch(by_mean.name)}<b>{_e(by_mean.name)}</b> keeps the most margin "
-               f"({float(by_mean.exact.mean()):.1f} N mean exact).")
+               f"({_newtons(float(by_mean.exact.mean()))} mean exact).")
     for e in ranked:
         s = e.smallest
         names = ", ".join(s.bottleneck[:3]) + (f" and {len(s.bottleneck) - 3} more" if len(s.bottleneck) > 3 else "")
@@ -218,7 +237,9 @@ def section_html(title: str, meta: dict, entries, folder: str, files: list[str])
 
 def page_html(sections: list[str], subtitle: str) -> str:
     """The whole page around the comparison sections."""
-    caution = (f'<div class="caution"><h2>Safety</h2><p>{_e(SAFETY)}</p><p>{_e(MODEL_ONLY)}</p>'
+    safety = SAFETY.removeprefix("Safety: ")
+    caution = (f'<div class="caution"><h2>Safety</h2><p>{_e(safety[:1].upper() + safety[1:])}</p>'
+               f"<p>{_e(MODEL_ONLY)}</p>"
                "<p>A comparison ranks plans on the model; it does not say that any of them is safe to run.</p></div>")
     return (
         "<!DOCTYPE html>\n"
