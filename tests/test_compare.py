@@ -27,6 +27,7 @@ import numpy as np
 import pytest
 from PIL import Image
 
+import optimizer.cli.compare as compare_cli
 import optimizer.planner as planner
 import test_solve_demo_tasks as demo
 from browser import Browser, find_browser
@@ -54,21 +55,24 @@ def run_cli(argv) -> tuple[int, str, str]:
     return code, out.getvalue(), err.getvalue()
 
 
+REAL_PLANNED = compare_cli.planned
+
+
 @pytest.fixture(scope="module", autouse=True)
 def shared_demo_solves():
-    """``planner.solve`` answering demo tasks at KNOTS from the demo-task tests' session cache."""
-    real = planner.solve
+    """``brace compare``'s solves of demo tasks at KNOTS taken from the demo-task tests' session cache."""
     tasks = Path("tasks").resolve()
 
-    def solve(task, objective=None, **options):
+    def planned(task, objectives):
         stem = Path(task.path).stem
-        if (not options and task.knots == KNOTS and stem in demo.TASKS
-                and Path(task.path).resolve() == tasks / f"{stem}.yaml"):
-            return demo.solved(stem, objective or task.objective)[1]
-        return real(task, objective, **options)
+        if task.knots == KNOTS and stem in demo.TASKS and Path(task.path).resolve() == tasks / f"{stem}.yaml":
+            for objective in objectives:
+                yield objective, demo.solved(stem, objective)[1], 0.0
+        else:
+            yield from REAL_PLANNED(task, objectives)
 
     patch = pytest.MonkeyPatch()
-    patch.setattr(planner, "solve", solve)
+    patch.setattr(compare_cli, "planned", planned)
     yield
     patch.undo()
 
@@ -271,42 +275,45 @@ def test_report_from_plan_files_of_two_tasks(workspace, tmp_path):
 
 
 def test_failed_objective_is_a_row_with_its_reason(monkeypatch, tmp_path):
-    real = planner.solve
+    # The real planning path (one seed, each objective from it), with robust-min made to fail.
+    real = planner.Planner.solve_from_seed
 
-    def solve(task, objective=None, **kw):
+    def solve_from_seed(self, seed, objective=None, **options):
         if objective == "robust-min":
             stage = planner.StageReport("robust-min", "iteration-limit", False, 600, 1.0, 0.0, 1e-2,
                                         "Maximum_Iterations_Exceeded")
-            return planner.SolveOutcome(task, objective, None, stages=[stage])
-        return real(task, objective, **kw)
+            return planner.SolveOutcome(seed.task, objective, None, stages=[*seed.outcome.stages, stage])
+        return real(self, seed, objective, **options)
 
-    monkeypatch.setattr(planner, "solve", solve)
+    monkeypatch.setattr(compare_cli, "planned", REAL_PLANNED)
+    monkeypatch.setattr(planner.Planner, "solve_from_seed", solve_from_seed)
     out = tmp_path / "cmp"
     code, stdout, _ = run_cli(["compare", "tasks/steep_ramp.yaml", "--knots", str(KNOTS), "--objectives",
-                               "robust-min,torque", "--frames", "2", "--out", str(out)])
+                               "robust-min,feasible", "--frames", "2", "--out", str(out)])
     assert code == 1
     rows = summary_rows(out)
     assert rows[0]["status"].startswith("failed:") and "iteration-limit" in rows[0]["status"]
     assert rows[0]["margin_exact_min_N"] == ""
     assert rows[1]["status"] in ("certified", "NOT certified") and float(rows[1]["margin_exact_min_N"]) >= 0
-    assert not (out / "robust-min.npz").exists() and (out / "torque.npz").is_file()
+    assert not (out / "robust-min.npz").exists() and (out / "feasible.npz").is_file()
     assert "iteration-limit" in (out / PAGE).read_text(encoding="utf-8")
     assert "FAILED" in stdout
 
 
 def test_interrupted_compare_writes_nothing(monkeypatch, tmp_path):
-    real, calls = planner.solve, []
+    real = planner.Planner.solve_from_seed
 
-    def solve(task, objective=None, **kw):
-        calls.append(objective)
-        if len(calls) == 2:
+    def solve_from_seed(self, seed, objective=None, **options):
+        if objective == "torque":
             raise KeyboardInterrupt
-        return real(task, objective, **kw)
+        return real(self, seed, objective, **options)
 
-    monkeypatch.setattr(planner, "solve", solve)
+    monkeypatch.setattr(compare_cli, "planned", REAL_PLANNED)
+    monkeypatch.setattr(planner.Planner, "solve_from_seed", solve_from_seed)
     out = tmp_path / "cmp"
-    code, _, stderr = run_cli(["compare", "tasks/steep_ramp.yaml", "--knots", str(KNOTS), "--objectives",
-                               "torque,robust", "--out", str(out)])
+    code, stdout, stderr = run_cli(["compare", "tasks/steep_ramp.yaml", "--knots", str(KNOTS), "--objectives",
+                                    "feasible,torque", "--out", str(out)])
+    assert "feasible" in stdout and "planned" in stdout       # a plan was made before the interrupt
     assert code == 130 and "interrupted" in stderr
     assert not out.exists() or not any(out.iterdir())
     assert not any(p.name.startswith(".cmp.") for p in tmp_path.iterdir())

@@ -1,6 +1,6 @@
 """Draw the README's story figure: margin over time, robust against torque, on one demo task.
 
-Solves the task with both objectives (from one feasibility seed each), certifies
+Solves the task with both objectives from one feasibility seed, certifies
 both plans exactly and draws the comparison's margin figure with the report's
 own code, so the picture is the one `brace compare` makes.
 
@@ -14,7 +14,7 @@ import argparse
 from pathlib import Path
 
 from optimizer.analysis.certify import certify_plan
-from optimizer.planner import require_plan, solve
+from optimizer.planner import require_plan, shared_planner
 from optimizer.problem.task import load_task
 from optimizer.report import palette
 from optimizer.report.figures import margin_figure, save
@@ -30,9 +30,11 @@ def main() -> None:
     parser.add_argument("--out", default=str(HERE))
     args = parser.parse_args()
     task = load_task(args.task).with_knots(args.knots)
+    planner = shared_planner()
+    seed = planner.seed(task)
     entries = []
     for objective in ("robust", "torque"):
-        plan = require_plan(solve(task, objective))
+        plan = require_plan(planner.solve_from_seed(seed, objective))
         entries.append(Entry(objective, plan, certify_plan(plan)))
         print(f"{objective}: smallest exact margin {entries[-1].smallest.rho:.2f} N")
     with palette.figure_style():

@@ -1,9 +1,10 @@
 """``brace compare TASK``: plan a task with several objectives and compare the plans.
 
-Each objective is solved from the feasibility seed, every plan is written
-and certified exactly, and DIR receives the plan files (``<objective>.npz``),
-``summary.csv``, the figures (PNG and SVG), the key-frame strip, the
-animation and ``report.html``; the table is also printed. An objective whose
+The feasibility seed is solved once and each objective from it (the
+planner's shared seed); every plan is written and certified exactly, and DIR
+receives the plan files (``<objective>.npz``), ``summary.csv``, the figures
+(PNG and SVG), the key-frame strip, the animation and ``report.html``; the
+table is also printed. An objective whose
 solve fails is a row with its reason; the others go on. Everything is staged
 and moved into DIR at the end (an interrupted run writes nothing). Exit codes:
 0 every objective planned and certified, 1 some objective failed or is not
@@ -68,24 +69,36 @@ def run(args) -> int:
     return 0 if good else 1
 
 
+def planned(task, objectives):
+    """Yield ``(objective, SolveOutcome, seconds)``: one feasibility seed, then each objective from it.
+
+    The seed's time is counted in the first objective's seconds.
+    """
+    from ..planner import shared_planner
+
+    planner = shared_planner()
+    started = time.perf_counter()
+    seed = planner.seed(task)
+    for objective in objectives:
+        outcome = planner.solve_from_seed(seed, objective)
+        yield objective, outcome, time.perf_counter() - started
+        started = time.perf_counter()
+
+
 def solve_objectives(task, objectives, folder):
     """Plan every objective; write each plan to ``folder/<objective>.npz``.
 
     Returns ``({objective: plan}, {objective: reason})``.
     """
     from ..planfile import save_plan
-    from ..planner import solve
 
     plans, failures = {}, {}
-    for objective in objectives:
-        started = time.perf_counter()
-        outcome = solve(task, objective)
-        elapsed = time.perf_counter() - started
+    for objective, outcome, elapsed in planned(task, objectives):
         if outcome.success:
             save_plan(outcome.plan, folder / f"{objective}.npz")
             plans[objective] = outcome.plan
             iterations = sum(s.iterations for s in outcome.stages)
-            print(f"  {objective:<10} planned in {elapsed:.1f} s ({iterations} iterations), "
+            print(f"  {objective:<10} planned in {elapsed:.1f} s ({iterations} iterations with the seed's), "
                   f"smallest margin {outcome.plan.margin.min():.2f} N", flush=True)
         else:
             stage = outcome.stages[-1]

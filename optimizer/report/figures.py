@@ -94,6 +94,7 @@ def margin_figure(entries) -> Figure:
     """Planned (lines) and exact (markers) margin over time, every plan on one axis."""
     fig = _figure("margin")
     ax = fig.add_subplot()
+    top = _plot_top(entries)
     handles = []
     for i, e in enumerate(entries):
         style = palette.line_style(e.name)
@@ -104,13 +105,16 @@ def margin_figure(entries) -> Figure:
         ax.plot([low.time], [low.rho], marker="o", markersize=15, markerfacecolor="none",
                 markeredgecolor=style["color"], markeredgewidth=1.6, linestyle="none")
         late = low.time > e.plan.t[0] + 0.8 * (e.plan.t[-1] - e.plan.t[0])
-        ax.annotate(newtons(low.rho), (low.time, low.rho), xytext=(-12 if late else 12, -14 - 11 * (i % 2)),
+        low_on_plot = low.rho < 0.1 * top
+        ax.annotate(newtons(low.rho), (low.time, low.rho),
+                    xytext=(-12 if late else 12, (10 if low_on_plot else -14) + (11 if low_on_plot else -11) * (i % 2)),
                     textcoords="offset points", color=style["color"], fontweight="bold",
                     ha="right" if late else "left")
         handle = _legend_handle(e.name)
         handle.set_label(f"{e.name}: smallest {newtons(low.rho)} at {low.time:.2f} s")
         handles.append(handle)
-    ax.set_ylim(min(0.0, *(min(e.exact.min(), e.plan.margin.min()) for e in entries)) * 1.1, _plot_top(entries))
+    lows = [x for e in entries for x in (*e.exact, *e.plan.margin) if math.isfinite(x)]
+    ax.set_ylim(1.1 * min(0.0, *lows), top)
     ax.set_xlabel("time [s]")
     ax.set_ylabel("smallest unrejectable force [N]")
     ax.set_title("Which plan is more robust, and when")
