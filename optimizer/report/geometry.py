@@ -14,6 +14,7 @@ import numpy as np
 import pinocchio as pin
 
 from ..errors import TaskError
+from ..problem.friction import tangent_basis
 from ..problem.terrain import (BlocksTerrain, CeilingTerrain, FlatTerrain, RampTerrain, TrenchTerrain,
                                build_terrain)
 from ..schema import Fields
@@ -144,8 +145,6 @@ def terrain_surfaces(meta: dict, extent) -> list[Surface]:
 
 
 def _square(centre, normal, half: float) -> np.ndarray:
-    from ..problem.friction import tangent_basis
-
     t1, t2 = tangent_basis(normal)
     return np.array([centre + half * (a * t1 + b * t2) for a, b in ((-1, -1), (1, -1), (1, 1), (-1, 1))])
 
