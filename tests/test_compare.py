@@ -328,3 +328,15 @@ def test_compare_bad_options_are_one_line_errors(argv, field, tmp_path):
     code, _, stderr = run_cli(["compare", "tasks/steep_ramp.yaml", *argv, "--out", str(tmp_path / "x")])
     assert code == 2 and field in stderr and len(stderr.strip().splitlines()) == 1
     assert not (tmp_path / "x").exists()
+
+
+def test_report_bad_input_is_a_one_line_error(tmp_path):
+    not_a_plan = tmp_path / "notes.npz"
+    not_a_plan.write_text("not a plan")
+    code, _, stderr = run_cli(["report", str(not_a_plan), "--out", str(tmp_path / "r")])
+    assert code == 2 and "notes.npz" in stderr and len(stderr.strip().splitlines()) == 1
+    occupied = tmp_path / "file"
+    occupied.write_text("x")
+    code, _, stderr = run_cli(["report", str(not_a_plan), "--out", str(occupied)])
+    assert code == 2 and "--out" in stderr and len(stderr.strip().splitlines()) == 1
+    assert not (tmp_path / "r").exists()

@@ -1,4 +1,4 @@
-"""``brace report PLAN.npz [PLAN2.npz ...] --out DIR``: the comparison page from existing plans.
+"""``brace report PLAN.npz [PLAN2.npz ...] [--out DIR]``: the comparison page from existing plans.
 
 Nothing is solved: every plan is loaded, certified exactly knot by knot and
 drawn. Plans of one task are compared on one set of figures; plans of
@@ -27,7 +27,8 @@ CLI = "command line"
 
 def add_arguments(parser) -> None:
     parser.add_argument("plans", nargs="+", metavar="PLAN.npz", help="plan files (plan/1)")
-    parser.add_argument("--out", required=True, metavar="DIR", help="folder for the page and its files")
+    parser.add_argument("--out", metavar="DIR",
+                        help="folder for the page and its files (default: reports/<first plan's name>)")
     add_drawing_arguments(parser)
 
 
@@ -41,7 +42,7 @@ def run(args) -> int:
     from ..report.build import Comparison
 
     check_frames(args.frames)
-    out = output_folder(args.out)
+    out = output_folder(args.out or f"reports/{Path(args.plans[0]).stem}")
     plans = [(Path(p), load_plan(p)) for p in args.plans]
     groups: dict[str, list] = {}
     for path, plan in plans:

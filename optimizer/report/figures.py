@@ -41,8 +41,8 @@ CAPTIONS = {
     "friction_use": "Left: friction use per contact (1 = the force lies on its friction pyramid). "
                     "Right: normal force per contact; the dotted line is the required minimum.",
     "weakest_direction": "Direction in which each plan is weakest (world frame): azimuth about z from +x, "
-                         "elevation above the horizontal. Rings mark the smallest-margin knot; "
-                         "the limits that decide it are listed below.",
+                         "elevation above the horizontal (near +-90 deg the azimuth hardly matters). Rings mark "
+                         "the smallest-margin knot; the limits that decide it are listed below.",
     "polytope_cut": "At each plan's smallest-margin knot: the set of disturbance forces the robot can "
                     "reject (shaded), cut by the plane of its weakest direction and the weakest direction "
                     "orthogonal to it. The dashed circle has the exact margin as radius.",
@@ -172,11 +172,28 @@ def friction_figure(entries) -> Figure:
 
 
 def azimuth_elevation(directions: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Azimuth about +z from +x and elevation above the x-y plane, degrees, of unit vectors (K, 3)."""
+    """Azimuth about +z from +x in (-180, 180] and elevation above the x-y plane, degrees, of unit vectors (K, 3)."""
     d = np.asarray(directions, float)[:, :3]
-    azimuth = np.degrees(np.unwrap(np.arctan2(d[:, 1], d[:, 0])))
+    azimuth = np.degrees(np.arctan2(d[:, 1], d[:, 0]))
     elevation = np.degrees(np.arcsin(np.clip(d[:, 2] / np.linalg.norm(d, axis=1), -1.0, 1.0)))
     return azimuth, elevation
+
+
+def _broken_at_wraps(t, azimuth):
+    """Times and azimuths [deg] with a gap (NaN) wherever the angle wraps past +-180."""
+    t_out, a_out = [t[0]], [azimuth[0]]
+    for k in range(1, len(t)):
+        if abs(azimuth[k] - azimuth[k - 1]) > 180.0:
+            t_out.append(0.5 * (t[k] + t[k - 1]))
+            a_out.append(np.nan)
+        t_out.append(t[k])
+        a_out.append(azimuth[k])
+    return np.array(t_out), np.array(a_out)
+
+
+def _vector(v) -> str:
+    """A direction for a label, (+0.34, +0.00, -0.94), without negative zeros."""
+    return "(" + ", ".join(f"{0.0 if abs(x) < 5e-3 else x:+.2f}" for x in v) + ")"
 
 
 def _short_list(names, shown: int = 3) -> str:
@@ -194,7 +211,7 @@ def weakest_direction_figure(entries) -> Figure:
         style = palette.line_style(e.name)
         directions = np.array([c.direction for c in e.certificate.knots])
         azimuth, elevation = azimuth_elevation(directions)
-        top.plot(e.plan.t, azimuth, **style)
+        top.plot(*_broken_at_wraps(e.plan.t, azimuth), **style)
         middle.plot(e.plan.t, elevation, **style)
         low = e.smallest
         k = e.certificate.knots.index(low)
@@ -202,9 +219,11 @@ def weakest_direction_figure(entries) -> Figure:
             ax.plot([low.time], [values[k]], marker="o", markersize=14, markerfacecolor="none",
                     markeredgecolor=style["color"], markeredgewidth=1.6)
         lines.append((e.name, f"{e.name}: weakest at t = {low.time:.2f} s ({newtons(low.rho)}) along "
-                      f"({', '.join(f'{x:+.2f}' for x in low.direction[:3])}); limited by "
+                      f"{_vector(low.direction[:3])}; limited by "
                       f"{_short_list(low.bottleneck, 2)}"))
     top.set_ylabel("azimuth [deg]")
+    top.set_ylim(-190.0, 190.0)
+    top.set_yticks([-180, -90, 0, 90, 180])
     middle.set_ylabel("elevation [deg]")
     middle.set_ylim(-95.0, 95.0)
     middle.set_xlabel("time [s]")
@@ -245,9 +264,7 @@ def polytope_cut_figure(entries) -> Figure:
         ax.yaxis.set_major_locator(MaxNLocator(4, symmetric=True))
         ax.set_title(f"{e.name}, t = {low.time:.2f} s\nmargin {newtons(low.rho)}", color=colour, fontweight="bold")
         ax.set_xlabel("along weakest direction e1 [N]")
-        e1 = ", ".join(f"{x:+.2f}" for x in cut.e1)
-        e2 = ", ".join(f"{x:+.2f}" for x in cut.e2)
-        ax.text(0.02, 0.02, f"e1 = ({e1})\ne2 = ({e2})", transform=ax.transAxes, fontsize=7, color=palette.INK)
+        ax.text(0.02, 0.02, f"e1 = {_vector(cut.e1)}\ne2 = {_vector(cut.e2)}", transform=ax.transAxes, fontsize=7, color=palette.INK)
     axes[0].set_ylabel("along e2, weakest orthogonal to e1 [N]")
     return fig
 

@@ -150,7 +150,7 @@ def reading(entries) -> list[str]:
     for e in ranked:
         s = e.smallest
         names = ", ".join(s.bottleneck[:3]) + (f" and {len(s.bottleneck) - 3} more" if len(s.bottleneck) > 3 else "")
-        direction = ", ".join(f"{x:+.2f}" for x in s.direction[:3])
+        direction = ", ".join(f"{0.0 if abs(x) < 5e-3 else x:+.2f}" for x in s.direction[:3])
         out.append(f"What limits {_e(e.name)} at its weakest moment: a push along ({direction}) is stopped by "
                    f"<i>{_e(names or 'no named limit')}</i>.")
     failed = [e for e in entries if not e.ok]
