@@ -22,6 +22,7 @@ COMMANDS = {
     "certify": "optimizer.cli.certify",
     "compare": "optimizer.cli.compare",
     "report": "optimizer.cli.report",
+    "export": "optimizer.cli.export",
 }
 
 COMMAND_HELP = {
@@ -30,6 +31,7 @@ COMMAND_HELP = {
     "certify": "compute the exact smallest unrejectable force of a plan, knot by knot",
     "compare": "plan a task with several objectives and compare them: table, figures, motion preview, HTML page",
     "report": "draw and compare existing plan files: figures, motion preview and an HTML page",
+    "export": "resample a plan at a fixed rate for a tracking controller (CSV or NPZ)",
 }
 
 
