@@ -20,12 +20,14 @@ COMMANDS = {
     "check-model": "optimizer.cli.check_model",
     "solve": "optimizer.cli.solve",
     "certify": "optimizer.cli.certify",
+    "simulate": "optimizer.cli.simulate",
 }
 
 COMMAND_HELP = {
     "check-model": "inspect a robot file: mass, frames, limits, standing statics",
     "solve": "plan a whole-body motion for a task file and write a plan file",
     "certify": "compute the exact smallest unrejectable force of a plan, knot by knot",
+    "simulate": "replay a plan in MuJoCo with a tracking controller and push it at the hand",
 }
 
 
