@@ -6,7 +6,8 @@ plan at every knot, the hand against every target, each contact point against
 its foothold, contact losses, clipped torques. :meth:`Simulator.largest_push`
 pushes at the disturbance frame along the certified weakest direction of a
 knot (exact certification, :mod:`optimizer.analysis.certify`), full size from
-the knot's time on for ``hold`` seconds, and bisects for the largest size the
+the knot's time on for ``hold`` seconds (from ``ramp`` on at the first knot, so
+the push ramps up like any other), and bisects for the largest size the
 robot survives (:class:`~optimizer.simulation.rollout.SurvivalRules`, watched
 from the push's start until ``settle`` seconds after it ends). Bisection
 assumes survival is monotone in the push size.
@@ -27,6 +28,9 @@ from ..analysis.knot_response import PlanRobot, knot_response, torque_limits
 from .reference import PlanReference, pd_gains
 from .rollout import Push, Rollout, SurvivalRules
 from .scene import ContactSettings, build_scene
+
+
+SMALLEST_SCALE = 0.01  # bisection starts at the margin, or at this fraction of the robot's weight if larger
 
 
 @dataclass
@@ -170,6 +174,7 @@ class Simulator:
         self.gains = pd_gains(self.scene.pin_model, plan.q[0], np.minimum(-self.limits[0], self.limits[1]),
                               full_error, self.settings.damping)
         self.normals = np.array(plan.meta["contact_normals"], float).reshape(-1, 3)
+        self.weight = float(pin.computeTotalMass(self.scene.pin_model) * np.linalg.norm(plan.meta["gravity"]))
         self._start_states: dict = {}
 
     def rollout(self, mode: str) -> Rollout:
@@ -197,48 +202,56 @@ class Simulator:
                                                    if self.plan.margins is not None else self.plan.margin[k]))
         return cert, response
 
+    def push_at(self, k: int, size: float, direction_u=None) -> Push:
+        """A push of ``size`` [N] at knot k along unit ``direction_u`` (default: certified weakest)."""
+        if direction_u is None:
+            cert, _ = self.certified_direction(k)
+            direction_u = cert.weakest_u
+        u = np.asarray(direction_u, float)
+        s = self.settings
+        return Push(self.shape @ (u / np.linalg.norm(u)), float(size), max(float(self.plan.t[k]), s.ramp),
+                    s.hold, s.ramp)
+
+    def survives(self, push: Push, mode: str) -> str:
+        """Run one push in ``mode``; the broken survival rule, or an empty string if survived."""
+        return self._trial(push, mode).failure
+
     def largest_push(self, k: int, mode: str) -> PushResult:
         """Bisect for the largest push along knot k's certified weakest direction that is survived."""
         s = self.settings
         cert, response = self.certified_direction(k)
         margin = float(self.plan.margin[k]) if self.disturbance == 0 else float(self.plan.margins[k, self.disturbance])
-        u_dir = np.asarray(cert.weakest_u, float)
-        u_dir = u_dir / np.linalg.norm(u_dir)
-        self.reference.torque_gains(k)
-        limit = linear_limit_along(response, self.reference, k, u_dir)
-        scale = max(margin, 1e-3)
-        start = float(self.plan.t[k])
-        trials = 0
-        failure = ""
+        u_dir = np.asarray(cert.weakest_u, float) / np.linalg.norm(cert.weakest_u)
+        limit = linear_limit_along(response, u_dir)
+        scale = max(margin, SMALLEST_SCALE * self.weight)
+        start = self.push_at(k, 0.0, u_dir).start
+        trials, last = 0, ""
 
-        def survives(size: float) -> bool:
-            nonlocal trials, failure
+        def survived(size: float) -> bool:
+            nonlocal trials, last
             trials += 1
-            push = Push(self.shape @ u_dir, size, start, s.hold, s.ramp)
-            rec = self._trial(push, mode)
-            if rec.failure:
-                failure = rec.failure
-            return not rec.failure
+            last = self.survives(self.push_at(k, size, u_dir), mode)
+            return not last
 
+        def result(lo, hi, failure):
+            return PushResult(k, start, mode, cert.direction, margin, cert.rho, limit, lo, hi, failure, trials)
+
+        if not survived(0.0):
+            return result(0.0, 0.0, "fails without a push: " + last)
         lo, hi = 0.0, scale
-        if not survives(0.0):
-            return PushResult(k, start, mode, cert.direction, margin, cert.rho, limit, 0.0, 0.0,
-                              "fails without a push: " + failure, trials)
-        first_failure = ""
-        while survives(hi):
+        while survived(hi):
             lo = hi
             if hi >= s.max_ratio * scale:
-                return PushResult(k, start, mode, cert.direction, margin, cert.rho, limit, lo, math.inf,
-                                  f"survived the largest push tried ({s.max_ratio:g} x the margin)", trials)
+                return result(lo, math.inf, f"survived the largest push tried ({s.max_ratio:g} x the margin)")
             hi = min(2.0 * hi, s.max_ratio * scale)
-        first_failure = failure
+        failure = last
         while hi - lo > s.tolerance * scale:
             mid = 0.5 * (lo + hi)
-            if survives(mid):
+            if survived(mid):
                 lo = mid
             else:
-                hi, first_failure = mid, failure
-        return PushResult(k, start, mode, cert.direction, margin, cert.rho, limit, lo, hi, first_failure, trials)
+                hi, failure = mid, last
+        return result(lo, hi, failure)
 
     def _trial(self, push: Push, mode: str):
         """One run from just before the push until ``settle`` after it, watched by the rules."""
@@ -267,7 +280,7 @@ def stance_joints(robot: PlanRobot, plan) -> np.ndarray:
     return np.abs(jc[rows, 6:]).max(axis=0, initial=0.0) > 1e-9
 
 
-def linear_limit_along(response, reference: PlanReference, k: int, u_dir) -> float:
+def linear_limit_along(response, u_dir) -> float:
     """Push size [N] along unit ``u_dir`` at which the informed response meets its first limit.
 
     Each limit row ``a_u . u + a_lambda . dlambda <= b`` with ``dlambda = K u``

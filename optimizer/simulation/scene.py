@@ -227,7 +227,8 @@ def _foot_geoms(bodies, model, plan, radius: float) -> None:
         joint_rot = data.oMi[frame.parentJoint].rotation
         centre = frame.placement.translation + (radius - PRELOAD) * joint_rot.T @ normal
         ET.SubElement(bodies[frame.parentJoint], "geom", name=f"foot:{name}", type="sphere", size=f"{radius:.12g}",
-                      pos=_fmt(centre), contype="0", conaffinity="0", mass="0", rgba="0.9 0.4 0.1 1")
+                      pos=_fmt(centre), contype="0", conaffinity="0", mass="0", group="1",
+                      rgba="0.9 0.4 0.1 1")
 
 
 def _surface_geoms(world, surfaces) -> list:
