@@ -20,11 +20,13 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
+import mujoco
 import numpy as np
 import pinocchio as pin
 
 from ..analysis.certify import certify_response
 from ..analysis.knot_response import PlanRobot, knot_response, torque_limits
+from ..analysis.linear_margin import best_linear_margin
 from .reference import PlanReference, pd_gains
 from .rollout import Push, Rollout, SurvivalRules
 from .scene import ContactSettings, build_scene
@@ -255,8 +257,6 @@ class Simulator:
 
     def _trial(self, push: Push, mode: str):
         """One run from just before the push until ``settle`` after it, watched by the rules."""
-        import mujoco
-
         s = self.settings
         begin = max(push.begins, 0.0)
         key = round(begin, 9)
@@ -287,8 +287,6 @@ def linear_limit_along(response, u_dir) -> float:
     reaches its room at ``b / ((a_u + K^T a_lambda) . u_dir)`` when that rate
     is positive (the same rows as the linear-gain margin, one-sided).
     """
-    from ..analysis.linear_margin import best_linear_margin
-
     rows = response.limit_rows()
     gains = best_linear_margin(rows).gains
     d = rows.dim

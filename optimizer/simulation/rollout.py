@@ -21,6 +21,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
+import mujoco
 import numpy as np
 
 MODES = ("informed", "blind")
@@ -167,8 +168,6 @@ class Rollout:
         With ``rules``, the run stops at the first broken rule counted from
         ``watch_from`` [s] (slip measured from the contact points at that time).
         """
-        import mujoco
-
         sc, m, d = self.scene, self.scene.model, self.scene.data
         dt = m.opt.timestep
         n = max(int(round((until - d.time) / dt)), 0)

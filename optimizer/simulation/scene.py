@@ -23,6 +23,7 @@ from __future__ import annotations
 import xml.etree.ElementTree as ET
 from dataclasses import dataclass, field
 
+import mujoco
 import numpy as np
 import pinocchio as pin
 
@@ -114,8 +115,6 @@ class Scene:
 
     def set_state(self, q, v) -> None:
         """Put the Pinocchio state ``(q, v)`` into ``data`` (no forward pass)."""
-        import mujoco
-
         q, v = np.asarray(q, float), np.asarray(v, float)
         d = self.data
         d.qpos[:3] = q[:3]
