@@ -270,8 +270,6 @@ def scene_xml(plan, surfaces, settings: ContactSettings, frames, where="plan") -
 
 def build_scene(plan, surfaces, settings: ContactSettings | None = None, frames=(), where="plan") -> Scene:
     """Compile the scene of ``plan`` on ``surfaces``; ``frames`` get sites (contact frames always do)."""
-    import mujoco
-
     settings = settings or ContactSettings()
     wanted = list(dict.fromkeys(list(plan.meta["contact_frames"]) + list(frames)))
     xml, pm = scene_xml(plan, surfaces, settings, wanted, where)
