@@ -111,6 +111,9 @@ class PushResult:
     failure : str
         What ended the smallest failed run.
     trials : int
+    scale : float
+        Push size the bisection started from [N]: the margin, or 1 % of the
+        weight when the margin is smaller.
     """
 
     knot: int
@@ -124,11 +127,12 @@ class PushResult:
     failed: float
     failure: str
     trials: int
+    scale: float = 0.0
 
     @property
     def ratio(self) -> float:
-        """Survived push over the certified margin."""
-        return self.survived / self.margin if self.margin > 0 else math.nan
+        """Survived push over the certified margin (NaN for a margin below the bisection's scale)."""
+        return self.survived / self.margin if self.margin > 0 and self.margin >= self.scale else math.nan
 
     def to_json(self) -> dict:
         return {"knot": self.knot, "time_s": self.time, "mode": self.mode,
@@ -236,7 +240,7 @@ class Simulator:
             return not last
 
         def result(lo, hi, failure):
-            return PushResult(k, start, mode, cert.direction, margin, cert.rho, limit, lo, hi, failure, trials)
+            return PushResult(k, start, mode, cert.direction, margin, cert.rho, limit, lo, hi, failure, trials, scale)
 
         if not survived(0.0):
             return result(0.0, 0.0, "fails without a push: " + last)
