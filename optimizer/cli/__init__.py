@@ -21,6 +21,7 @@ COMMANDS = {
     "solve": "optimizer.cli.solve",
     "certify": "optimizer.cli.certify",
     "simulate": "optimizer.cli.simulate",
+    "export": "optimizer.cli.export",
 }
 
 COMMAND_HELP = {
@@ -28,6 +29,7 @@ COMMAND_HELP = {
     "solve": "plan a whole-body motion for a task file and write a plan file",
     "certify": "compute the exact smallest unrejectable force of a plan, knot by knot",
     "simulate": "replay a plan in MuJoCo with a tracking controller and push it at the hand",
+    "export": "resample a plan at a fixed rate for a tracking controller (CSV or NPZ)",
 }
 
 
