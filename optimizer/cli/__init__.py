@@ -22,6 +22,8 @@ COMMANDS = {
     "certify": "optimizer.cli.certify",
     "compare": "optimizer.cli.compare",
     "report": "optimizer.cli.report",
+    "simulate": "optimizer.cli.simulate",
+    "sweep": "optimizer.cli.sweep",
     "export": "optimizer.cli.export",
 }
 
@@ -31,6 +33,8 @@ COMMAND_HELP = {
     "certify": "compute the exact smallest unrejectable force of a plan, knot by knot",
     "compare": "plan a task with several objectives and compare them: table, figures, motion preview, HTML page",
     "report": "draw and compare existing plan files: figures, motion preview and an HTML page",
+    "simulate": "replay a plan in MuJoCo with a tracking controller and push it at the hand",
+    "sweep": "solve a task over a grid or sample of variants; resumable, on a local pool or a Dask cluster",
     "export": "resample a plan at a fixed rate for a tracking controller (CSV or NPZ)",
 }
 
