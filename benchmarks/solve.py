@@ -2,12 +2,13 @@
 
     python benchmarks/solve.py [--tasks steep_ramp,crawl_space] [--knots 30,60,120]
                                [--objective robust] [--evaluation expanded,mapped]
-                               [--compare 60] [--torque-gains variables] [--write benchmarks/RESULTS.md]
+                               [--again] [--compare 60] [--torque-gains variables]
+                               [--write benchmarks/RESULTS.md]
 
 Every measurement runs in a child process of its own (``python benchmarks/solve.py --child ...``),
 so it pays what a user's first plan pays: imports, solver builds, the seed, both solver stages
-and the certified margins. The child then plans the same task a second time in the same process,
-with its built solvers kept: the figure a plan costs once its shape is built. Per stage it
+and the certified margins. With ``--again`` the child then plans the same task a second time in
+the same process, with its built solvers kept: the figure a plan costs once its shape is built. Per stage it
 reports iterations, solve time and the share of that time spent evaluating the NLP's functions
 and derivatives (the rest is Ipopt's own work: factorizations, line search); per run the peak
 resident memory; per task the growth exponent of the whole-plan time against knots (least
@@ -41,8 +42,8 @@ EVALUATION = {"expanded": True, "mapped": False}
 
 
 # -- child process: one measurement ---------------------------------------------------------
-def child(task_name: str, knots: int, objective: str, evaluation: str, torque_gains: str) -> dict:
-    """Plan once from a fresh process, then once more with the built solvers kept."""
+def child(task_name: str, knots: int, objective: str, evaluation: str, torque_gains: str, again: bool) -> dict:
+    """Plan once from a fresh process and, with ``again``, once more with the built solvers kept."""
     started = time.perf_counter()
     from optimizer.planner import Planner
     from optimizer.problem.task import load_task
@@ -50,13 +51,13 @@ def child(task_name: str, knots: int, objective: str, evaluation: str, torque_ga
     task = load_task(ROOT / "tasks" / f"{task_name}.yaml")
     runs = []
     with Planner(knots=knots, expand=EVALUATION[evaluation], torque_gains=torque_gains) as planner:
-        for _ in range(2):
+        for _ in range(2 if again else 1):
             began = time.perf_counter()
             outcome = planner.solve(task, objective)
             runs.append(_run_figures(outcome, time.perf_counter() - began))
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux: kB
     return {"task": task_name, "knots": knots, "objective": objective, "evaluation": evaluation,
-            "import": imported, "fresh": runs[0], "built": runs[1], "peak_mb": peak_mb}
+            "import": imported, "fresh": runs[0], "built": runs[1] if again else None, "peak_mb": peak_mb}
 
 
 def _run_figures(outcome, wall: float) -> dict:
@@ -106,6 +107,8 @@ def run_rows(result: dict) -> list[str]:
     rows = []
     for label in ("fresh", "built"):
         run = result[label]
+        if run is None:
+            continue
         stages = run["stages"]
         build = sum(s["build"] for s in stages)
         seed, main = stages[0], stages[-1] if len(stages) > 1 else None
@@ -122,7 +125,7 @@ def run_rows(result: dict) -> list[str]:
 def growth_exponent(results: list[dict], task: str, evaluation: str, label: str) -> float | None:
     import numpy as np
     points = [(r["knots"], r[label]["wall"]) for r in results
-              if r["task"] == task and r["evaluation"] == evaluation and r[label]["wall"] > 0]
+              if r["task"] == task and r["evaluation"] == evaluation and r[label] and r[label]["wall"] > 0]
     if len(points) < 2:
         return None
     k, t = np.log([p[0] for p in points]), np.log([p[1] for p in points])
@@ -143,6 +146,7 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
         f"Script: `python benchmarks/solve.py --tasks {args.tasks} --knots {args.knots} --objective "
         f"{args.objective} --evaluation {args.evaluation}"
         + (" --torque-gains variables" if args.torque_gains == "variables" else "")
+        + (" --again" if args.again else "")
         + (f" --compare {args.compare}" if args.compare else "") + "` "
         f"({datetime.date.today().isoformat()}, {os.cpu_count()} cores, {cpu}, Python "
         f"{platform.python_version()}, `OPENBLAS_NUM_THREADS=1`, Ipopt + MUMPS through CasADi); "
@@ -203,13 +207,15 @@ def main(argv=None) -> int:
     parser.add_argument("--write", metavar="RESULTS.md")
     parser.add_argument("--torque-gains", default="eliminated", choices=["eliminated", "variables"],
                         help="joint-torque gains in closed form (default) or as decision variables (ablation)")
-    parser.add_argument("--child", nargs=5, metavar=("TASK", "KNOTS", "OBJECTIVE", "EVALUATION", "GAINS"),
+    parser.add_argument("--again", action="store_true",
+                        help="plan each task a second time in the same process, built solvers kept")
+    parser.add_argument("--child", nargs=6, metavar=("TASK", "KNOTS", "OBJECTIVE", "EVALUATION", "GAINS", "AGAIN"),
                         help=argparse.SUPPRESS)
     parser.add_argument("--compare-child", nargs=2, metavar=("TASK", "KNOTS"), help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.child:
-        task, knots, objective, evaluation, gains = args.child
-        print(json.dumps(child(task, int(knots), objective, evaluation, gains)), flush=True)
+        task, knots, objective, evaluation, gains, again = args.child
+        print(json.dumps(child(task, int(knots), objective, evaluation, gains, again == "again")), flush=True)
         return 0
     if args.compare_child:
         print(json.dumps(compare_child(args.compare_child[0], int(args.compare_child[1]))), flush=True)
@@ -220,7 +226,8 @@ def main(argv=None) -> int:
     for task in tasks:
         for evaluation in evaluations:
             for knots in (int(k) for k in args.knots.split(",")):
-                result = in_child("--child", task, str(knots), args.objective, evaluation, args.torque_gains)
+                result = in_child("--child", task, str(knots), args.objective, evaluation, args.torque_gains,
+                                  "again" if args.again else "once")
                 results.append(result)
                 print("\n".join(run_rows(result)), flush=True)
             growth.append((task, evaluation, growth_exponent(results, task, evaluation, "fresh"),
