@@ -75,7 +75,8 @@ class SolveOutcome:
     ``plan`` is the finished plan (None when a stage failed); ``last`` the
     physical arrays where the last solver run stopped, ``violations`` its
     largest violation per constraint group and knot, ``transcription`` the
-    NLP of that run (for diagnosis).
+    NLP of that run and ``multipliers`` the solver's constraint multipliers
+    there, one per row of g (for diagnosis).
     """
 
     task: object
@@ -85,6 +86,7 @@ class SolveOutcome:
     last: dict = field(default_factory=dict)
     violations: dict = field(default_factory=dict)
     transcription: object = field(default=None, repr=False)
+    multipliers: np.ndarray | None = field(default=None, repr=False)
 
     @property
     def success(self) -> bool:
@@ -263,7 +265,7 @@ class Planner:
         with self._lock:
             outcome = SolveOutcome(task, objective, None, stages=list(seed.outcome.stages),
                                    last=seed.outcome.last, violations=seed.outcome.violations,
-                                   transcription=seed.outcome.transcription)
+                                   transcription=seed.outcome.transcription, multipliers=seed.outcome.multipliers)
             if not seed.success:
                 return outcome
             arrays = seed.arrays
@@ -313,6 +315,7 @@ class Planner:
         outcome.last = layout.unpack(result.x)
         outcome.violations = transcription.constraints.violations(result.g, transcription.lbg, transcription.ubg)
         outcome.transcription = transcription
+        outcome.multipliers = result.lam_g
         return outcome.last, result
 
 
@@ -460,6 +463,7 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
                              "tangents": [np.asarray(c.tangents, float).tolist() for c in task.contacts]},
         "min_normal_force": float(task.min_normal_force),
         "torque_limits": {"lower": robot.torque_lower.tolist(), "upper": robot.torque_upper.tolist()},
+        "joint_velocity_limits": robot.velocity_limit.tolist(),
         "disturbances": [{"frame": d.frame, "kind": d.kind, "shape": np.asarray(d.shape, float).tolist()}
                          for d in task.disturbances],
         "objective": objective,

@@ -31,9 +31,12 @@ class SolverResult:
     ``x`` is the last point (in the NLP's own, scaled units), ``status`` one
     of :data:`STATUSES`, ``max_violation`` the largest bound or constraint
     violation at ``x``, ``wall_time`` in s, ``message`` the backend's own
-    status text, ``g`` the constraint values at ``x``, ``eval_time`` the
-    part of ``wall_time`` spent evaluating the NLP's functions and derivatives
-    (the rest is the solver's own work: factorizations, line search).
+    status text, ``g`` the constraint values at ``x``; ``lam_g`` and
+    ``lam_x`` the multipliers of the constraints and of the variable bounds
+    at ``x`` (the Lagrangian ``f + lam_g . g + lam_x . x``; None when the
+    backend has none); ``eval_time`` the part of ``wall_time`` spent
+    evaluating the NLP's functions and derivatives (the rest is the solver's
+    own work: factorizations, line search).
     """
 
     x: np.ndarray
@@ -45,7 +48,9 @@ class SolverResult:
     max_violation: float
     message: str
     g: np.ndarray = field(repr=False, default=None)
-    eval_time: float = 0.0   # s of wall_time spent evaluating the NLP's functions and derivatives
+    lam_g: np.ndarray = field(repr=False, default=None)
+    lam_x: np.ndarray = field(repr=False, default=None)
+    eval_time: float = 0.0
 
 
 class BuiltSolver(Protocol):
