@@ -147,7 +147,8 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
         f"{args.objective} --evaluation {args.evaluation}"
         + (" --torque-gains variables" if args.torque_gains == "variables" else "")
         + (" --again" if args.again else "")
-        + (f" --compare {args.compare}" if args.compare else "") + "` "
+        + (f" --compare {args.compare}" if args.compare else "")
+        + (f" --compare-tasks {args.compare_tasks}" if args.compare and args.compare_tasks else "") + "` "
         f"({datetime.date.today().isoformat()}, {os.cpu_count()} cores, {cpu}, Python "
         f"{platform.python_version()}, `OPENBLAS_NUM_THREADS=1`, Ipopt + MUMPS through CasADi); "
         f"whole run {elapsed / 60:.1f} min.", "",
@@ -204,6 +205,7 @@ def main(argv=None) -> int:
     parser.add_argument("--objective", default="robust")
     parser.add_argument("--evaluation", default="expanded,mapped")
     parser.add_argument("--compare", type=int, default=0, metavar="K")
+    parser.add_argument("--compare-tasks", metavar="TASKS", help="tasks of --compare (default: --tasks)")
     parser.add_argument("--write", metavar="RESULTS.md")
     parser.add_argument("--torque-gains", default="eliminated", choices=["eliminated", "variables"],
                         help="joint-torque gains in closed form (default) or as decision variables (ablation)")
@@ -233,7 +235,7 @@ def main(argv=None) -> int:
             growth.append((task, evaluation, growth_exponent(results, task, evaluation, "fresh"),
                            growth_exponent(results, task, evaluation, "built")))
     if args.compare:
-        for task in tasks:
+        for task in (args.compare_tasks or args.tasks).split(","):
             comparison.append(in_child("--compare-child", task, str(args.compare)))
             print(json.dumps(comparison[-1]), flush=True)
     loads.append(load_text())
