@@ -33,7 +33,7 @@ from . import __version__
 from .analysis.knot_response import knot_responses
 from .analysis.linear_margin import best_linear_margin, certify_gains
 from .errors import SolveFailed
-from .planfile import Plan
+from .planfile import Plan, response_gains_key
 from .problem.requirement import as_json as requirements_json
 from .problem.requirement import required_margins
 from .robot.symbolic import SymbolicRobot
@@ -402,11 +402,17 @@ def _initial_gains(task, arrays) -> dict:
     return out
 
 
-def certified_margins(task, plan: Plan, arrays) -> np.ndarray:
-    """Sound linear-gain margins [N], shape (K, P): the plan's own gains when it has them, else the best."""
-    columns = []
+def certified_margins(task, plan: Plan, arrays) -> tuple[np.ndarray, list]:
+    """Sound linear-gain margins [N], shape (K, P), and the gains that certify them.
+
+    Per point, the plan's own gains when they certify more, else the best
+    linear response at the plan's point. The gains of point ``p`` have shape
+    (K, 3 nc, d): contact-force change per unit disturbance [N/N or N/(N m)],
+    world frame, contacts stacked, projected to balance the base exactly.
+    """
+    columns, gains = [], []
     for p in range(len(task.disturbances)):
-        column = []
+        column, chosen = [], []
         for k, response in knot_responses(plan, disturbance=p):
             rows = response.limit_rows()
             best = best_linear_margin(rows)
@@ -415,8 +421,10 @@ def certified_margins(task, plan: Plan, arrays) -> np.ndarray:
                 own = certify_gains(rows, arrays[f"G{p}"][:, k].reshape((-1, d), order="F") / arrays[f"rho{p}"][0, k])
                 best = own if own.rho >= best.rho else best
             column.append(best.rho)
+            chosen.append(best.gains)
         columns.append(column)
-    return np.array(columns).T
+        gains.append(np.array(chosen))
+    return np.array(columns).T, gains
 
 
 def _finished_plan(task, objective, arrays, outcome, backend: str) -> Plan:
@@ -426,9 +434,11 @@ def _finished_plan(task, objective, arrays, outcome, backend: str) -> Plan:
                        wall_time=sum(s.solve_time + s.build_time for s in outcome.stages),
                        max_violation=final.max_violation, name=backend)
     plan = _plan_arrays(task, objective, arrays, np.zeros(task.knots), solver_meta)
-    margins = certified_margins(task, plan, arrays)
+    margins, gains = certified_margins(task, plan, arrays)
     plan.margin = margins[:, 0].copy()
     plan.margins = margins
+    for p, point_gains in enumerate(gains):
+        plan.extras[response_gains_key(p)] = point_gains
     if "rho0" in arrays:
         plan.extras["margin_optimized"] = arrays["rho0"][0].copy()
     return plan
