@@ -20,6 +20,7 @@ COMMANDS = {
     "check-model": "optimizer.cli.check_model",
     "solve": "optimizer.cli.solve",
     "certify": "optimizer.cli.certify",
+    "sweep": "optimizer.cli.sweep",
     "export": "optimizer.cli.export",
 }
 
@@ -27,6 +28,7 @@ COMMAND_HELP = {
     "check-model": "inspect a robot file: mass, frames, limits, standing statics",
     "solve": "plan a whole-body motion for a task file and write a plan file",
     "certify": "compute the exact smallest unrejectable force of a plan, knot by knot",
+    "sweep": "solve a task over a grid or sample of variants; resumable, on a local pool or a Dask cluster",
     "export": "resample a plan at a fixed rate for a tracking controller (CSV or NPZ)",
 }
 
