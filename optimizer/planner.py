@@ -483,6 +483,7 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
         "gravity": [float(g) for g in robot.gravity],
         "integrator": INTEGRATOR,
         "contact_frames": [c.frame for c in task.contacts],
+        "hand_frame": robot.hand_frame,
         "contact_normals": [np.asarray(c.normal, float).tolist() for c in task.contacts],
         "friction": [float(c.friction) for c in task.contacts],
         "friction_pyramid": {"facets": int(task.facets), "inscribed": True,
