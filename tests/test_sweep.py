@@ -74,6 +74,11 @@ def test_local_pool_solves_every_variant_and_records_the_impossible_one(pool_run
         # The planned margin is a sound lower bound of the exact figure (certified linear response <= exact).
         assert float(row["margin_min_planned_N"]) <= float(row["margin_min_exact_N"]) * (1 + 1e-4) + 1e-6
         plan = load_plan(out / row["plan"])
+        # Low-margin knots are those under 5 % of m g (m from Pinocchio's total mass of the plan's URDF).
+        model = pin.buildModelFromXML(plan.meta["urdf"], pin.JointModelFreeFlyer())
+        level = 0.05 * pin.computeTotalMass(model) * np.linalg.norm(plan.meta["gravity"])
+        assert (int(row["low_margin_knots"]) > 0) == (float(row["margin_min_exact_N"]) < level)
+        assert row["requirement_met"] in ("True", "true", "1")
         # Coulomb's law, recomputed here from the plan file alone: |f_t| <= mu f_n at every foot and knot.
         normals = np.array(plan.meta["contact_normals"])
         f_n = np.einsum("knj,nj->kn", plan.contact_forces, normals)

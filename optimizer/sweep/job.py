@@ -20,6 +20,7 @@ import numpy as np
 
 from ..analysis.certify import certify_plan
 from ..analysis.failure import diagnose, report_lines
+from ..analysis.margin_flags import certificate_shortfalls, plan_requirements, unmet
 from ..analysis.presolve import run_checks
 from ..errors import InputError
 from ..planner import Planner
@@ -199,5 +200,8 @@ def _exact_figures(plan) -> dict:
     started = time.perf_counter()
     certificate = certify_plan(plan)
     rho = np.array([c.rho for c in certificate.knots], float)
+    shortfalls = certificate_shortfalls(certificate, plan, plan_requirements(plan.meta))
     return {"margin_min_exact_N": float(np.min(rho)), "margin_mean_exact_N": float(np.mean(rho)),
+            "low_margin_knots": sum(s.last - s.first + 1 for s in shortfalls if not s.required),
+            "requirement_met": not unmet(shortfalls),
             "certify_time_s": time.perf_counter() - started}
