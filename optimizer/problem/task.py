@@ -30,7 +30,7 @@ from .requirement import horizon_requirement, read_requirements
 from .stance import foot_residuals, solve_stance
 from .terrain import build_terrain
 
-OBJECTIVES = ("feasible", "robust", "robust-min", "torque")
+OBJECTIVES = ("feasible", "robust", "robust-min", "robust-sum", "torque")
 DISTURBANCE_DIMS = {"force": 3, "wrench": 6}
 UNIT_TOLERANCE = 1e-3      # |n| may differ from 1 by this much before it counts as a mistake
 MAX_KNOTS = 2000           # more knots than this is a typo, not a plan (the NLP grows linearly)
@@ -195,7 +195,12 @@ class Task:
 def load_task(path) -> Task:
     """Read and validate the task file at ``path``."""
     path = Path(path)
-    data = read_yaml_mapping(path, TaskError)
+    return task_from_mapping(read_yaml_mapping(path, TaskError), path)
+
+
+def task_from_mapping(data: dict, path) -> Task:
+    """Validate a task mapping as if read from ``path`` (relative paths resolve against its folder)."""
+    path = Path(path)
     top = Fields(data, path, "", TaskError)
     top.allow_only(TOP_LEVEL)
     if top.has("description"):
