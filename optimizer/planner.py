@@ -12,13 +12,12 @@ tasks of one shape (terrain variants) builds each NLP once.
 from __future__ import annotations
 
 import hashlib
-import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from . import __version__
+from . import __version__, supervisor
 from .analysis.knot_response import knot_responses
 from .analysis.linear_margin import best_linear_margin, certify_gains
 from .errors import SolveFailed
@@ -88,9 +87,10 @@ def built_solver(task, objective: str, expand: bool = True, torque_gains: str = 
     key = (hashlib.sha1(robot.urdf_text.encode()).hexdigest(), tuple(robot.torque_upper), structure,
            objective, expand, torque_gains, tuple(sorted(task.solver_options.items())))
     if key not in _BUILT:
+        supervisor.phase(f"building the {objective} solver")
         transcription = Transcription(robot, symbolic_robot(robot), structure, objective_named(objective),
                                       torque_gains=torque_gains)
-        log = Path(tempfile.mkdtemp(prefix="brace-ipopt-")) / "ipopt.log"
+        log = supervisor.scratch_dir("ipopt") / "ipopt.log"
         solver = IpoptSolver(transcription.nlp, task.solver_options, expand=expand, log_file=log,
                              progress=_ProgressRelay.instance)
         _BUILT[key] = (transcription, solver, log)
@@ -142,6 +142,7 @@ def solve(task, objective: str | None = None, *, knots: int | None = None, progr
     if knots is not None:
         task = task.with_knots(knots)
     outcome = SolveOutcome(task, objective, None)
+    supervisor.phase("computing the starting point")
     seed = initial_guess(task)
     stage = dict(progress=progress, log_path=log_path, expand=expand, torque_gains=torque_gains)
     arrays, result = _run_stage(task, "feasible", seed, outcome, **stage)
@@ -149,6 +150,7 @@ def solve(task, objective: str | None = None, *, knots: int | None = None, progr
         return outcome
     if objective != "feasible":
         if objective_named(objective).robust:
+            supervisor.phase("computing the starting gains")
             arrays = dict(arrays, **_initial_gains(task, arrays))
         arrays, result = _run_stage(task, objective, arrays, outcome, **stage)
         if not result.success:
@@ -166,6 +168,7 @@ def _run_stage(task, objective, start, outcome, progress, log_path, expand, torq
         layout.set(x0, "rooms", transcription.rooms_at(start, p))
     lbx, ubx = transcription.bounds(task.initial_posture)
     _ProgressRelay.listener = None if progress is None else _listener(progress, objective, transcription)
+    supervisor.phase(f"solving the {objective} stage")
     try:
         result: SolverResult = solver.solve(np.clip(x0, lbx, ubx), p, lbx, ubx, transcription.lbg, transcription.ubg)
     finally:
@@ -240,6 +243,7 @@ def _finished_plan(task, objective, arrays, outcome) -> Plan:
                        wall_time=sum(s.solve_time + s.build_time for s in outcome.stages),
                        max_violation=final.max_violation, name="ipopt")
     plan = _plan_arrays(task, objective, arrays, np.zeros(task.knots), solver_meta)
+    supervisor.phase("certifying the plan's margins")
     margins = certified_margins(task, plan, arrays)
     plan.margin = margins[:, 0].copy()
     plan.margins = margins

@@ -13,6 +13,7 @@ import math
 import sys
 
 from ..analysis.certify import DEFAULT_CAP, DEFAULT_TOL, Settings, certify_plan
+from .. import supervisor
 from ..errors import InputError
 from ..files import atomic_output
 from ..planfile import load_plan
@@ -47,17 +48,22 @@ def add_arguments(parser) -> None:
 
 def run(args) -> int:
     settings = _settings(args)
+    supervisor.phase("loading the plan")
     plan = load_plan(args.plan)
     knots = parse_knots(args.knots, plan.t.shape[0])
     count = len(plan.meta["disturbances"])
     if not 0 <= args.disturbance < count:
         raise InputError(CLI, "--disturbance", f"an index from 0 to {count - 1}", args.disturbance)
+    entry = plan.meta["disturbances"][args.disturbance]
+    supervisor.phase(f"certifying {len(knots)} knot(s)")
+    print(head_line(str(args.plan), entry["kind"], entry["frame"], len(knots), settings), flush=True)
     progress = ProgressLine(sys.stderr) if len(knots) > 1 else None
     cert = certify_plan(plan, knots, args.disturbance, settings, args.replay, args.seed, progress)
     if progress is not None:
         progress.clear()
-    print(report_text(cert, str(args.plan), quiet=args.quiet))
+    print(report_text(cert, quiet=args.quiet))
     if args.json:
+        supervisor.phase("writing the JSON report")
         document = {"plan": str(args.plan), **cert.to_json()}
         with atomic_output(args.json, suffix=".json") as tmp:
             tmp.write_text(json.dumps(document, indent=2) + "\n", encoding="utf-8")
@@ -166,11 +172,14 @@ def summary_lines(cert, unit: str) -> list:
     return lines
 
 
-def report_text(cert, plan_name: str, quiet: bool = False) -> str:
-    d = cert.disturbance
-    unit = "N" if d["kind"] == "force" else "N|Nm"
-    mode = "whole polytope" if cert.settings.full else "refined around the figure"
-    head = [f"certify {plan_name}: {d['kind']} at {d['frame']}, {len(cert.knots)} knots, "
-            f"projection {mode}, tol {cert.settings.tol:g}"]
+def head_line(plan_name: str, kind: str, frame: str, count: int, settings) -> str:
+    """The report's first line, printed before certification starts."""
+    mode = "whole polytope" if settings.full else "refined around the figure"
+    return f"certify {plan_name}: {kind} at {frame}, {count} knots, projection {mode}, tol {settings.tol:g}"
+
+
+def report_text(cert, quiet: bool = False) -> str:
+    """The report after the head line: the per-knot table (unless quiet) and the summary."""
+    unit = "N" if cert.disturbance["kind"] == "force" else "N|Nm"
     body = [] if quiet else knot_table(cert, unit) + [""]
-    return "\n".join(head + body + summary_lines(cert, unit))
+    return "\n".join(body + summary_lines(cert, unit))

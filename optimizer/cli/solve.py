@@ -22,6 +22,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from .. import supervisor
 from ..errors import InputError, OutputError
 from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
@@ -47,6 +48,15 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args) -> int:
+    supervisor.on_phase(None if args.quiet else _print_phase)
+    try:
+        return _run(args)
+    finally:
+        supervisor.on_phase(None)
+
+
+def _run(args) -> int:
+    supervisor.phase("loading the task")
     task = load_task(args.task)
     if args.knots is not None:
         if not 2 <= args.knots <= MAX_KNOTS:
@@ -72,6 +82,7 @@ def run(args) -> int:
         return 1
     from ..planfile import save_plan
 
+    supervisor.phase("writing the plan")
     save_plan(outcome.plan, out)
     _remove_stale_point(out)
     print("\n".join(summary_lines(outcome, elapsed, out, log_path)))
@@ -101,15 +112,21 @@ def run_checks(task, skip: bool) -> None:
     """Solver options on a tiny NLP, then the pre-solve checks (raise when the task is impossible)."""
     from ..analysis.presolve import check_solver_options, require_possible
 
+    supervisor.phase("checking the solver options")
     check_solver_options(task)
     if skip:
         return
+    supervisor.phase("running the pre-solve checks")
     started = time.perf_counter()
     warnings = require_possible(task)
     print(f"brace solve: pre-solve checks done in {time.perf_counter() - started:.2f} s"
           + (f", {len(warnings)} warning(s):" if warnings else ", nothing found"))
     for finding in warnings:
         print(f"  warning: {finding.text()}")
+
+
+def _print_phase(text: str) -> None:
+    print(f"  ... {text}", flush=True)
 
 
 def _print_progress(stage, iteration, cost, violation, smallest_margin):
