@@ -96,6 +96,7 @@ def still_running(marker: str) -> list[int]:
 def check_stopped(code, err, elapsed, signum, phase, scratch, marker):
     expected = 128 + int(signum)  # 130 for SIGINT, 143 for SIGTERM (shell convention)
     assert code == expected, err
+    print(f"{signum.name} while {phase}: exit {code} {elapsed:.2f} s after the signal")
     assert elapsed < PROMPT, f"exit {elapsed:.1f} s after the signal"
     lines = [line for line in err.splitlines() if line.strip()]
     assert "Traceback" not in err
