@@ -23,7 +23,8 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from .. import supervisor
-from ..errors import InputError, OutputError
+from ..errors import InputError, OutputError, TooLargeForMemory
+from ..memory import SIZE_TEXT, available_memory, format_size, parse_size
 from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
 from .notices import SAFETY
@@ -43,6 +44,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--quiet", action="store_true", help="no per-iteration progress lines")
     parser.add_argument("--skip-checks", action="store_true",
                         help="do not run the pre-solve checks (reach, standing still, statics, timing)")
+    parser.add_argument("--memory-limit", metavar="SIZE",
+                        help="most memory the solve may use, e.g. 8G or 512M (default: the task's "
+                             "solver.memory_limit, else what the machine has available)")
     parser.add_argument("--check-only", action="store_true",
                         help="validate the task and run the pre-solve checks, then stop without solving")
 
@@ -64,7 +68,9 @@ def _run(args) -> int:
         task = task.with_knots(args.knots)
     objective = args.objective or task.objective
     out = output_path(args, objective)
+    limit = memory_limit(args, task)
     run_checks(task, args.skip_checks)
+    check_memory(task, objective, limit)
     if args.check_only:
         print(f"brace solve: task '{task.name}' is valid" + ("" if args.skip_checks else "; pre-solve checks passed"))
         return 0
@@ -123,6 +129,50 @@ def run_checks(task, skip: bool) -> None:
           + (f", {len(warnings)} warning(s):" if warnings else ", nothing found"))
     for finding in warnings:
         print(f"  warning: {finding.text()}")
+
+
+def memory_limit(args, task) -> int | None:
+    """``--memory-limit`` in bytes, else the task's ``solver.memory_limit``, else None."""
+    if args.memory_limit is None:
+        return task.memory_limit
+    size = parse_size(args.memory_limit)
+    if size is None:
+        raise InputError(CLI, "--memory-limit", SIZE_TEXT, args.memory_limit)
+    return size
+
+
+CLOSE = 0.8  # warn when the estimate takes more than this share of the ceiling
+
+
+def check_memory(task, objective: str, limit: int | None) -> None:
+    """Refuse, before building anything, a solve whose estimated memory exceeds the ceiling; warn when close.
+
+    The ceiling is ``limit`` when given, else the memory available now.
+    """
+    from ..footprint import estimate_memory
+
+    supervisor.phase("estimating the memory the solve needs")
+    estimate = estimate_memory(task, objective)
+    available = available_memory()
+    if limit is not None:
+        ceiling, what = limit, "set as the memory limit"
+    elif available is not None:
+        ceiling, what = available.size, available.source
+    else:
+        print(f"brace solve: memory: {estimate.describe()} (the system does not say how much is available)")
+        return
+    if estimate.total > ceiling:
+        fits = estimate.largest_knots(ceiling)
+        advice = (f"the largest knot count that fits is {fits} (--knots {fits})" if fits >= 2
+                  else "not even 2 knots fit")
+        raise TooLargeForMemory(f"the solve needs {estimate.describe()}, more than the {format_size(ceiling)} {what}; "
+                                f"{advice}; nothing was built (a higher --memory-limit overrides the estimate)")
+    print(f"brace solve: memory: {estimate.describe()}; {format_size(ceiling)} {what}")
+    if estimate.total > CLOSE * ceiling:
+        print(f"  warning: the estimate is {100 * estimate.total / ceiling:.0f} % of the {format_size(ceiling)} "
+              f"{what}; the solve may run out of memory (fewer knots need less)")
+    if limit is not None and available is not None and estimate.total > available.size:
+        print(f"  warning: only {format_size(available.size)} is {available.source}, less than the estimate")
 
 
 def _print_phase(text: str) -> None:

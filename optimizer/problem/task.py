@@ -19,6 +19,7 @@ import numpy as np
 
 from ..errors import InfeasibleTask, TaskError
 from ..files import read_yaml_mapping
+from ..memory import SIZE_TEXT, parse_size
 from ..schema import Fields
 from .friction import tangent_basis
 from .terrain import build_terrain
@@ -118,12 +119,15 @@ class Task:
     min_normal_force : float
         N, for every active contact.
     solver_options : dict
-        Passed to the solver adapter as given.
+        Passed to the solver adapter as given (without ``memory_limit``).
     initial_posture : ndarray, shape (nq,), or None
         Fixed start configuration; None leaves it free (at rest).
     raw : dict
         The task mapping as read (JSON-serializable), ``horizon.knots``
         updated by :meth:`with_knots`.
+    memory_limit : int or None
+        Bytes a solve may use (``solver.memory_limit``); None: what the
+        machine has available.
     """
 
     name: str
@@ -141,6 +145,7 @@ class Task:
     solver_options: dict
     initial_posture: np.ndarray | None
     raw: dict
+    memory_limit: int | None = None
 
     def with_knots(self, knots: int) -> "Task":
         """A copy with ``knots`` knots (>= 2); the robot object is shared."""
@@ -187,6 +192,7 @@ def load_task(path) -> Task:
         facets=top.integer("pyramid_facets", 4, lo=3, hi=MAX_FACETS),
         min_normal_force=top.number("min_normal_force", 0.05 * weight / len(contacts), lo=0.0),
         solver_options=read_solver_options(top),
+        memory_limit=read_memory_limit(top),
         initial_posture=read_initial_posture(top, robot, contacts),
         raw=json_copy(data, path),
     )
@@ -371,15 +377,31 @@ def read_disturbance(spec: Fields, robot) -> DisturbanceSpec:
     return DisturbanceSpec(frame, kind, shape)
 
 
+MEMORY_LIMIT = "memory_limit"  # the one key of ``solver`` that brace reads itself (not an Ipopt option)
+
+
 def read_solver_options(top: Fields) -> dict:
-    """``solver``: a flat mapping of option name -> number, text or true/false."""
+    """``solver``: a flat mapping of option name -> number, text or true/false (``memory_limit`` apart)."""
     options = top.sub("solver", {})
     for key, value in options.data.items():
+        if key == MEMORY_LIMIT:
+            continue
         if not isinstance(key, str):
             options.fail(str(key), "an option name (text) as the key", key)
         if not isinstance(value, (bool, int, float, str)) or (isinstance(value, float) and not math.isfinite(value)):
             options.fail(str(key), "a number, text or true/false", value)
-    return dict(options.data)
+    return {key: value for key, value in options.data.items() if key != MEMORY_LIMIT}
+
+
+def read_memory_limit(top: Fields) -> int | None:
+    """``solver.memory_limit``: the most memory a solve may use, e.g. ``8G``; None when absent."""
+    options = top.sub("solver", {})
+    if MEMORY_LIMIT not in options.data:
+        return None
+    size = parse_size(options.data[MEMORY_LIMIT])
+    if size is None:
+        options.fail(MEMORY_LIMIT, SIZE_TEXT, options.data[MEMORY_LIMIT])
+    return size
 
 
 def read_initial_posture(top: Fields, robot, contacts) -> np.ndarray | None:

@@ -33,6 +33,14 @@ STATUS = {
 }
 SUCCESS = {"solved", "acceptable"}
 
+# Memory a solver built with ``expand=True`` takes per node of the expanded NLP
+# (constraints and cost as one SX graph): its Jacobian and Hessian graphs,
+# their work vectors and Ipopt's factorization together [bytes]. Measured on
+# the demo robot as the growth of the peak resident size per knot divided by
+# the growth of the expanded NLP's nodes per knot (benchmarks/memory.py,
+# results in benchmarks/RESULTS.md); re-measure when the build changes.
+BUILD_BYTES_PER_NODE = 2400
+
 DEFAULT_OPTIONS = {
     "tol": 1e-6,
     "constr_viol_tol": 1e-7,
