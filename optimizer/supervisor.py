@@ -232,6 +232,8 @@ def run(work, *, command: str) -> int:
         by signal n from elsewhere (137: often the system out of memory),
         with one line saying so.
     """
+    if not hasattr(os, "fork"):  # no fork (Windows): run in-process, stoppable between Python steps only
+        return int(work() or 0)
     state = _Run(command)
     previous = {s: signal.getsignal(s) for s in STOP_SIGNALS}
     for s in STOP_SIGNALS:
