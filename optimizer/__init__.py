@@ -12,12 +12,13 @@ Layers, each importing only from the ones above it:
 __version__ = "0.1.0"
 
 # The Python API, imported on first use so ``brace --help`` stays fast:
-#   optimizer.load_task(path), optimizer.solve(task, objective=...),
+#   optimizer.load_task(path), optimizer.solve(task, objective=...), optimizer.Planner(...),
 #   optimizer.save_plan(plan, path), optimizer.load_plan(path),
 #   optimizer.certify_plan(plan), optimizer.load_robot(path)
 _API = {
     "load_task": "optimizer.problem.task",
     "solve": "optimizer.planner",
+    "Planner": "optimizer.planner",
     "save_plan": "optimizer.planfile",
     "load_plan": "optimizer.planfile",
     "certify_plan": "optimizer.analysis.certify",

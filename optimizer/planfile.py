@@ -15,7 +15,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+import pinocchio as pin
 
+from .capture import captured_stderr
 from .errors import PlanFileError
 from .files import atomic_output
 from .schema import Fields
@@ -108,6 +110,13 @@ def save_plan(plan: Plan, path) -> None:
         np.savez(stream, **arrays)
 
 
+def infeasible_path(out) -> Path:
+    """Where the stopping point of a failed solve for plan ``out`` goes: ``plans/x.npz`` -> ``plans/x.infeasible.npz``."""
+    out = Path(out)
+    stem = out.name[:-4] if out.name.endswith(".npz") else out.name
+    return out.with_name(stem + ".infeasible.npz")
+
+
 def save_infeasible_point(plan: Plan, path) -> None:
     """Write where a failed solve stopped, in the plan layout but marked as no plan.
 
@@ -185,10 +194,6 @@ def _parse_meta(path: Path, raw: dict) -> dict:
 
 def build_model(path, urdf: str):
     """Pinocchio model of ``urdf`` with a free-flyer root (the contract's layout)."""
-    import pinocchio as pin
-
-    from .robot.model import captured_stderr
-
     try:
         with captured_stderr() as messages:
             return pin.buildModelFromXML(urdf, pin.JointModelFreeFlyer())

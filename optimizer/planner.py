@@ -2,16 +2,27 @@
 
 This is the orchestration layer and the Python API::
 
-    from optimizer import load_task, solve
-    outcome = solve(load_task("tasks/steep_ramp.yaml"), objective="robust", knots=20)
-    outcome.plan.margin        # N, per knot
+    from optimizer import Planner, load_task
+    task = load_task("tasks/steep_ramp.yaml")
+    with Planner(objective="robust", knots=20) as planner:
+        outcome = planner.solve(task)
+        outcome.plan.margin                        # N, per knot
+        seed = planner.seed(task)                  # one feasibility solve ...
+        plans = {name: planner.solve_from_seed(seed, name) for name in ("robust", "torque")}
 
-Built solvers are cached by (robot, structure, objective), so solving many
-tasks of one shape (terrain variants) builds each NLP once.
+``optimizer.solve(task, objective=..., knots=...)`` is a thin wrapper around
+a shared planner. A :class:`Planner` owns the symbolic robots and built
+solvers it makes, keyed by everything the built NLP reads that is not a
+parameter (:meth:`Planner.build_key`), so tasks of one shape (terrain
+variants) build each NLP once; it removes its temporary files on
+:meth:`Planner.close` (or when it is garbage-collected).
 """
 from __future__ import annotations
 
 import hashlib
+import shutil
+import threading
+import weakref
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -23,15 +34,13 @@ from .analysis.linear_margin import best_linear_margin, certify_gains
 from .errors import SolveFailed
 from .planfile import Plan
 from .robot.symbolic import SymbolicRobot
-from .solver.ipopt import IpoptSolver, SolverResult
+from .solver.backend import SolverResult
+from .solver.registry import DEFAULT_BACKEND, backend_named
 from .transcription.guess import initial_guess
 from .transcription.nlp import INTEGRATOR, Transcription
 from .transcription.objectives import OBJECTIVES, objective_named
 from .transcription.parameters import parameter_values
 from .transcription.structure import structure_of
-
-_SYMBOLIC: dict[str, SymbolicRobot] = {}
-_BUILT: dict[tuple, tuple] = {}
 
 
 @dataclass
@@ -53,11 +62,12 @@ class StageReport:
 
 @dataclass
 class SolveOutcome:
-    """What :func:`solve` reached.
+    """What a solve reached.
 
     ``plan`` is the finished plan (None when a stage failed); ``last`` the
     physical arrays where the last solver run stopped, ``violations`` its
-    largest violation per constraint group and knot (for diagnosis).
+    largest violation per constraint group and knot, ``transcription`` the
+    NLP of that run (for diagnosis).
     """
 
     task: object
@@ -66,51 +76,258 @@ class SolveOutcome:
     stages: list = field(default_factory=list)
     last: dict = field(default_factory=dict)
     violations: dict = field(default_factory=dict)
+    transcription: object = field(default=None, repr=False)
 
     @property
     def success(self) -> bool:
         return self.plan is not None
 
 
-def symbolic_robot(robot) -> SymbolicRobot:
-    """The robot's CasADi twin, built once per URDF text."""
-    key = hashlib.sha1(robot.urdf_text.encode()).hexdigest()
-    if key not in _SYMBOLIC:
-        _SYMBOLIC[key] = SymbolicRobot(robot.model)
-    return _SYMBOLIC[key]
+def robot_key(robot) -> str:
+    """Digest of everything a built NLP reads from ``robot``: URDF text, limits, mass, gravity, joint names."""
+    digest = hashlib.sha1(robot.urdf_text.encode())
+    for values in (robot.torque_lower, robot.torque_upper, robot.velocity_limit, robot.joint_lower,
+                   robot.joint_upper, robot.gravity, [robot.mass]):
+        digest.update(np.ascontiguousarray(values, dtype=float).tobytes())
+    digest.update("\n".join(robot.joint_names).encode())
+    return digest.hexdigest()
 
 
-def built_solver(task, objective: str, expand: bool = True, torque_gains: str = "eliminated"):
-    """(Transcription, IpoptSolver, log path) for the task's shape, built once and cached."""
-    structure = structure_of(task)
-    robot = task.robot
-    key = (hashlib.sha1(robot.urdf_text.encode()).hexdigest(), tuple(robot.torque_upper), structure,
-           objective, expand, torque_gains, tuple(sorted(task.solver_options.items())))
-    if key not in _BUILT:
-        supervisor.phase(f"building the {objective} solver")
-        transcription = Transcription(robot, symbolic_robot(robot), structure, objective_named(objective),
-                                      torque_gains=torque_gains)
-        log = supervisor.scratch_dir("ipopt") / "ipopt.log"
-        solver = IpoptSolver(transcription.nlp, task.solver_options, expand=expand, log_file=log,
-                             progress=_ProgressRelay.instance)
-        _BUILT[key] = (transcription, solver, log)
-    return _BUILT[key]
+@dataclass
+class Seed:
+    """A task's feasibility solve, the common start of every objective (:meth:`Planner.seed`).
+
+    ``task`` has the planner's knot count; ``arrays`` are the physical
+    arrays of the feasible point (empty when the solve failed); ``outcome``
+    the feasibility stage's :class:`SolveOutcome`.
+    """
+
+    task: object
+    arrays: dict
+    outcome: SolveOutcome
+
+    @property
+    def success(self) -> bool:
+        return bool(self.outcome.stages) and self.outcome.stages[-1].success
 
 
-class _ProgressRelay:
-    """Forwards Ipopt iterations to whichever listener the current solve set."""
+@dataclass
+class BuiltNLP:
+    """One transcription with its built solver and the solver's log file."""
 
-    listener = None
+    transcription: Transcription
+    solver: object
+    log: Path
+    unreported_build_time: float = 0.0
 
-    @classmethod
-    def instance(cls, iteration, x, f, g):
-        if cls.listener is not None:
-            cls.listener(iteration, x, f, g)
+
+class Planner:
+    """Plans tasks with fixed settings; owns the symbolic robots and built solvers it makes.
+
+    Parameters
+    ----------
+    objective : str, optional
+        Default objective (``feasible``, ``robust``, ``robust-min``,
+        ``torque``); None uses each task's own.
+    knots : int, optional
+        Knot count overriding the tasks' own.
+    backend : str
+        Name of the solver backend (:mod:`optimizer.solver.registry`).
+    options : dict, optional
+        Solver options over the task's ``solver`` options.
+    expand : bool
+        Evaluate the NLP as one scalar graph (faster iterations, slower build).
+    torque_gains : str
+        ``"eliminated"`` (the closed form, default) or ``"variables"`` (joint
+        torque gains as decision variables with the full balance; ablation).
+
+    A planner serializes its own solves (one lock per planner): use one
+    planner per thread to solve in parallel.
+    """
+
+    def __init__(self, objective: str | None = None, knots: int | None = None, backend: str = DEFAULT_BACKEND,
+                 options: dict | None = None, *, expand: bool = True, torque_gains: str = "eliminated"):
+        if objective is not None:
+            objective_named(objective)
+        self.objective, self.knots = objective, knots
+        self.backend = backend_named(backend)
+        self.options = dict(options or {})
+        self.expand, self.torque_gains = expand, torque_gains
+        self._symbolic: dict[str, SymbolicRobot] = {}
+        self._transcriptions: dict[tuple, Transcription] = {}
+        self._built: dict[tuple, BuiltNLP] = {}
+        self._lock = threading.RLock()
+        self._listener = None
+        self._folder = supervisor.scratch_dir("planner")
+        self._cleanup = weakref.finalize(self, shutil.rmtree, str(self._folder), True)
+
+    # -- lifetime --------------------------------------------------------------
+    @property
+    def folder(self) -> Path:
+        """The planner's temporary folder (solver logs); removed by :meth:`close`."""
+        return self._folder
+
+    def close(self) -> None:
+        """Forget the built solvers and remove the planner's temporary files."""
+        with self._lock:
+            self._built.clear()
+            self._transcriptions.clear()
+            self._cleanup()
+
+    def __enter__(self) -> Planner:
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+    # -- what a task needs -----------------------------------------------------
+    def prepared(self, task):
+        """``task`` with the planner's knot count."""
+        return task if self.knots is None else task.with_knots(self.knots)
+
+    def objective_for(self, task, objective: str | None = None) -> str:
+        """The objective to use: the argument, else the planner's, else the task's own."""
+        name = objective or self.objective or task.objective
+        objective_named(name)
+        return name
+
+    def solver_options(self, task) -> dict:
+        """The task's solver options with the planner's on top."""
+        return dict(task.solver_options, **self.options)
+
+    def transcription_key(self, task, objective: str) -> tuple:
+        """Everything a transcription reads that is not a parameter: robot, structure, objective, gain form."""
+        return (robot_key(task.robot), structure_of(task), objective, self.torque_gains)
+
+    def build_key(self, task, objective: str) -> tuple:
+        """:meth:`transcription_key` plus what the built solver reads: backend, expansion, options."""
+        options = tuple(sorted((k, repr(v)) for k, v in self.solver_options(task).items()))
+        return self.transcription_key(task, objective) + (self.backend.name, self.expand, options)
+
+    def symbolic_robot(self, robot) -> SymbolicRobot:
+        """The robot's CasADi twin, built once per URDF text."""
+        key = hashlib.sha1(robot.urdf_text.encode()).hexdigest()
+        with self._lock:
+            if key not in self._symbolic:
+                self._symbolic[key] = SymbolicRobot(robot.model)
+            return self._symbolic[key]
+
+    def transcription(self, task, objective: str) -> Transcription:
+        """The NLP of ``task`` (at its own knot count) for ``objective``, built once per key."""
+        key = self.transcription_key(task, objective)
+        with self._lock:
+            if key not in self._transcriptions:
+                self._transcriptions[key] = Transcription(task.robot, self.symbolic_robot(task.robot),
+                                                          structure_of(task), objective_named(objective),
+                                                          torque_gains=self.torque_gains)
+            return self._transcriptions[key]
+
+    def built(self, task, objective: str) -> BuiltNLP:
+        """The transcription with its built solver, built once per :meth:`build_key`."""
+        key = self.build_key(task, objective)
+        with self._lock:
+            if key not in self._built:
+                supervisor.phase(f"building the {objective} solver")
+                transcription = self.transcription(task, objective)
+                log = self._folder / f"solver-{len(self._built)}.log"
+                solver = self.backend.build(transcription.nlp, self.solver_options(task), expand=self.expand,
+                                            log_file=log, progress=self._relay)
+                self._built[key] = BuiltNLP(transcription, solver, log, solver.build_time)
+            return self._built[key]
+
+    def _relay(self, iteration, x, f, g):
+        if self._listener is not None:
+            self._listener(iteration, x, f, g)
+
+    # -- solving -----------------------------------------------------------------
+    def seed(self, task, *, progress=None, log_path=None) -> Seed:
+        """The feasibility solve of ``task`` from its initial guess: the start of every objective."""
+        task = self.prepared(task)
+        with self._lock:
+            outcome = SolveOutcome(task, "feasible", None)
+            supervisor.phase("computing the starting point")
+            start = initial_guess(task)
+            arrays, result = self._run_stage(task, "feasible", start, outcome, progress, log_path)
+            return Seed(task, arrays if result.success else {}, outcome)
+
+    def solve_from_seed(self, seed: Seed, objective: str | None = None, *, progress=None,
+                        log_path=None) -> SolveOutcome:
+        """Solve ``objective`` starting from ``seed``; the outcome's stages begin with the seed's."""
+        task = seed.task
+        objective = self.objective_for(task, objective)
+        with self._lock:
+            outcome = SolveOutcome(task, objective, None, stages=list(seed.outcome.stages),
+                                   last=seed.outcome.last, violations=seed.outcome.violations,
+                                   transcription=seed.outcome.transcription)
+            if not seed.success:
+                return outcome
+            arrays = seed.arrays
+            if objective != "feasible":
+                if objective_named(objective).robust:
+                    supervisor.phase("computing the starting gains")
+                    arrays = dict(arrays, **_initial_gains(task, arrays))
+                arrays, result = self._run_stage(task, objective, arrays, outcome, progress, log_path)
+                if not result.success:
+                    return outcome
+            outcome.plan = _finished_plan(task, objective, arrays, outcome, self.backend.name)
+            return outcome
+
+    def solve(self, task, objective: str | None = None, *, progress=None, log_path=None) -> SolveOutcome:
+        """Plan ``task``: its feasibility seed, then ``objective`` (see :func:`solve`)."""
+        with self._lock:
+            seed = self.seed(task, progress=progress, log_path=log_path)
+            return self.solve_from_seed(seed, objective, progress=progress, log_path=log_path)
+
+    def solve_objectives(self, task, objectives, *, progress=None, log_path=None) -> dict:
+        """Several objectives for one task from one feasibility seed: ``{objective: SolveOutcome}``."""
+        with self._lock:
+            seed = self.seed(task, progress=progress, log_path=log_path)
+            return {name: self.solve_from_seed(seed, name, progress=progress, log_path=log_path)
+                    for name in objectives}
+
+    def _run_stage(self, task, objective, start, outcome, progress, log_path):
+        built = self.built(task, objective)
+        transcription = built.transcription
+        layout = transcription.variables
+        x0 = layout.pack(start)
+        p = parameter_values(task, transcription.structure, transcription.parameters)
+        if "rooms" in layout and "rooms" not in start:
+            layout.set(x0, "rooms", transcription.rooms_at(start, p))
+        lbx, ubx = transcription.bounds(task.initial_posture)
+        self._listener = None if progress is None else _listener(progress, objective, transcription)
+        supervisor.phase(f"solving the {objective} stage")
+        try:
+            result: SolverResult = built.solver.solve(np.clip(x0, lbx, ubx), p, lbx, ubx, transcription.lbg,
+                                                      transcription.ubg)
+        finally:
+            self._listener = None
+            _append_log(built.log, log_path, objective)
+        outcome.stages.append(StageReport(objective, result.status, result.success, result.iterations,
+                                          result.wall_time, built.unreported_build_time, result.max_violation,
+                                          result.message))
+        built.unreported_build_time = 0.0  # reported once, with the first solve that paid for it
+        outcome.last = layout.unpack(result.x)
+        outcome.violations = transcription.constraints.violations(result.g, transcription.lbg, transcription.ubg)
+        outcome.transcription = transcription
+        return outcome.last, result
+
+
+_SHARED: dict[tuple, Planner] = {}
+_SHARED_LOCK = threading.Lock()
+
+
+def shared_planner(expand: bool = True, torque_gains: str = "eliminated") -> Planner:
+    """The planner :func:`solve` uses, one per setting (its files go when the interpreter exits)."""
+    with _SHARED_LOCK:
+        key = (expand, torque_gains)
+        if key not in _SHARED:
+            _SHARED[key] = Planner(expand=expand, torque_gains=torque_gains)
+        return _SHARED[key]
 
 
 def solve(task, objective: str | None = None, *, knots: int | None = None, progress=None,
           log_path=None, expand: bool = True, torque_gains: str = "eliminated") -> SolveOutcome:
-    """Plan ``task`` with ``objective`` (default: the task's own).
+    """Plan ``task`` with ``objective`` (default: the task's own); a thin wrapper around :class:`Planner`.
 
     Parameters
     ----------
@@ -124,12 +341,9 @@ def solve(task, objective: str | None = None, *, knots: int | None = None, progr
         Called at every solver iteration; ``min_margin`` [N] is NaN when the
         stage has no margin variables.
     log_path : path, optional
-        Ipopt's logs of every stage are appended to this file.
-    expand : bool
-        Evaluate the NLP as one SX graph (faster iterations, slower build).
-    torque_gains : str
-        ``"eliminated"`` (the closed form, default) or ``"variables"`` (joint
-        torque gains as decision variables with the full balance; ablation).
+        The solver's logs of every stage are appended to this file.
+    expand, torque_gains
+        As for :class:`Planner`.
 
     Returns
     -------
@@ -141,45 +355,7 @@ def solve(task, objective: str | None = None, *, knots: int | None = None, progr
         raise KeyError(f"unknown objective '{objective}'; known: {', '.join(OBJECTIVES)}")
     if knots is not None:
         task = task.with_knots(knots)
-    outcome = SolveOutcome(task, objective, None)
-    supervisor.phase("computing the starting point")
-    seed = initial_guess(task)
-    stage = dict(progress=progress, log_path=log_path, expand=expand, torque_gains=torque_gains)
-    arrays, result = _run_stage(task, "feasible", seed, outcome, **stage)
-    if not result.success:
-        return outcome
-    if objective != "feasible":
-        if objective_named(objective).robust:
-            supervisor.phase("computing the starting gains")
-            arrays = dict(arrays, **_initial_gains(task, arrays))
-        arrays, result = _run_stage(task, objective, arrays, outcome, **stage)
-        if not result.success:
-            return outcome
-    outcome.plan = _finished_plan(task, objective, arrays, outcome)
-    return outcome
-
-
-def _run_stage(task, objective, start, outcome, progress, log_path, expand, torque_gains):
-    transcription, solver, log = built_solver(task, objective, expand, torque_gains)
-    layout = transcription.variables
-    x0 = layout.pack(start)
-    p = parameter_values(task, transcription.structure, transcription.parameters)
-    if "rooms" in layout and "rooms" not in start:
-        layout.set(x0, "rooms", transcription.rooms_at(start, p))
-    lbx, ubx = transcription.bounds(task.initial_posture)
-    _ProgressRelay.listener = None if progress is None else _listener(progress, objective, transcription)
-    supervisor.phase(f"solving the {objective} stage")
-    try:
-        result: SolverResult = solver.solve(np.clip(x0, lbx, ubx), p, lbx, ubx, transcription.lbg, transcription.ubg)
-    finally:
-        _ProgressRelay.listener = None
-        _append_log(log, log_path, objective)
-    outcome.stages.append(StageReport(objective, result.status, result.success, result.iterations,
-                                      result.wall_time, solver.build_time, result.max_violation, result.message))
-    solver.build_time = 0.0  # reported once, with the first solve that paid for it
-    outcome.last = layout.unpack(result.x)
-    outcome.violations = transcription.constraints.violations(result.g, transcription.lbg, transcription.ubg)
-    return outcome.last, result
+    return shared_planner(expand, torque_gains).solve(task, objective, progress=progress, log_path=log_path)
 
 
 def _listener(progress, objective, transcription):
@@ -202,7 +378,7 @@ def _append_log(source: Path, target, title: str) -> None:
 
 
 def _initial_gains(task, arrays) -> dict:
-    """Per-knot gains and margins at a fixed point: the best linear response (FORMULATION 4)."""
+    """Per-knot gains and margins at a fixed point: the best linear response (docs/formulation.md)."""
     plan = _plan_arrays(task, "feasible", arrays, np.zeros(task.knots), {})
     out = {}
     for p in range(len(task.disturbances)):
@@ -236,12 +412,12 @@ def certified_margins(task, plan: Plan, arrays) -> np.ndarray:
     return np.array(columns).T
 
 
-def _finished_plan(task, objective, arrays, outcome) -> Plan:
+def _finished_plan(task, objective, arrays, outcome, backend: str) -> Plan:
     solver_meta = {"stages": [s.as_dict() for s in outcome.stages]}
     final = outcome.stages[-1]
     solver_meta.update(status=final.status, iterations=sum(s.iterations for s in outcome.stages),
                        wall_time=sum(s.solve_time + s.build_time for s in outcome.stages),
-                       max_violation=final.max_violation, name="ipopt")
+                       max_violation=final.max_violation, name=backend)
     plan = _plan_arrays(task, objective, arrays, np.zeros(task.knots), solver_meta)
     supervisor.phase("certifying the plan's margins")
     margins = certified_margins(task, plan, arrays)
@@ -296,3 +472,17 @@ def require_plan(outcome: SolveOutcome) -> Plan:
         raise SolveFailed(f"the {stage.objective} stage ended with status '{stage.status}' "
                           f"({stage.message}) after {stage.iterations} iterations")
     return outcome.plan
+
+
+def infeasible_point(outcome, violations) -> Plan:
+    """Where ``outcome``'s last stage stopped, in the plan layout, with the diagnosis in ``meta``.
+
+    :func:`optimizer.planfile.save_infeasible_point` marks it so no reader
+    mistakes it for a plan.
+    """
+    last = outcome.last
+    margin = last["rho0"][0].copy() if "rho0" in last else np.full(outcome.task.knots, np.nan)
+    solver = {"stages": [s.as_dict() for s in outcome.stages], "status": outcome.stages[-1].status}
+    point = _plan_arrays(outcome.task, outcome.objective, last, margin, solver)
+    point.meta["diagnosis"] = [v.as_dict() for v in violations]
+    return point

@@ -74,7 +74,7 @@ def test_minimum_normal_force_can_be_the_bottleneck():
     plan = box_plan(min_normal_force=0.95 * 20.0 * 9.81 / 4)
     tight = certify_plan(plan).knots[0]
     assert tight.rho < loose.rho
-    assert any(b.endswith("min normal force") for b in tight.bottleneck)
+    assert any(b.endswith("minimum normal force") for b in tight.bottleneck)
 
 
 def test_demo_plan_lies_between_independent_sampled_lp_bounds(demo_plan):
@@ -136,7 +136,7 @@ def test_torque_bottleneck_is_named_and_moves_the_figure_when_that_limit_moves()
     effort[weak] = 3.0
     plan = standing_plan(**args, torque_limits=(-effort, effort))
     cert = certify_plan(plan).knots[0]
-    assert any(re.fullmatch(r"torque wrist_pitch \((upper|lower)\)", b) for b in cert.bottleneck)
+    assert any(re.fullmatch(r"wrist_pitch torque \((upper|lower)\)", b) for b in cert.bottleneck)
     effort[weak] = 3.5
     stronger = certify_plan(standing_plan(**args, torque_limits=(-effort, effort))).knots[0]
     assert stronger.rho > cert.rho * 1.01
@@ -151,7 +151,7 @@ def test_torque_beyond_its_limit_is_a_violation_and_never_a_crash(excess, repair
     plan.meta["torque_limits"]["upper"][knee] = float(plan.tau[0, knee]) - excess
     cert = certify_plan(plan).knots[0]
     assert cert.status == ("violation" if repairable else "no admissible response")
-    assert cert.violations == [f"torque fl_knee (upper) exceeded by {excess:g}"]
+    assert cert.violations == [f"fl_knee torque (upper) exceeded by {excess:g}"]
     assert LiftedLP(plan, 0).contains(np.zeros(3)) is repairable
     assert (cert.rho > 0.0) is repairable
     assert json.loads(json.dumps(cert.to_json()))["status"] == cert.status

@@ -18,12 +18,13 @@ import pinocchio as pin
 import pytest
 import yaml
 
-from optimizer.analysis.failure import diagnose, knot_ranges, row_names
+from optimizer.analysis.failure import constraint_values, diagnose, knot_ranges
 from optimizer.cli import main
 from optimizer.errors import PlanFileError
 from optimizer.planfile import load_plan
-from optimizer.planner import built_solver, solve
+from optimizer.planner import Planner, solve
 from optimizer.problem.task import load_task
+from optimizer.transcription.parameters import parameter_values
 
 ROOT = Path(__file__).resolve().parents[1]
 FEET = {"foot_fl": (0.25, 0.18), "foot_fr": (0.25, -0.18), "foot_rl": (-0.25, 0.18), "foot_rr": (-0.25, -0.18)}
@@ -138,13 +139,14 @@ def test_joint_at_its_torque_limit_is_named(failed):
 
 def test_row_violations_agree_with_group_violations(failed):
     _, outcome = failed
-    transcription = built_solver(outcome.task, "feasible")[0]
-    from optimizer.analysis.failure import constraint_values
+    transcription = outcome.transcription
     g = constraint_values(transcription, outcome.task, outcome.last)
     per_group = transcription.constraints.violations(g, transcription.lbg, transcription.ubg)
     rows = transcription.constraints.row_violations(g, transcription.lbg, transcription.ubg)
-    for name, per_knot in per_group.items():
-        np.testing.assert_allclose(rows[name].max(axis=0, initial=0.0), per_knot, rtol=0, atol=0)
+    for group in transcription.constraints.groups:
+        for j, knot in enumerate(group.knots):
+            mine = [e for e, label in zip(rows[group.name], group.labels) if label.knot == knot]
+            assert max(mine, default=0.0) == per_group[group.name][j]
     # the planner recorded the same violations at the stopping point
     for name, per_knot in outcome.violations.items():
         np.testing.assert_allclose(per_group[name], per_knot, rtol=1e-9, atol=1e-12)
@@ -152,13 +154,11 @@ def test_row_violations_agree_with_group_violations(failed):
 
 def test_robust_limit_rows_are_named_after_the_limit_they_measure(failed):
     # Name the rows from the transcription's own room function: a torque put exactly at
-    # one joint's upper limit must leave zero room in the row named after that joint and
+    # one joint's upper limit must leave zero room in the row labelled with that joint and
     # side, and a foot carrying exactly the minimum normal force zero room in its row.
-    from optimizer.planner import built_solver
-    from optimizer.transcription.parameters import parameter_values
     _, outcome = failed
     task = outcome.task
-    transcription, _, _ = built_solver(task, "robust")
+    transcription = Planner().transcription(task, "robust")
     p = parameter_values(task, transcription.structure, transcription.parameters)
     robot, K, nc = task.robot, task.knots, len(task.contacts)
     tau = np.zeros((robot.nj, K))
@@ -168,16 +168,11 @@ def test_robust_limit_rows_are_named_after_the_limit_they_measure(failed):
         lam[3 * c:3 * c + 3, :] = 100.0 * np.asarray(contact.normal)[:, None]
     lam[3:6, :] = task.min_normal_force * np.asarray(task.contacts[1].normal)[:, None]
     rooms = transcription.rooms_at({"tau": tau, "lam": lam}, p)[:, 0]
-
-    class Group:
-        name, rows = "robust limits", rooms.size
-
-    names = row_names("robust limits", Group, task, task.facets)
+    group = transcription.constraints.group("limit rooms")
+    names = [label.who for label in group.labels if label.knot == 0]
     assert len(names) == rooms.size
     zero = {names[i] for i in np.flatnonzero(np.abs(rooms) < 1e-9)}
-    assert f"{robot.joint_names[3]} torque (upper)" in zero
-    assert f"{task.contacts[1].frame} normal force" in zero
-    assert not any(name.startswith(task.contacts[0].frame) for name in zero)
+    assert zero == {f"{robot.joint_names[3]} torque (upper)", f"{task.contacts[1].frame} minimum normal force"}
 
 
 def test_knot_ranges():

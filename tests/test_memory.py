@@ -16,7 +16,7 @@ import yaml
 
 from optimizer.footprint import estimate_memory, stage_size
 from optimizer.memory import available_memory, parse_size
-from optimizer.planner import symbolic_robot
+from optimizer.planner import shared_planner
 from optimizer.problem.task import load_task
 from optimizer.transcription.nlp import Transcription
 from optimizer.transcription.objectives import objective_named
@@ -50,7 +50,7 @@ def test_nodes_grow_linearly_with_knots():
     task = load_task(RAMP)
     size = stage_size(task, "robust")
     big = task.with_knots(16)
-    nlp = Transcription(big.robot, symbolic_robot(big.robot), structure_of(big), objective_named("robust")).nlp
+    nlp = Transcription(big.robot, shared_planner().symbolic_robot(big.robot), structure_of(big), objective_named("robust")).nlp
     nodes = ca.Function("nlp", [nlp["x"], nlp["p"]], [nlp["f"], nlp["g"]]).expand().n_nodes()
     predicted = size.nodes_fixed + 16 * size.nodes_per_knot
     assert abs(predicted - nodes) <= 0.02 * nodes, (predicted, nodes)

@@ -54,7 +54,7 @@ def test_two_link_arm_matches_the_manipulator_force_polytope(backend):
         assert cert.rho == pytest.approx(expected, rel=1e-6)
         weakest = int(np.argmin(margin / np.linalg.norm(jac.T, axis=1)))
         side = "upper" if upper[weakest] - tau[weakest] < tau[weakest] - lower[weakest] else "lower"
-        assert cert.bottleneck == [f"torque j{weakest} ({side})"]
+        assert cert.bottleneck == [f"j{weakest} torque ({side})"]
         # the planar arm resists any force along z: that direction is capped and reported
         assert cert.unbounded and not cert.capped
         # weakest direction: the normal of the binding slab, in the arm's plane
@@ -103,7 +103,7 @@ def test_nominal_outside_a_limit_gives_minus_the_distance_and_a_violation():
     cert, _ = certify_response(resp)
     assert cert.rho == pytest.approx(-3.0, rel=1e-6)
     assert cert.status == "violation"
-    assert cert.violations == ["torque j0 (upper) exceeded by 3"]
+    assert cert.violations == ["j0 torque (upper) exceeded by 3"]
     assert math.isnan(cert.ratio)
 
 
@@ -115,7 +115,7 @@ def test_flat_residual_set_gives_a_zero_figure():
     cert, _ = certify_response(resp)
     assert cert.rho == 0.0 and cert.flat
     assert abs(cert.direction[1]) == pytest.approx(1.0)
-    assert set(cert.bottleneck) <= {"torque j1 (upper)", "torque j1 (lower)"} and cert.bottleneck
+    assert set(cert.bottleneck) <= {"j1 torque (upper)", "j1 torque (lower)"} and cert.bottleneck
 
 
 def test_no_limit_at_all_is_capped_and_reported():

@@ -5,45 +5,22 @@ the failed stage stopped (``SolveOutcome.last``), groups the rows into
 families (equations of motion, feet on their footholds, friction per contact,
 torque room per joint, hand targets, robustness ...), ranks the families by
 their largest violation, names the knots and the contacts or joints behind
-it, and adds a hint. :func:`infeasible_point` packs that point into the plan
-layout, marked so no reader mistakes it for a plan
-(:func:`optimizer.planfile.save_infeasible_point`).
+it, and adds a hint. Rows are named by the labels the transcription gave
+them when it added them (:mod:`optimizer.transcription.constraints`).
 """
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from pathlib import Path
 
+import casadi as ca
 import numpy as np
 
-from ..planfile import Plan
+from ..transcription.constraints import family_named
+from ..transcription.parameters import parameter_values
 
 SHOWN = 1e-6          # violations below this (scaled NLP units) are not reported
 TORQUE_AT_LIMIT = 1e-3  # fraction of a joint's torque range counted as "at the limit"
-
-# family -> (plain words, hint)
-FAMILIES = {
-    "equations of motion": ("equations of motion: forces and torques do not balance the motion",
-                            "slow the motion down (a longer horizon, targets further apart in time) or ease the load "
-                            "(more friction, footholds nearer the body)"),
-    "velocity integration": ("velocity integration between knots", "use more knots or a longer horizon"),
-    "configuration integration": ("configuration integration between knots", "use more knots or a longer horizon"),
-    "unit quaternion": ("unit base quaternion at the start", "fix the start with initial_posture: stance"),
-    "stance contacts": ("feet on their footholds", "move the named footholds closer to the body, or fix the start "
-                        "with initial_posture: stance"),
-    "friction pyramid": ("friction per contact", "the named feet would slip: give them flatter or rougher footholds, "
-                         "or move the other feet so they carry more of the load"),
-    "minimum normal force": ("minimum normal force per contact", "the named feet would lift off: place them nearer "
-                             "under the centre of mass, or lower min_normal_force"),
-    "hand target": ("hand targets", "lower the hand target or bring it closer to the body, or move the feet "
-                    "(e.g. the rear feet closer) toward it"),
-    "robust balance": ("robustness: balance of the disturbance response", "shrink the disturbance shape, or solve "
-                       "with --objective feasible to see whether the plain task is possible"),
-    "robust limits": ("robustness: room at the torque, friction and normal-force limits", "a posture that loads "
-                      "the limits less, a wider stance, or a smaller disturbance shape"),
-    "limit rooms": ("room left at each limit", "a posture that loads the limits less, or a smaller disturbance shape"),
-}
 
 
 @dataclass
@@ -75,12 +52,6 @@ class Violation:
         return out
 
 
-def family_of(group: str) -> str:
-    """``hand target grip_point@12`` -> ``hand target``; ``robust limits (disturbance 1)`` -> ``robust limits``."""
-    name = group.split(" (disturbance")[0]
-    return "hand target" if name.startswith("hand target") else name
-
-
 def knot_ranges(knots) -> str:
     """``[1, 2, 3, 7]`` -> ``1-3, 7``."""
     knots, parts = sorted(int(k) for k in knots), []
@@ -92,63 +63,11 @@ def knot_ranges(knots) -> str:
     return ", ".join(str(a) if a == b else f"{a}-{b}" for a, b in parts) or "-"
 
 
-# ---------------------------------------------------------------- row names
-
-
-def _velocity_row_names(robot) -> list[str]:
-    return ["base (linear)"] * 3 + ["base (angular)"] * 3 + list(robot.joint_names)
-
-
-def _configuration_row_names(robot) -> list[str]:
-    names = ["base position"] * 3 + ["base orientation"] * 4
-    for j in range(2, robot.model.njoints):
-        names += [robot.model.names[j]] * robot.model.nqs[j]
-    return names
-
-
-def room_row_names(robot, frames, facets: int) -> list[str]:
-    """Names of the limit rooms in the transcription's order: torques up, torques down,
-    every contact's facets, every contact's normal force."""
-    return ([f"{j} torque (upper)" for j in robot.joint_names] + [f"{j} torque (lower)" for j in robot.joint_names]
-            + [f"{f} friction facet {k}" for f in frames for k in range(facets)]
-            + [f"{f} normal force" for f in frames])
-
-
-def row_names(family: str, group, task, facets: int) -> list[str]:
-    """Who each row of a group is about (contact, joint, target), length ``group.rows``."""
-    robot, frames = task.robot, [c.frame for c in task.contacts]
-    rows = group.rows
-    if family in ("equations of motion", "velocity integration"):
-        return _velocity_row_names(robot)[:rows]
-    if family == "configuration integration":
-        return _configuration_row_names(robot)[:rows]
-    if family == "stance contacts":
-        return [frames[i // 3] for i in range(rows)]
-    if family == "friction pyramid":
-        return [frames[i // facets] for i in range(rows)]
-    if family == "minimum normal force":
-        return frames[:rows]
-    if family in ("robust limits", "limit rooms"):
-        return room_row_names(robot, frames, facets)[:rows]
-    if family == "robust balance":
-        per = _velocity_row_names(robot)
-        block = 6 if rows % (6 + robot.nj) else 6 + robot.nj
-        return [per[i % block] for i in range(rows)]
-    if family == "hand target":
-        where = group.name[len("hand target "):]
-        return [f"{where} {'position' if i < 3 else 'orientation'}" for i in range(rows)]
-    return [group.name] * rows
-
-
 # ---------------------------------------------------------------- diagnosis
 
 
 def constraint_values(transcription, task, arrays: dict) -> np.ndarray:
     """The NLP's constraint vector g at the physical ``arrays`` (names of the variable layout)."""
-    import casadi as ca
-
-    from ..transcription.parameters import parameter_values
-
     x = transcription.variables.pack(arrays)
     p = parameter_values(task, transcription.structure, transcription.parameters)
     g = ca.Function("brace_constraints", [transcription.nlp["x"], transcription.nlp["p"]], [transcription.nlp["g"]])
@@ -158,50 +77,53 @@ def constraint_values(transcription, task, arrays: dict) -> np.ndarray:
 def diagnose(outcome, transcription=None) -> list[Violation]:
     """Violated constraint families at the point where ``outcome``'s last stage stopped, largest first.
 
-    ``transcription`` is the failed stage's NLP (default: the planner's
-    cached one for the task's shape and that stage's objective).
+    ``transcription`` is the failed stage's NLP (default: the one the outcome
+    recorded). Every row is named by the label it was added with (family,
+    knot, joint or contact).
     """
-    if transcription is None:
-        from ..planner import built_solver
-
-        transcription = built_solver(outcome.task, outcome.stages[-1].objective)[0]
+    transcription = transcription if transcription is not None else outcome.transcription
     task = outcome.task
     g = constraint_values(transcription, task, outcome.last)
-    rows = transcription.constraints.row_violations(g, transcription.lbg, transcription.ubg)
+    excess = np.maximum(np.maximum(transcription.lbg - g, g - transcription.ubg), 0.0)
     weight = task.robot.mass * float(np.linalg.norm(task.robot.gravity))
     families: dict[str, list] = {}
     for group in transcription.constraints.groups:
-        families.setdefault(family_of(group.name), []).append(group)
-    found = [_family_violation(name, groups, rows, task, weight) for name, groups in families.items()]
+        families.setdefault(group.family, []).append(group)
+    found = [_family_violation(name, groups, excess, weight) for name, groups in families.items()]
     found = [v for v in found if v is not None]
     found.sort(key=lambda v: v.largest, reverse=True)
     torque = torque_limit_violation(outcome)
     return found + ([torque] if torque is not None else [])
 
 
-def _family_violation(family, groups, rows, task, weight) -> Violation | None:
+def _family_violation(family, groups, excess, weight) -> Violation | None:
     per_who: dict[str, float] = {}
     per_knot: dict[int, float] = {}
     for group in groups:
-        excess = rows[group.name]
-        names = row_names(family, group, task, task.facets)
-        for r, who in enumerate(names):
-            per_who[who] = max(per_who.get(who, 0.0), float(excess[r].max(initial=0.0)))
-        for j, knot in enumerate(group.knots):
-            per_knot[knot] = max(per_knot.get(knot, 0.0), float(excess[:, j].max(initial=0.0)))
+        for label, value in zip(group.labels, excess[group.slice()]):
+            value = float(value)
+            per_who[label.who] = _larger(per_who.get(label.who, 0.0), value)
+            per_knot[label.knot] = _larger(per_knot.get(label.knot, 0.0), value)
     largest = max(per_knot.values(), default=0.0)
-    if not largest > SHOWN:   # also skips NaN
-        return None if largest == largest else _nan_violation(family, groups)
-    words, hint = FAMILIES.get(family, (family, "see the Ipopt log"))
+    if any(math.isnan(v) for v in per_knot.values()):
+        return _nan_violation(family, groups)
+    if not largest > SHOWN:
+        return None
+    described = family_named(family)
     unit = groups[0].unit
-    return Violation(family, words, largest, unit, physical_size(largest, unit, weight),
+    return Violation(family, described.words, largest, unit, physical_size(largest, unit, weight),
                      sorted(k for k, v in per_knot.items() if v >= 0.1 * largest),
                      [w for w, v in sorted(per_who.items(), key=lambda e: -e[1]) if v >= 0.1 * largest],
-                     hint, [g.name for g in groups])
+                     described.hint, [g.name for g in groups])
+
+
+def _larger(a: float, b: float) -> float:
+    """The larger of two violations; NaN wins (an invalid number is reported as such)."""
+    return b if (math.isnan(b) or b > a) else a
 
 
 def _nan_violation(family, groups) -> Violation:
-    return Violation(family, FAMILIES.get(family, (family, ""))[0], math.nan, groups[0].unit, "not a number",
+    return Violation(family, family_named(family).words, math.nan, groups[0].unit, "not a number",
                      [], [], "the solver met an invalid number; try initial_posture: stance or fewer knots",
                      [g.name for g in groups])
 
@@ -244,30 +166,3 @@ def report_lines(violations: list[Violation], shown: int = 5) -> list[str]:
         first, *rest = v.lines()
         lines += [f"{i}. {first}"] + [f"   {line}" for line in rest]
     return lines
-
-
-# ---------------------------------------------------------------- the stopping point as arrays
-
-
-def infeasible_point(outcome, violations: list[Violation]) -> Plan:
-    """The stopping point in the plan layout (meta marked infeasible by the saver), with the diagnosis."""
-    from ..planner import plan_meta
-
-    task, last = outcome.task, outcome.last
-    K, nc = task.knots, len(task.contacts)
-    footholds = np.array([c.foothold for c in task.contacts])
-    margin = last["rho0"][0].copy() if "rho0" in last else np.full(K, np.nan)
-    solver = {"stages": [s.as_dict() for s in outcome.stages], "status": outcome.stages[-1].status}
-    meta = plan_meta(task, outcome.objective, solver)
-    meta["diagnosis"] = [v.as_dict() for v in violations]
-    return Plan(t=task.times.copy(), q=last["q"].T.copy(), v=last["v"].T.copy(), a=last["a"].T.copy(),
-                tau=last["tau"].T.copy(), contact_forces=last["lam"].T.reshape(K, nc, 3).copy(),
-                contact_active=np.ones((K, nc), dtype=bool), contact_targets=np.repeat(footholds[None], K, axis=0),
-                margin=margin, meta=meta)
-
-
-def infeasible_path(out) -> Path:
-    """``plans/x.npz`` -> ``plans/x.infeasible.npz``."""
-    out = Path(out)
-    stem = out.name[:-4] if out.name.endswith(".npz") else out.name
-    return out.with_name(stem + ".infeasible.npz")

@@ -9,8 +9,8 @@ rejects every ``|u| <= rho`` exactly when
 
 so for fixed ``K`` the certified margin is ``min_i b_i / |a_u,i + K^T a_lambda,i|``
 (:func:`certify_gains`). The best ``K`` solves a small convex problem in the
-homogenized gains ``G = rho K`` (:func:`best_linear_margin`), solved here with
-Ipopt; the reported figure is always re-certified from the gains, so it is a
+homogenized gains ``G = rho K`` (:func:`best_linear_margin`), solved with a
+backend of the solver registry (Ipopt); the reported figure is always re-certified from the gains, so it is a
 sound lower bound of the exact margin whatever the solver's tolerance.
 """
 from __future__ import annotations
@@ -21,7 +21,10 @@ from functools import lru_cache
 import casadi as ca
 import numpy as np
 
+from ..solver.registry import backend_named
 from .response import LimitRows
+
+MARGIN_BACKEND = "ipopt"   # the registry's backend for the per-knot convex problem
 
 EQUALITY_TOL = 1e-9  # relative residual of the base balance accepted as exact
 
@@ -91,7 +94,7 @@ def certify_gains(rows: LimitRows, gains) -> LinearMargin:
 
 @lru_cache(maxsize=32)
 def _margin_solver(n_rows: int, n_eq: int, d: int, n_gain: int):
-    """Ipopt for ``max rho`` over homogenized gains, for one problem shape (built once).
+    """A solver for ``max rho`` over homogenized gains, for one problem shape (built once).
 
     Each limit row arrives divided by its room, so the constraint reads
     ``|rho a_u + G^T a_lambda|^2 <= 1`` whatever the room: a nearly active
@@ -106,9 +109,8 @@ def _margin_solver(n_rows: int, n_eq: int, d: int, n_gain: int):
     x = ca.vertcat(ca.vec(G), rho)
     p = ca.vertcat(ca.vec(a_u), ca.vec(a_lam), ca.vec(e_u), ca.vec(e_lam))
     f = -rho + 1e-8 * ca.sumsqr(G)
-    opts = {"ipopt": {"print_level": 0, "tol": 1e-10, "max_iter": 300}, "print_time": False,
-            "error_on_fail": False}
-    return ca.nlpsol("linear_margin", "ipopt", {"x": x, "p": p, "f": f, "g": g}, opts)
+    options = {"print_level": 0, "tol": 1e-10, "max_iter": 300}
+    return backend_named(MARGIN_BACKEND).build({"x": x, "p": p, "f": f, "g": g}, options, expand=False, defaults=False)
 
 
 def best_linear_margin(rows: LimitRows, initial_gains=None) -> LinearMargin:
@@ -133,10 +135,10 @@ def best_linear_margin(rows: LimitRows, initial_gains=None) -> LinearMargin:
     x0 = np.concatenate([(start * fallback.gains).reshape(-1, order="F"), [start]])
     lbx = np.concatenate([np.full(n_gain * d, -np.inf), [0.0]])
     n_eq = rows.a_eq.shape[0] * d
-    out = solver(x0=x0, p=p, lbx=lbx, ubx=np.inf,
-                 lbg=np.concatenate([np.zeros(n_eq), np.full(a.shape[0], -np.inf)]),
-                 ubg=np.concatenate([np.zeros(n_eq), np.ones(a.shape[0])]))
-    x = np.array(out["x"]).ravel()
+    ubx = np.full(x0.size, np.inf)
+    out = solver.solve(x0, p, lbx, ubx, np.concatenate([np.zeros(n_eq), np.full(a.shape[0], -np.inf)]),
+                       np.concatenate([np.zeros(n_eq), np.ones(a.shape[0])]))
+    x = out.x
     rho = x[-1]
     if not np.isfinite(rho) or rho <= 1e-12:
         return fallback

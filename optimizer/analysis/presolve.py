@@ -39,7 +39,9 @@ from scipy.optimize import linprog
 
 from ..errors import InfeasibleTask, TaskError
 from ..problem.friction import pyramid_facets
+from ..problem.limits import FRICTION, TORQUE
 from ..problem.stance import stance_checks, static_support_lp
+from ..solver.registry import DEFAULT_BACKEND, backend_named
 
 CONE_FACETS = 16          # facets of the pyramid circumscribing each Coulomb cone (proof of "cannot stand")
 FRICTION_SCALE_MAX = 1e3  # beyond this scale of mu the surfaces "cannot carry the weight at any friction"
@@ -276,19 +278,18 @@ def statics_findings(task, q) -> list[Finding]:
                         "moments with any forces", "move the feet so they surround the centre of mass")]
     per_contact = robot.mass * float(np.linalg.norm(robot.gravity)) / len(task.contacts)
     out, contacts = [], {}
-    for name in support.tight:
-        if name.startswith("torque "):
-            joint, side = name[len("torque "):].rsplit(" ", 1)
+    for limit in support.tight:
+        if limit.kind == TORQUE:
+            joint, side = limit.owner, limit.side
             i = robot.joint_names.index(joint)
             short = -support.slack * (robot.torque_upper[i] - robot.torque_lower[i]) / 2
-            limit = robot.torque_upper[i] if side == "upper" else robot.torque_lower[i]
+            value = robot.torque_upper[i] if side == "upper" else robot.torque_lower[i]
             out.append(Finding("statics", False, f"holding the start posture still needs joint {joint} beyond its "
-                               f"{side} torque limit {limit:+.1f} {_unit(robot, i, 'torque')} by about {short:.1f} "
-                               f"{_unit(robot, i, 'torque')}", "choose a posture or footholds that load this joint "
-                               "less", short, _unit(robot, i, "torque")))
+                               f"{side} torque limit {value:+.1f} {_unit(robot, i, 'torque')} by about {short:.1f} "
+                               f"{_unit(robot, i, 'torque')} ({limit})", "choose a posture or footholds that load "
+                               "this joint less", short, _unit(robot, i, "torque")))
         else:
-            frame, _, what = name.partition(" ")
-            contacts.setdefault(frame, set()).add("friction" if what.startswith("facet") else "min normal force")
+            contacts.setdefault(limit.owner, set()).add("friction" if limit.kind == FRICTION else "minimum normal force")
     if contacts:
         short = -support.slack * per_contact
         names = ", ".join(f"{frame} ({' and '.join(sorted(kinds))})" for frame, kinds in contacts.items())
@@ -367,43 +368,17 @@ def require_possible(task) -> list[Finding]:
 # ---------------------------------------------------------------- solver options
 
 
-def check_solver_options(task) -> None:
-    """Try the task's ``solver`` options on a one-variable NLP; a rejected option is a TaskError.
-
-    Ipopt checks names, types and ranges when a solver is built and
-    availability (e.g. of a linear solver) when it runs; both take a few
-    milliseconds on a tiny problem, against seconds for the real NLP.
-    """
+def check_solver_options(task, backend: str = DEFAULT_BACKEND) -> None:
+    """Try the task's ``solver`` options on the backend's option check; a rejected option is a TaskError."""
     if not task.solver_options:
         return
-    if _options_rejected(task.solver_options) is None:
+    solver = backend_named(backend)
+    if solver.check_options(task.solver_options) is None:
         return
     for name, value in task.solver_options.items():
-        reason = _options_rejected({name: value})
+        reason = solver.check_options({name: value})
         if reason is not None:
-            raise TaskError(task.path, f"solver.{name}", "an Ipopt option name with a value of the right type "
-                            "and range", value, reason)
-    raise TaskError(task.path, "solver", "Ipopt options that work together", task.solver_options,
-                    _options_rejected(task.solver_options))
-
-
-def _options_rejected(options: dict) -> str | None:
-    """Why Ipopt refuses ``options`` (a short text), or None when it accepts them."""
-    import casadi as ca
-
-    from ..robot.model import captured_output
-    from ..solver.ipopt import DEFAULT_OPTIONS
-
-    x = ca.SX.sym("x")
-    ipopt = dict(DEFAULT_OPTIONS, **options)
-    settings = {"ipopt": ipopt, "print_time": False, "error_on_fail": False}
-    try:
-        with captured_output(1) as printed, captured_output(2):
-            solver = ca.nlpsol("brace_option_probe", "ipopt", {"x": x, "f": x * x}, settings)
-            solver(x0=1.0)
-    except (RuntimeError, TypeError, NotImplementedError) as exc:
-        lines = [line.split(":", 2)[-1].strip() for line in str(exc).splitlines() if line.strip()]
-        notes = [line for line in printed if "not a valid setting" in line]
-        return (notes or lines or ["rejected"])[-1][:200]
-    status = solver.stats().get("return_status", "")
-    return "Ipopt stopped at once with status " + status if status in ("Invalid_Option", "Internal_Error") else None
+            raise TaskError(task.path, f"solver.{name}", f"an {solver.title} option name with a value of the right "
+                            "type and range", value, reason)
+    raise TaskError(task.path, "solver", f"{solver.title} options that work together", task.solver_options,
+                    solver.check_options(task.solver_options))

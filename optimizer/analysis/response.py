@@ -18,6 +18,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..problem.limits import KnotLimits, LimitValues
+
 
 @dataclass
 class KnotResponse:
@@ -121,8 +123,10 @@ class LimitRows:
         plan already violates.
     a_eq : ndarray, shape (base_dofs, dim + 3 na)
     names : list of str, length r
-        One name per row, e.g. ``"torque knee (upper)"``.
+        One name per row, e.g. ``"knee torque (upper)"``.
     dim : int
+    limits : list of LimitName, length r
+        The structured name of each row (kind, joint or contact, side or facet).
     """
 
     a_ub: np.ndarray
@@ -130,40 +134,47 @@ class LimitRows:
     a_eq: np.ndarray
     names: list
     dim: int
+    limits: list = field(default_factory=list)
+
+
+def limit_values(resp: KnotResponse) -> LimitValues:
+    """The knot's limits as :class:`~optimizer.problem.limits.LimitValues` (the weight is not used here)."""
+    return LimitValues(resp.tau_lower, resp.tau_upper, list(resp.facets), list(resp.normals),
+                       resp.min_normal_force, weight=1.0)
+
+
+def _owner_order(limits: KnotLimits, joints, contacts, active) -> list[int]:
+    """Rows by owner: each joint's upper and lower torque, then each active contact's facets and normal force."""
+    by_owner: dict[str, list[int]] = {}
+    for i, name in enumerate(limits.names):
+        by_owner.setdefault(name.owner, []).append(i)
+    order = [i for joint in joints for i in sorted(by_owner.get(joint, []),
+                                                  key=lambda i: limits.names[i].side != "upper")]
+    return order + [i for c, on in zip(contacts, active) if on for i in by_owner.get(c, [])]
 
 
 def build_limit_rows(resp: KnotResponse) -> LimitRows:
-    """Linear rows of the torque box, pyramid facets and minimum normal forces."""
+    """Linear rows of the knot's limits (:mod:`optimizer.problem.limits`) in ``x = (u, dlambda_active)``.
+
+    A limit's room changes by ``A_tau dtau + A_lam dlambda`` with
+    ``dtau = -T x``; it must stay >= 0, so the row reads
+    ``(A_tau T - A_lam E) x <= room``. Rows of inactive contacts and of
+    infinite torque limits are left out. The projection in
+    :mod:`.polytope` is sensitive to the row order in degenerate cases, so
+    rows come by owner (see :func:`_owner_order`).
+    """
     jc_b, jc_j, je_b, je_j = resp.split()
-    cols = np.flatnonzero(np.repeat(np.asarray(resp.active, bool), 3))
+    active = np.asarray(resp.active, bool)
+    cols = np.flatnonzero(np.repeat(active, 3))
     d = resp.dim
-    # dtau = -(Jc_j^T dlambda + Je_j^T u) = -T x
-    t_map = np.hstack([je_j.T, jc_j[cols].T])
-    blocks, rhs, names = [], [], []
-    for i in range(resp.nj):
-        name = resp.joint_name(i)
-        if np.isfinite(resp.tau_upper[i]):
-            blocks.append(-t_map[i])
-            rhs.append(resp.tau_upper[i] - resp.tau[i])
-            names.append(f"torque {name} (upper)")
-        if np.isfinite(resp.tau_lower[i]):
-            blocks.append(t_map[i])
-            rhs.append(resp.tau[i] - resp.tau_lower[i])
-            names.append(f"torque {name} (lower)")
-    width = d + cols.size
-    for slot, c in enumerate(np.flatnonzero(resp.active)):
-        lam = resp.forces[c]
-        for j, g in enumerate(resp.facets[c]):
-            row = np.zeros(width)
-            row[d + 3 * slot: d + 3 * slot + 3] = g
-            blocks.append(row)
-            rhs.append(-g @ lam)
-            names.append(f"{resp.contact_name(c)} friction facet {j}")
-        row = np.zeros(width)
-        row[d + 3 * slot: d + 3 * slot + 3] = -resp.normals[c]
-        blocks.append(row)
-        rhs.append(resp.normals[c] @ lam - resp.min_normal_force)
-        names.append(f"{resp.contact_name(c)} min normal force")
-    a_ub = np.array(blocks, dtype=float).reshape(len(blocks), width)
+    joints = tuple(resp.joint_name(i) for i in range(resp.nj))
+    contacts = tuple(resp.contact_name(c) for c in range(resp.nc))
+    limits = KnotLimits(joints, contacts, resp.facets.shape[1] if resp.nc else 0)
+    a_tau, a_lam, b = limits.linear(limit_values(resp))
+    room = limits.rooms(np.asarray(resp.tau, float), np.asarray(resp.forces, float).reshape(-1), limit_values(resp))
+    t_map = np.hstack([je_j.T, jc_j[cols].T])          # dtau = -T x
+    a_ub = np.hstack([np.zeros((len(b), d)), -a_lam[:, cols]]) + a_tau @ t_map
+    keep = [i for i in _owner_order(limits, joints, contacts, active) if np.isfinite(b[i])]
     a_eq = np.hstack([je_b.T, jc_b[cols].T])
-    return LimitRows(a_ub, np.array(rhs, dtype=float), a_eq, names, d)
+    return LimitRows(a_ub[keep].reshape(len(keep), d + cols.size), np.asarray(room, float)[keep], a_eq,
+                     [str(limits.names[i]) for i in keep], d, [limits.names[i] for i in keep])

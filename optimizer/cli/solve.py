@@ -206,8 +206,9 @@ def summary_lines(outcome: SolveOutcome, elapsed: float, out: Path, log_path: Pa
 
 def _report_failure(outcome: SolveOutcome, out: Path, log_path: Path) -> None:
     """Status, diagnosis and the saved stopping point, on standard error."""
-    from ..analysis.failure import diagnose, infeasible_path, infeasible_point, report_lines
-    from ..planfile import save_infeasible_point
+    from ..analysis.failure import diagnose, report_lines
+    from ..planfile import infeasible_path, save_infeasible_point
+    from ..planner import infeasible_point
 
     err = sys.stderr
     stage = outcome.stages[-1]
@@ -229,7 +230,7 @@ def _report_failure(outcome: SolveOutcome, out: Path, log_path: Path) -> None:
 
 def _remove_stale_point(out: Path) -> None:
     """A stopping point left by an earlier failed solve of the same output no longer applies."""
-    from ..analysis.failure import infeasible_path
+    from ..planfile import infeasible_path
 
     stale = infeasible_path(out)
     if stale.exists():

@@ -26,6 +26,7 @@ from scipy.optimize import linprog
 
 from ..errors import InfeasibleTask
 from .friction import pyramid_facets
+from .limits import FRICTION, TORQUE, KnotLimits, LimitName, LimitValues
 
 WORLD_ALIGNED = pin.ReferenceFrame.LOCAL_WORLD_ALIGNED
 
@@ -277,9 +278,9 @@ class StaticSupport:
         Contact forces at the optimum, N, world frame (NaN if none).
     tau : ndarray, shape (nj,)
         Joint torques at the optimum, N m (NaN if none).
-    tight : list of str
-        The limits that decide ``slack`` (e.g. ``foot_fl facet 2``,
-        ``torque fl_knee upper``).
+    tight : list of LimitName
+        The limits that decide ``slack`` (``str()`` spells them, e.g.
+        ``foot_fl friction facet 2``, ``fl_knee torque (upper)``).
     message : str
         Status text of the LP solver.
     """
@@ -303,27 +304,43 @@ def _static_terms(robot, q, contacts):
 
 
 def _inequalities(robot, contacts, jac, gravity, facets, min_normal_force, limits):
-    """Rows ``A [lambda; s] <= b`` with their names (see :class:`StaticSupport`)."""
+    """Rows ``A [lambda; s] <= b`` with their :class:`LimitName` (see :class:`StaticSupport`).
+
+    The limits are :mod:`.limits`' rows with ``tau = g_j - Jc_j^T lambda``;
+    each gets the slack column ``s`` times its scale: ``m g / nc`` for a
+    contact row (a facet row normalized to a unit normal first), half the
+    torque range for a torque row. Joints without two finite limits are left
+    out. Order: every contact's facets and normal force, then every joint's
+    upper and lower torque.
+    """
     nc, force_scale = len(contacts), robot.mass * np.linalg.norm(robot.gravity) / len(contacts)
-    rows, rhs, names = [], [], []
-    for c, contact in enumerate(contacts):
-        g = pyramid_facets(contact.normal, contact.tangents, contact.friction, facets)
-        for j, gj in enumerate(g):
-            row = np.zeros(3 * nc + 1)
-            row[3 * c:3 * c + 3], row[-1] = gj / np.linalg.norm(gj), force_scale
-            rows.append(row), rhs.append(0.0), names.append(f"{contact.frame} facet {j}")
-        row = np.zeros(3 * nc + 1)
-        row[3 * c:3 * c + 3], row[-1] = -np.asarray(contact.normal), force_scale
-        rows.append(row), rhs.append(-min_normal_force), names.append(f"{contact.frame} min normal force")
-    lower, upper = limits
+    lower, upper = (np.asarray(x, float) for x in limits)
+    knot = KnotLimits(tuple(robot.joint_names), tuple(c.frame for c in contacts), facets)
+    values = LimitValues(lower, upper, [pyramid_facets(c.normal, c.tangents, c.friction, facets) for c in contacts],
+                         [np.asarray(c.normal, float) for c in contacts], min_normal_force,
+                         robot.mass * np.linalg.norm(robot.gravity))
+    a_tau, a_lam, b = knot.linear(values)
     jc_j, g_j = jac[:, 6:], gravity[6:]      # tau = g_j - Jc_j^T lambda
-    for i, name in enumerate(robot.joint_names):
-        if not (np.isfinite(lower[i]) and np.isfinite(upper[i])):
-            continue
-        half = (upper[i] - lower[i]) / 2
-        rows.append(np.append(-jc_j[:, i], half)), rhs.append(upper[i] - g_j[i]), names.append(f"torque {name} upper")
-        rows.append(np.append(jc_j[:, i], half)), rhs.append(g_j[i] - lower[i]), names.append(f"torque {name} lower")
-    return np.array(rows), np.array(rhs), names
+    # room = b + a_tau (g_j - Jc_j^T lambda) + a_lam lambda >= slack * scale
+    a_force = a_tau @ jc_j.T - a_lam
+    offset = b + a_tau @ g_j
+    half = (upper - lower) / 2
+    names = knot.names
+    order = [i for i, n in enumerate(names) if n.kind != TORQUE]
+    joint = {name: i for i, name in enumerate(robot.joint_names)}
+    for i in range(len(robot.joint_names)):
+        if np.isfinite(lower[i]) and np.isfinite(upper[i]):
+            order += [knot.index(LimitName(TORQUE, robot.joint_names[i], side)) for side in ("upper", "lower")]
+    rows, rhs = [], []
+    for i in order:
+        name = names[i]
+        if name.kind == TORQUE:
+            scale, norm = half[joint[name.owner]], 1.0
+        else:
+            norm = np.linalg.norm(a_lam[i]) if name.kind == FRICTION else 1.0
+            scale = force_scale
+        rows.append(np.append(a_force[i] / norm, scale)), rhs.append(offset[i] / norm)
+    return np.array(rows), np.array(rhs), [names[i] for i in order]
 
 
 def static_support_lp(robot, q, contacts, facets: int = 4, min_normal_force: float = 0.0,

@@ -8,14 +8,8 @@ naming the file, the field and what was expected.
 """
 from __future__ import annotations
 
-import contextlib
-import ctypes
-import io
 import difflib
 import math
-import os
-import sys
-import tempfile
 import xml.etree.ElementTree as ET
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -23,6 +17,7 @@ from pathlib import Path
 import numpy as np
 import pinocchio as pin
 
+from ..capture import captured_stderr
 from ..errors import ModelError
 from ..files import read_text, read_yaml_mapping
 from ..schema import Fields
@@ -225,42 +220,6 @@ def _urdf_joint(elem: ET.Element) -> UrdfJoint:
     return UrdfJoint(name=elem.get("name", ""), kind=elem.get("type", ""),
                      child="" if child is None else child.get("link", ""),
                      effort=positive("effort"), velocity=positive("velocity"))
-
-
-@contextlib.contextmanager
-def captured_output(fd: int = 2):
-    """Collect what C++ code writes to file descriptor ``fd`` (1 or 2) into ``lines`` (a list).
-
-    The matching Python stream is redirected too: CasADi hands its C++
-    output to Python's ``sys.stdout``, which may not be file descriptor 1.
-    """
-    lines: list[str] = []
-    (sys.stdout if fd == 1 else sys.stderr).flush()
-    redirect = contextlib.redirect_stdout if fd == 1 else contextlib.redirect_stderr
-    saved = os.dup(fd)
-    with tempfile.TemporaryFile(mode="w+b") as sink, io.StringIO() as python_side:
-        os.dup2(sink.fileno(), fd)
-        try:
-            with redirect(python_side):
-                yield lines
-        finally:
-            _flush_c_streams()
-            os.dup2(saved, fd)
-            os.close(saved)
-            sink.seek(0)
-            lines.extend(sink.read().decode("utf-8", "replace").splitlines())
-            lines.extend(python_side.getvalue().splitlines())
-
-
-def _flush_c_streams() -> None:
-    """Flush the C library's stdio buffers, so text C++ code printed lands in the capture."""
-    with contextlib.suppress(OSError, AttributeError, TypeError):
-        ctypes.CDLL(None).fflush(None)
-
-
-def captured_stderr():
-    """Collect what C++ code writes to standard error into ``lines`` (a list)."""
-    return captured_output(2)
 
 
 def build_pinocchio_model(urdf_text: str, urdf_path: Path) -> pin.Model:

@@ -1,10 +1,9 @@
-"""Thin adapter from an NLP as data to Ipopt through CasADi.
+"""The Ipopt backend (through CasADi): the first entry of the solver registry.
 
 The adapter knows nothing of robots: it takes ``{'x','p','f','g'}``, builds
 the solver once, and solves for any parameter vector, bounds and start.
-Ipopt's return codes map to a few neutral statuses; user options override
-the defaults. A future stage-structured solver gets an adapter of the same
-shape (``build`` once, ``solve`` many times, :class:`SolverResult`).
+Ipopt's return codes map to the neutral statuses of
+:mod:`optimizer.solver.backend`; user options override the defaults.
 """
 from __future__ import annotations
 
@@ -12,10 +11,11 @@ import contextlib
 import signal
 import threading
 import time
-from dataclasses import dataclass, field
-
 import casadi as ca
 import numpy as np
+
+from ..capture import captured_output
+from .backend import SUCCESS, SolverResult, max_excess
 
 STATUS = {
     "Solve_Succeeded": "solved",
@@ -31,7 +31,6 @@ STATUS = {
     "Diverging_Iterates": "diverged",
     "Invalid_Number_Detected": "numerical-error",
 }
-SUCCESS = {"solved", "acceptable"}
 
 # Memory a solver built with ``expand=True`` takes per node of the expanded NLP
 # (constraints and cost as one SX graph): its Jacobian and Hessian graphs,
@@ -52,28 +51,9 @@ DEFAULT_OPTIONS = {
     "linear_solver": "mumps",
     "hessian_approximation": "exact",
     "print_level": 0,
+    "sb": "yes",                     # no banner on standard output
     "honor_original_bounds": "yes",  # the final point lies inside the bounds, not 1e-8 outside
 }
-
-
-@dataclass
-class SolverResult:
-    """What a solve reached.
-
-    ``x`` is the last point (scaled), ``status`` one of the neutral names in
-    :data:`STATUS` (or ``"failed"``), ``max_violation`` the largest bound or
-    constraint violation at ``x`` in the NLP's own (scaled) units.
-    """
-
-    x: np.ndarray
-    status: str
-    success: bool
-    iterations: int
-    wall_time: float
-    objective: float
-    max_violation: float
-    message: str
-    g: np.ndarray = field(repr=False, default=None)
 
 
 class _Progress(ca.Callback):
@@ -158,8 +138,8 @@ class IpoptSolver:
         Called at every Ipopt iteration.
     """
 
-    def __init__(self, nlp, options=None, expand=True, log_file=None, progress=None):
-        ipopt = dict(DEFAULT_OPTIONS)
+    def __init__(self, nlp, options=None, expand=True, log_file=None, progress=None, defaults=True):
+        ipopt = dict(DEFAULT_OPTIONS) if defaults else {"sb": "yes"}
         ipopt.update(options or {})
         if log_file is not None:
             ipopt.update({"output_file": str(log_file), "file_print_level": 5})
@@ -187,11 +167,37 @@ class IpoptSolver:
         name = stats.get("return_status", "unknown")
         status = STATUS.get(name, "failed")
         x, g = np.array(out["x"]).ravel(), np.array(out["g"]).ravel()
-        violation = max(_excess(g, lbg, ubg), _excess(x, lbx, ubx))
+        violation = max(max_excess(g, lbg, ubg), max_excess(x, lbx, ubx))
         return SolverResult(x, status, status in SUCCESS, int(stats.get("iter_count", 0)), wall,
                             float(out["f"]), violation, name, g)
 
 
-def _excess(values, lower, upper) -> float:
-    excess = np.maximum(np.asarray(lower) - values, values - np.asarray(upper))
-    return float(max(0.0, excess.max(initial=0.0)))
+class IpoptBackend:
+    """Ipopt as a :class:`~optimizer.solver.backend.SolverBackend`."""
+
+    name = "ipopt"
+    build_bytes_per_node = BUILD_BYTES_PER_NODE
+    title = "Ipopt"
+
+    def build(self, nlp, options=None, *, expand=True, log_file=None, progress=None, defaults=True) -> IpoptSolver:
+        return IpoptSolver(nlp, options, expand=expand, log_file=log_file, progress=progress, defaults=defaults)
+
+    def check_options(self, options: dict) -> str | None:
+        """Try ``options`` on a one-variable NLP: why Ipopt refuses them (a short text), or None.
+
+        Ipopt checks names, types and ranges when a solver is built and
+        availability (e.g. of a linear solver) when it runs; both take a few
+        milliseconds on a tiny problem, against seconds for the real NLP.
+        """
+        x = ca.SX.sym("x")
+        settings = {"ipopt": dict(DEFAULT_OPTIONS, **options), "print_time": False, "error_on_fail": False}
+        try:
+            with captured_output(1) as printed, captured_output(2):
+                solver = ca.nlpsol("brace_option_probe", "ipopt", {"x": x, "f": x * x}, settings)
+                solver(x0=1.0)
+        except (RuntimeError, TypeError, NotImplementedError) as exc:
+            lines = [line.split(":", 2)[-1].strip() for line in str(exc).splitlines() if line.strip()]
+            notes = [line for line in printed if "not a valid setting" in line]
+            return (notes or lines or ["rejected"])[-1][:200]
+        status = solver.stats().get("return_status", "")
+        return "Ipopt stopped at once with status " + status if status in ("Invalid_Option", "Internal_Error") else None

@@ -13,7 +13,12 @@ from __future__ import annotations
 
 import casadi as ca
 
+from ..problem.limits import ArrayOps, KnotLimits, LimitValues
 from .structure import DisturbanceSlot, Structure
+
+# CasADi's versions of the few array operations the limit rows use
+CASADI_OPS = ArrayOps(stack=lambda parts: ca.vertcat(*parts), dot=ca.dot, maximum=ca.fmax, absolute=ca.fabs,
+                      ones=ca.DM.ones)
 
 
 class KnotFunctions:
@@ -30,13 +35,16 @@ class KnotFunctions:
         its square for the squared robust rows) so every group is of order one.
     """
 
-    def __init__(self, symbolic, structure: Structure, weight: float, torque_gains: str = "eliminated"):
+    def __init__(self, symbolic, structure: Structure, weight: float, torque_gains: str = "eliminated",
+                 joint_names=None):
         self.torque_gains = torque_gains
         self.sym = symbolic
         self.structure = structure
         self.weight = float(weight)
         self.nq, self.nv, self.nj = symbolic.nq, symbolic.nv, symbolic.nj
         self.contacts = symbolic.point_kinematics(list(structure.contact_frames))
+        joints = tuple(joint_names) if joint_names is not None else tuple(f"joint {i}" for i in range(self.nj))
+        self.limits = KnotLimits(joints, tuple(structure.contact_frames), structure.facets)
         self.dynamics = self._dynamics()
         self.stance = self._stance()
         self.friction = self._friction()
@@ -66,18 +74,25 @@ class KnotFunctions:
                            ["q", "footholds"], ["error"])
 
     def _friction(self) -> ca.Function:
-        """(lam, facets, normals) -> (facet rows (m nc,) <= 0, normal forces (nc,)) / (m g)."""
-        nc, m = self.structure.nc, self.structure.facets
-        lam = self._sym("lam", 3 * nc)
+        """(lam, facets, normals, f_min) -> rooms of the contacts' limits / (m g): facets (m nc,), normal forces (nc,).
+
+        The rows of :mod:`optimizer.problem.limits` (``-g . lam`` per facet,
+        ``n . lam - f_min`` per contact); each is >= 0 when its limit holds.
+        """
+        nc, m, nj = self.structure.nc, self.structure.facets, self.nj
+        lam, f_min = self._sym("lam", 3 * nc), self._sym("f_min")
         facets, normals = self._sym("facets", 3 * m, nc), self._sym("normals", 3, nc)
-        rows, pushes = [], []
-        for c in range(nc):
-            force = lam[3 * c:3 * c + 3]
-            rows.append(ca.mtimes(ca.reshape(facets[:, c], 3, m).T, force))
-            pushes.append(ca.dot(normals[:, c], force))
-        return ca.Function("friction", [lam, facets, normals],
-                           [ca.vertcat(*rows) / self.weight, ca.vertcat(*pushes) / self.weight],
-                           ["lam", "facets", "normals"], ["facet_rows", "normal_forces"])
+        zero = ca.SX.zeros(nj)
+        rooms = self.limits.rooms(zero, lam, self._limit_values(facets, normals, f_min, zero, zero), CASADI_OPS)
+        contact = rooms[2 * nj:] / self.weight
+        return ca.Function("friction", [lam, facets, normals, f_min], [contact[:nc * m], contact[nc * m:]],
+                           ["lam", "facets", "normals", "f_min"], ["facet_rooms", "normal_rooms"])
+
+    def _limit_values(self, facets, normals, f_min, lower, upper) -> LimitValues:
+        """CasADi parameters as :class:`LimitValues`: pyramid rows (3 m, nc) -> one (m, 3) matrix per contact."""
+        nc, m = self.structure.nc, self.structure.facets
+        return LimitValues(lower, upper, [ca.reshape(facets[:, c], 3, m).T for c in range(nc)],
+                           [normals[:, c] for c in range(nc)], f_min, self.weight)
 
     def _step(self) -> ca.Function:
         """(q_k, q_k+1, v_k+1, h) -> q_k+1 - integrate(q_k, h v_k+1): semi-implicit Euler on SE(3)."""
@@ -89,32 +104,25 @@ class KnotFunctions:
     def _rooms(self) -> ca.Function:
         """(tau, lam, facets, normals, f_min, tau_lower, tau_upper) -> room left at every limit.
 
-        Output (2 nj + nc m + nc,): ``tau_upper - tau``, ``tau - tau_lower``
-        [N m], then per contact ``-g . lam`` for each facet and
-        ``n . lam - f_min`` [N]. Every entry is >= 0 exactly when the plain
-        limits hold.
+        The rows of :mod:`optimizer.problem.limits` in its order (2 nj + nc m +
+        nc,): ``tau_upper - tau``, ``tau - tau_lower`` [N m], then per
+        contact ``-g . lam`` for each facet, then ``n . lam - f_min`` [N].
+        Every entry is >= 0 exactly when the plain limits hold.
         """
         nc, m, nj = self.structure.nc, self.structure.facets, self.nj
         tau, lam = self._sym("tau", nj), self._sym("lam", 3 * nc)
         facets, normals, f_min = self._sym("facets", 3 * m, nc), self._sym("normals", 3, nc), self._sym("f_min")
         lower, upper = self._sym("tau_lower", nj), self._sym("tau_upper", nj)
-        facet_rooms, normal_rooms = [], []
-        for c in range(nc):
-            force = lam[3 * c:3 * c + 3]
-            facet_rooms.append(-ca.mtimes(ca.reshape(facets[:, c], 3, m).T, force))
-            normal_rooms.append(ca.dot(normals[:, c], force) - f_min)
-        rooms = ca.vertcat(upper - tau, tau - lower, *facet_rooms, *normal_rooms)
+        rooms = self.limits.rooms(tau, lam, self._limit_values(facets, normals, f_min, lower, upper), CASADI_OPS)
         return ca.Function("limit_rooms", [tau, lam, facets, normals, f_min, lower, upper], [rooms],
                            ["tau", "lam", "facets", "normals", "f_min", "tau_lower", "tau_upper"], ["rooms"])
 
     def room_scales(self, tau_lower, tau_upper):
-        """Scale of each room row: the joint's largest torque limit [N m], or ``m g / nc`` [N].
-
-        Works on CasADi symbols (parameters) and on numbers alike; returns a column.
-        """
-        nc, m = self.structure.nc, self.structure.facets
-        limit = ca.fmax(ca.fabs(tau_lower), ca.fabs(tau_upper))
-        return ca.vertcat(limit, limit, ca.DM.ones(nc * (m + 1)) * (self.weight / nc))
+        """Scale of each room row (:meth:`KnotLimits.scales`), on CasADi symbols or numbers; a column."""
+        values = LimitValues(ca.DM(tau_lower) if not isinstance(tau_lower, (ca.SX, ca.MX)) else tau_lower,
+                             ca.DM(tau_upper) if not isinstance(tau_upper, (ca.SX, ca.MX)) else tau_upper,
+                             [], [], 0.0, self.weight)
+        return self.limits.scales(values, CASADI_OPS)
 
     def _robust(self, index: int, slot: DisturbanceSlot) -> ca.Function:
         """Robust rows of disturbance ``index`` in the homogenized gain form (FORMULATION 4).

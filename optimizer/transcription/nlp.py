@@ -16,6 +16,7 @@ from __future__ import annotations
 import casadi as ca
 import numpy as np
 
+from ..problem.limits import FRICTION, NORMAL_FORCE, TORQUE
 from .constraints import ConstraintStack
 from .knot_functions import KnotFunctions
 from .layout import VectorLayout
@@ -30,6 +31,22 @@ INF = float("inf")
 # feasibility tolerance, so a solved plan meets every limit exactly and its
 # margin can be certified without any tolerance.
 LIMIT_BACKOFF = 1e-6
+
+
+def velocity_names(robot) -> list[str]:
+    """What each velocity coordinate (and each equation-of-motion row) is about, length nv."""
+    base = ["base (linear x)", "base (linear y)", "base (linear z)",
+            "base (angular x)", "base (angular y)", "base (angular z)"]
+    return base + list(robot.joint_names)
+
+
+def configuration_names(robot) -> list[str]:
+    """What each configuration coordinate is about, length nq (a joint with several coordinates repeats)."""
+    names = ["base position"] * 3 + ["base orientation"] * 4
+    model = robot.model
+    for j in range(2, model.njoints):
+        names += [model.names[j]] * model.nqs[j]
+    return names
 
 
 class Transcription:
@@ -52,7 +69,7 @@ class Transcription:
         self.weight = robot.mass * float(np.linalg.norm(robot.gravity))
         self.context = Context(self.weight, float(np.mean(np.maximum(abs(robot.torque_lower), abs(robot.torque_upper)))),
                                structure.knots)
-        self.functions = KnotFunctions(symbolic, structure, self.weight, torque_gains)
+        self.functions = KnotFunctions(symbolic, structure, self.weight, torque_gains, robot.joint_names)
         self.map_mode = map_mode
         self.variables = self._variable_layout()
         self.parameters = parameter_layout(structure, robot)
@@ -102,15 +119,16 @@ class Transcription:
         K, f = self.structure.knots, self.functions
         every, steps = range(K), range(1, K)
         eom = self._map(f.dynamics, K)(V["q"], V["v"], V["a"], V["tau"], V["lam"])
-        self.constraints.add("equations of motion", eom, every, unit="m g")
+        self.constraints.add("equations of motion", eom, every, unit="m g", who=velocity_names(self.robot))
         h = P["step"]
         self.constraints.add("velocity integration", V["v"][:, 1:] - V["v"][:, :-1] - h * V["a"][:, :-1],
-                             steps, unit="rad/s")
+                             steps, unit="rad/s", who=velocity_names(self.robot))
         step = self._map(f.step, K - 1)(V["q"][:, :-1], V["q"][:, 1:], V["v"][:, 1:], h)
-        self.constraints.add("configuration integration", step, steps, unit="rad or m")
+        self.constraints.add("configuration integration", step, steps, unit="rad or m",
+                             who=configuration_names(self.robot))
         if not self.structure.fixed_start:
             quat = V["q"][3:7, 0]
-            self.constraints.add("unit quaternion", ca.dot(quat, quat) - 1.0, [0])
+            self.constraints.add("unit quaternion", ca.dot(quat, quat) - 1.0, [0], who=["base orientation"])
 
     def _contacts(self, V, P):
         K, f = self.structure.knots, self.functions
@@ -120,23 +138,29 @@ class Transcription:
         first = 1 if self.structure.fixed_start else 0
         knots = range(first, K - 1)
         stance = self._map(f.stance, len(knots))(V["q"][:, first:K - 1], P["footholds"])
-        self.constraints.add("stance contacts", stance, knots, unit="m")
+        frames = self.structure.contact_frames
+        self.constraints.add("stance contacts", stance, knots, unit="m", who=[c for c in frames for _ in range(3)])
         if self.objective.robust:
             scales = ca.repmat(f.room_scales(P["tau_lower"], P["tau_upper"]), 1, K)
             self.constraints.add("limit rooms", (self._rooms(V["tau"], V["lam"], P) - V["rooms"]) / scales, range(K),
-                                 unit="limit or m g/nc")
+                                 unit="limit or m g/nc", who=f.limits.names)
             return  # the rooms' bounds carry the plain limits
-        facet_rows, pushes = self._map(f.friction, K)(V["lam"], P["facets"], P["normals"])
-        self.constraints.add("friction pyramid", facet_rows, range(K), -INF, -LIMIT_BACKOFF, unit="m g")
-        self.constraints.add("minimum normal force", pushes - P["min_normal_force"] / self.weight,
-                             range(K), LIMIT_BACKOFF, INF, unit="m g")
+        facet_rooms, normal_rooms = self._map(f.friction, K)(V["lam"], P["facets"], P["normals"],
+                                                             P["min_normal_force"])
+        contact_limits = [n for n in f.limits.names if n.kind != TORQUE]
+        self.constraints.add("friction pyramid", facet_rooms, range(K), LIMIT_BACKOFF, INF, unit="m g",
+                             who=[n.owner for n in contact_limits if n.kind == FRICTION])
+        self.constraints.add("minimum normal force", normal_rooms, range(K), LIMIT_BACKOFF, INF, unit="m g",
+                             who=[n.owner for n in contact_limits if n.kind == NORMAL_FORCE])
 
     def _hand_targets(self, V, P):
         for i, slot in enumerate(self.structure.targets):
             position, orientation = self.functions.hand[slot.frame](
                 V["q"][:, slot.knot], P["target_position"][:, i], P["target_rotation"][:, i])
             residual = ca.vertcat(position, orientation) if slot.orientation else position
-            self.constraints.add(f"hand target {slot.frame}@{slot.knot}", residual, [slot.knot], unit="m or rad")
+            where = f"{slot.frame}@{slot.knot}"
+            self.constraints.add(f"hand target {where}", residual, [slot.knot], unit="m or rad", family="hand target",
+                                 who=[f"{where} position"] * 3 + [f"{where} orientation"] * (3 if slot.orientation else 0))
 
     def _rooms(self, tau, lam, P):
         """Room left at every limit, (rows, K), for symbolic or numeric ``tau``, ``lam`` and parameters."""
@@ -151,8 +175,12 @@ class Transcription:
             balance, cone = self._map(function, K)(V["q"], V[f"G{p}"], V[f"rho{p}"], V["rooms"], P["facets"],
                                                    P["normals"], P[f"shape{p}"], scales, *extra)
             tag = f" (disturbance {p})" if len(self.functions.robust) > 1 else ""
-            self.constraints.add("robust balance" + tag, balance, range(K), unit="m g")
-            self.constraints.add("robust limits" + tag, cone, range(K), 0.0, INF, unit="limit or m g/nc")
+            # balance is vec of a (rows, d) matrix, column-major: one block of rows per disturbance direction
+            per_direction = velocity_names(self.robot) if self.torque_gains == "variables" else velocity_names(self.robot)[:6]
+            self.constraints.add("robust balance" + tag, balance, range(K), unit="m g", family="robust balance",
+                                 who=per_direction * self.structure.disturbances[p].dim)
+            self.constraints.add("robust limits" + tag, cone, range(K), 0.0, INF, unit="limit or m g/nc",
+                                 family="robust limits", who=self.functions.limits.names)
 
     def rooms_at(self, arrays, p) -> np.ndarray:
         """Room left at every limit, shape (rows, K), for physical ``tau`` and ``lam`` arrays."""

@@ -1,0 +1,81 @@
+"""What every NLP solver backend offers, and the neutral result it returns.
+
+A backend turns an NLP given as data (``{'x', 'p', 'f', 'g'}``, CasADi
+expressions) into a built solver once (:meth:`SolverBackend.build`, the slow
+step, keyed by the caller), which then solves many times for any parameter
+vector, bounds and start (:meth:`BuiltSolver.solve`). Results use a few
+neutral status names (:data:`STATUSES`), so nothing above this layer knows
+which solver ran. A backend also says whether it accepts a set of options
+before anything is built (:meth:`SolverBackend.check_options`).
+
+Adding a backend: one module in ``optimizer/solver/`` with a class meeting
+:class:`SolverBackend`, registered in :mod:`optimizer.solver.registry`.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Callable, Protocol
+
+import numpy as np
+
+# The neutral statuses; "solved" and "acceptable" count as success.
+STATUSES = ("solved", "acceptable", "infeasible", "iteration-limit", "time-limit", "interrupted", "stalled",
+            "diverged", "numerical-error", "failed")
+SUCCESS = frozenset({"solved", "acceptable"})
+
+
+@dataclass
+class SolverResult:
+    """What a solve reached.
+
+    ``x`` is the last point (in the NLP's own, scaled units), ``status`` one
+    of :data:`STATUSES`, ``max_violation`` the largest bound or constraint
+    violation at ``x``, ``wall_time`` in s, ``message`` the backend's own
+    status text, ``g`` the constraint values at ``x``.
+    """
+
+    x: np.ndarray
+    status: str
+    success: bool
+    iterations: int
+    wall_time: float
+    objective: float
+    max_violation: float
+    message: str
+    g: np.ndarray = field(repr=False, default=None)
+
+
+class BuiltSolver(Protocol):
+    """A solver built for one NLP. ``build_time`` [s] is what building it cost."""
+
+    build_time: float
+
+    def solve(self, x0, p, lbx, ubx, lbg, ubg) -> SolverResult:
+        """Solve from ``x0``; never raises on solver failure (see ``status``); Ctrl-C raises KeyboardInterrupt."""
+
+
+class SolverBackend(Protocol):
+    """An NLP solver behind brace's neutral interface."""
+
+    name: str      # registry key
+    title: str     # how reports spell it
+    build_bytes_per_node: float  # memory a built solver takes per node of the expanded NLP [bytes] (estimates)
+
+    def check_options(self, options: dict) -> str | None:
+        """Why the backend refuses ``options`` (one short line), or None when it accepts them."""
+
+    def build(self, nlp: dict, options: dict | None = None, *, expand: bool = True, log_file=None,
+              progress: Callable | None = None, defaults: bool = True) -> BuiltSolver:
+        """Build once for ``nlp``.
+
+        ``options`` override the backend's defaults (or stand alone with
+        ``defaults=False``); ``expand`` evaluates the NLP as one scalar graph;
+        ``log_file`` receives the full iteration log; ``progress(iteration, x,
+        f, g)`` is called at every iteration.
+        """
+
+
+def max_excess(values, lower, upper) -> float:
+    """Largest amount by which ``values`` leave ``[lower, upper]`` (0 inside)."""
+    excess = np.maximum(np.asarray(lower) - values, values - np.asarray(upper))
+    return float(max(0.0, excess.max(initial=0.0)))
