@@ -134,3 +134,21 @@ def test_certify_stops_and_writes_no_report(tmp_path):
     code, err, elapsed = finish(process, sent)
     check_stopped(code, err, elapsed, signal.SIGTERM, "certifying 300 knot(s)", scratch, marker)
     assert sorted(p.name for p in tmp_path.iterdir()) == ["stand.npz", "tmp"]  # no report, no temporary
+
+
+@pytest.mark.slow
+def test_work_killed_from_elsewhere_is_reported_and_cleaned(tmp_path):
+    """The kernel's out-of-memory killer sends SIGKILL to the largest process: the work, not the supervisor."""
+    task = tmp_path / "task.yaml"
+    task.write_text(yaml.safe_dump(TASK), encoding="utf-8")
+    out = tmp_path / "out" / "plan.npz"
+    process, scratch, marker = start(["solve", str(task), "--out", str(out)], tmp_path)
+    send_when(process, "... loading the task", 0)            # signal 0: only checks the process exists
+    work = [pid for pid in still_running(marker) if pid != process.pid]
+    assert len(work) == 1, work
+    os.kill(work[0], signal.SIGKILL)
+    sent = time.monotonic()
+    code, err, elapsed = finish(process, sent)
+    assert code == 128 + signal.SIGKILL, err                  # 137, shell convention
+    assert "killed by SIGKILL" in err and "out of memory" in err and "Traceback" not in err
+    assert sorted(os.listdir(scratch)) == [] and not out.exists()
