@@ -9,6 +9,18 @@ impossible is :class:`InfeasibleTask` (exit code 2).
 from __future__ import annotations
 
 
+def plain(value):
+    """``value`` with NumPy scalars and arrays turned into Python numbers and lists, for messages.
+
+    ``(np.int64(0), np.int64(5))`` reads ``(0, 5)``; anything else is unchanged.
+    """
+    if hasattr(value, "tolist") and callable(value.tolist):
+        return value.tolist()
+    if isinstance(value, (tuple, list)):
+        return type(value)(plain(v) for v in value)
+    return value
+
+
 class BraceError(Exception):
     """Base class of every error brace raises on purpose."""
 
@@ -47,7 +59,7 @@ class InputError(BraceError):
             where += f": field '{self.field}'"
         text = f"{where}: expected {self.expected}"
         if self.got is not None:
-            got = repr(self.got)
+            got = repr(plain(self.got))
             text += f", got {got[:120] + '...' if len(got) > 120 else got}"
         if self.hint:
             text += f" ({self.hint})"

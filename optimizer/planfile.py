@@ -1,4 +1,4 @@
-"""Plan files (``plan/1``, /work/shared/PLAN_FORMAT.md): one self-contained ``.npz``.
+"""Plan files (``plan/1``, the contract in docs/plan-files.md): one self-contained ``.npz``.
 
 ``save_plan`` writes the arrays and the ``meta`` JSON (a 0-d unicode array)
 atomically and without pickle; ``load_plan`` reads any file that follows the
@@ -38,6 +38,10 @@ ARRAYS = {
     "margin": ("f", ("K",)),
 }
 FINITE = ("t", "q", "v", "a", "tau", "contact_forces")
+# what each axis of an array counts, for messages ("knot 0, coordinate 5")
+AXES = {"t": ("knot",), "q": ("knot", "coordinate"), "v": ("knot", "coordinate"), "a": ("knot", "coordinate"),
+        "tau": ("knot", "joint"), "contact_forces": ("knot", "contact", "axis"),
+        "contact_active": ("knot", "contact"), "contact_targets": ("knot", "contact", "axis"), "margin": ("knot",)}
 RESERVED = set(ARRAYS) | {"meta", "margins"}
 
 
@@ -295,10 +299,16 @@ def _check_array(path: Path, key: str, raw: dict, kind: str, shape, sizes: dict)
         raise PlanFileError(path, key, f"shape {label}", f"shape {arr.shape}")
 
 
+def position_words(key: str, index) -> str:
+    """``("q", (0, 5))`` -> ``knot 0, coordinate 5``: an array position in words, plain integers."""
+    names = AXES.get(key, ())
+    return ", ".join(f"{names[i] if i < len(names) else 'axis'} {int(j)}" for i, j in enumerate(index))
+
+
 def _check_finite(path: Path, raw: dict) -> None:
     for key in FINITE:
         bad = np.argwhere(~np.isfinite(raw[key]))
         if bad.size:
-            raise PlanFileError(path, key, "finite numbers", f"non-finite value at index {tuple(bad[0])}")
+            raise PlanFileError(path, key, "finite numbers", f"a non-finite value at {position_words(key, bad[0])}")
     if np.any(np.diff(raw["t"]) < 0.0):
         raise PlanFileError(path, "t", "non-decreasing knot times", raw["t"])

@@ -33,6 +33,8 @@ from .analysis.knot_response import knot_responses
 from .analysis.linear_margin import best_linear_margin, certify_gains
 from .errors import SolveFailed
 from .planfile import Plan
+from .problem.requirement import as_json as requirements_json
+from .problem.requirement import required_margins
 from .robot.symbolic import SymbolicRobot
 from .solver.backend import SolverResult
 from .solver.registry import DEFAULT_BACKEND, backend_named
@@ -293,7 +295,8 @@ class Planner:
         p = parameter_values(task, transcription.structure, transcription.parameters)
         if "rooms" in layout and "rooms" not in start:
             layout.set(x0, "rooms", transcription.rooms_at(start, p))
-        lbx, ubx = transcription.bounds(task.initial_posture)
+        lbx, ubx = transcription.bounds(task.initial_posture,
+                                        required_margins(task.requirements, task.times, len(task.disturbances)))
         self._listener = None if progress is None else _listener(progress, objective, transcription)
         supervisor.phase(f"solving the {objective} stage")
         try:
@@ -462,6 +465,7 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
         "objective": objective,
         "task": task.raw,
         "solver": solver_meta,
+        **({"requirements": {"items": requirements_json(task.requirements)}} if task.requirements else {}),
     }
 
 

@@ -10,7 +10,7 @@ knot with bounds from a second formulation written here from the plan file
 alone: SciPy ``linprog`` over the full lifted polytope ``(u, dtau, dlambda)``
 with all nv rows of the balance, ``dtau`` kept as variables with its torque
 bounds, along many sampled directions. The smallest support value is an upper
-bound of rho (FORMULATION.md section 7, "LP reference"); the inscribed radius
+bound of rho (docs/formulation.md section 8, the LP reference); the inscribed radius
 of the hull of the support points (points of the residual set) a lower bound.
 """
 from __future__ import annotations
@@ -218,7 +218,7 @@ def least_squares_margin(plan: Plan, k: int, disturbance: int = 0) -> float:
     ``dlambda = K u`` with ``K`` the least-squares solution of the base rows,
     ``dtau`` from the joint rows; a linear response is one admissible
     response, so ``min_i room_i / |row_i|`` is a lower bound of the exact
-    figure (FORMULATION.md section 6).
+    figure (docs/formulation.md section 7).
     """
     lp = LiftedLP(plan, k, disturbance=disturbance)
     d, nj = lp.dim, plan.tau.shape[1]

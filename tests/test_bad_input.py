@@ -5,7 +5,7 @@ Each row of the table in docs/bad-input.md is one case of
 ``brace`` command line in-process (robot files through ``check-model``, task
 files through ``solve --check-only``, plan files through ``certify``).
 References: the YAML 1.1 spec (keys unique within a mapping), UTF-8 (RFC 3629),
-Ipopt's own option checks, the plan/1 contract (PLAN_FORMAT.md).
+Ipopt's own option checks, the plan/1 contract (docs/plan-files.md).
 """
 from __future__ import annotations
 

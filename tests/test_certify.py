@@ -29,7 +29,7 @@ def demo_plan():
 def test_standing_box_matches_coulomb_pyramid_geometry(mu):
     # Coulomb friction with a 4-facet pyramid inscribed in the cone, mu_p = mu / sqrt(2),
     # same axes at every foot, force at the centre of mass, no torque limits, no minimum
-    # normal force: rho = m g mu_p / sqrt(1 + mu_p^2) (FORMULATION.md section 7; statics).
+    # normal force: rho = m g mu_p / sqrt(1 + mu_p^2) (docs/formulation.md section 8; statics).
     plan = box_plan(mu)
     m = 20.0  # mass written in box_on_four_feet.urdf
     mu_p = mu / math.sqrt(2.0)
@@ -88,7 +88,7 @@ def test_demo_plan_lies_between_independent_sampled_lp_bounds(demo_plan):
 
 
 def test_linear_gain_margin_never_exceeds_exact_and_ratio_is_reported(demo_plan):
-    # A linear response is one admissible response (FORMULATION.md section 6): its margin is
+    # A linear response is one admissible response (docs/formulation.md section 6): its margin is
     # a lower bound of rho_exact.
     cert = certify_plan(demo_plan)
     for c in cert.knots:

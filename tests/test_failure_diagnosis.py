@@ -2,8 +2,8 @@
 
 A solve is made to fail quickly (6 knots, Ipopt max_iter 2). References:
 Pinocchio's forward kinematics (feet off their footholds) and RNEA with
-contact Jacobians (equations-of-motion residual, PLAN_FORMAT.md "What a
-reader can check"), and the 4-facet inscribed pyramid written out by hand
+contact Jacobians (equations-of-motion residual, docs/plan-files.md,
+"Checking a plan with Pinocchio alone"), and the 4-facet inscribed pyramid written out by hand
 (|f.t| <= mu cos(45 deg) f.n, common practice).
 """
 from __future__ import annotations
@@ -11,6 +11,9 @@ from __future__ import annotations
 import copy
 import json
 import math
+import os
+import subprocess
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -72,6 +75,20 @@ def test_cli_failure_saves_the_stopping_point_and_no_plan(failed, tmp_path, caps
     with pytest.raises(PlanFileError, match=r"meta.format.*infeasible-point/1.*not a plan"):
         load_plan(point)
     assert main(["certify", str(point)]) == 2
+
+
+def test_quiet_solve_prints_no_solver_banner(tmp_path):
+    # Ipopt prints its banner ("This program contains Ipopt ...") on the first solve of a
+    # process unless told not to; a fresh process is the only honest place to look for it.
+    # No solver options in the task, so no option probe runs (and swallows it) first.
+    task = {k: v for k, v in TASK.items() if k not in ("solver", "hand_targets")}
+    path = tmp_path / "standing.yaml"
+    path.write_text(yaml.safe_dump(dict(task, horizon={"duration": 1.0, "knots": 2})), encoding="utf-8")
+    run = subprocess.run([sys.executable, "-m", "optimizer", "solve", str(path), "--out", str(tmp_path / "p.npz"),
+                          "--quiet", "--skip-checks"], capture_output=True, text=True, cwd=ROOT,
+                         env=dict(os.environ, PYTHONPATH=str(ROOT)), timeout=300)
+    assert run.returncode == 0, run.stderr
+    assert "Ipopt" not in run.stdout.replace("Ipopt log", "") and "*****" not in run.stdout, run.stdout
 
 
 def test_feet_violation_matches_pinocchio_kinematics(failed):

@@ -52,7 +52,7 @@ def test_torque_outside_its_limit_gives_a_negative_margin():
 @pytest.mark.parametrize("mu", [0.4, 0.8])
 def test_box_pushed_at_its_sole_centre_matches_coulomb_geometry(mu):
     # Coulomb friction, 4-facet pyramid inscribed in the cone, mu_p = mu / sqrt 2, same axes at
-    # every foot, no torque limits (FORMULATION.md section 7): a push at the sole's centre,
+    # every foot, no torque limits (docs/formulation.md section 8): a push at the sole's centre,
     # below the centre of mass, needs no moment from the feet; each foot taking a quarter of
     # it meets the summed pyramid's limit, so the best linear response reaches the exact
     # figure rho = m g mu_p / sqrt(1 + mu_p^2).

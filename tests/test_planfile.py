@@ -8,7 +8,7 @@ import pinocchio as pin
 import pytest
 
 from certify_checks import MODELS, demo_standing, frame_jacobians, standing_plan
-from optimizer.errors import PlanFileError
+from optimizer.errors import PlanFileError, TaskError
 from optimizer.planfile import Plan, load_plan, save_plan
 
 
@@ -58,7 +58,7 @@ def test_save_without_npz_suffix_writes_exactly_that_path(plan, tmp_path):
 
 
 def test_fixture_plan_satisfies_equations_of_motion_checked_with_pinocchio(plan):
-    # What a reader can check (PLAN_FORMAT.md): rnea(q, v, a) - S^T tau - sum J_c^T lambda_c = 0,
+    # What a reader can check (docs/plan-files.md): rnea(q, v, a) - S^T tau - sum J_c^T lambda_c = 0,
     # and Newton on flat ground: sum of normal forces = m g.
     model = pin.buildModelFromXML(plan.meta["urdf"], pin.JointModelFreeFlyer())
     data = model.createData()
@@ -90,7 +90,8 @@ def test_saving_a_reserved_extra_key_fails_and_keeps_the_old_file(plan, tmp_path
     (lambda a: a.update(margin=a["margin"].astype(np.float32)), "margin", r"expected dtype float64"),
     (lambda a: a.update(meta=np.array("{not json")), "meta", r"expected valid JSON"),
     (lambda a: a.update(meta=np.array([json.dumps({"format": "plan/1"})])), "meta", r"0-d unicode array"),
-    (lambda a: a.update(v=np.full_like(a["v"], np.nan)), "v", r"expected finite numbers"),
+    (lambda a: a.update(v=np.where(np.indices(a["v"].shape)[0] * 100 + np.indices(a["v"].shape)[1] == 105, np.nan,
+                                   a["v"])), "v", r"expected finite numbers, got 'a non-finite value at knot 1, coordinate 5'"),
     (lambda a: a.update(t=a["t"][::-1].copy()), "t", r"non-decreasing knot times"),
     (lambda a: a.update(margins=np.zeros((3, 2))), "margins", r"P=1"),
 ])
@@ -169,3 +170,10 @@ def test_box_robot_without_joints_loads(tmp_path):
     save_plan(plan, tmp_path / "box.npz")
     back = load_plan(tmp_path / "box.npz")
     assert back.tau.shape == (1, 0) and re.fullmatch(r"plan/1", back.meta["format"])
+
+
+def test_error_messages_show_numpy_values_as_plain_numbers():
+    # Python's own reprs of the same values: an index tuple and a list of floats.
+    assert str(TaskError("task.yaml", "horizon", "two numbers", (np.int64(0), np.int64(5)))).endswith(
+        f"got {(0, 5)!r}")
+    assert str(TaskError("task.yaml", "x", "a vector", np.array([1.5, 2.0]))).endswith(f"got {[1.5, 2.0]!r}")

@@ -47,7 +47,7 @@ def urdf_elements(tag: str) -> list[ET.Element]:
 
 
 def test_stilt_sizes_and_names(stilt):
-    # 4 legs x 3 joints + 6 arm joints; free-flyer adds 7 (q) and 6 (v) entries (FORMULATION section 1).
+    # 4 legs x 3 joints + 6 arm joints; free-flyer adds 7 (q) and 6 (v) entries (docs/formulation.md section 1).
     assert (stilt.nq, stilt.nv, stilt.nj) == (7 + 18, 6 + 18, 18)
     assert stilt.joint_names == list(stilt.model.names)[2:]
     urdf_moving = {j.get("name") for j in urdf_elements("joint") if j.get("type") != "fixed"}
@@ -100,7 +100,7 @@ def test_standing_posture_has_feet_on_the_ground(stilt):
 
 
 def test_wrist_does_not_cap_a_grip_force(stilt):
-    # FORMULATION section 8: a grip-point force F loads a wrist joint with at most
+    # docs/formulation.md section 10: a grip-point force F loads a wrist joint with at most
     # |F| * (distance from the joint origin to the grip point), a bound on the
     # lever about the axis. Effort / distance must exceed 300 N in every posture.
     model, data = stilt.model, stilt.model.createData()

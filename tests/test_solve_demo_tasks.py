@@ -17,9 +17,10 @@ from optimizer.analysis.certify import certify_plan
 from optimizer.planfile import load_plan, save_plan
 from optimizer.planner import solve
 from optimizer.problem.task import load_task
+from optimizer.transcription.objectives import OBJECTIVES as REGISTERED_OBJECTIVES
 
 TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
-OBJECTIVES = ["feasible", "robust", "robust-min", "torque"]
+OBJECTIVES = sorted(REGISTERED_OBJECTIVES)   # every registered objective on every demo task
 KNOTS = 8
 _SOLVED: dict = {}
 
@@ -116,7 +117,7 @@ def test_hand_reaches_its_targets(task_name):
 @pytest.mark.parametrize("task_name", TASKS)
 def test_margin_never_exceeds_what_sampled_lps_allow(task_name, objective):
     # Upper bound from outside the NLP: SciPy linprog (HiGHS) on the lifted polytope
-    # (u, dtau, dlambda) along >= 100 sampled directions (FORMULATION.md sections 6-7).
+    # (u, dtau, dlambda) along >= 100 sampled directions (docs/formulation.md sections 7-8).
     task, plan = plan_of(task_name, objective)
     for k in range(len(plan.t)):
         _, upper = sampled_bounds(plan, k, n_dirs=100, seed=k)
@@ -164,7 +165,7 @@ def test_plan_file_round_trip_keeps_every_array_and_meta(tmp_path):
 @pytest.mark.parametrize("task_name", TASKS)
 def test_every_plans_margin_is_below_its_exact_figure(task_name, objective):
     # The linear-gain margin is one admissible response, so it never exceeds the exact smallest
-    # unrejectable force of the residual polytope (FORMULATION.md section 6); the ratio says
+    # unrejectable force of the residual polytope (docs/formulation.md section 7); the ratio says
     # how tight the bound is. Tolerance:
     # 1e-6 relative, plus 0.1 micronewton absolute for figures near zero (the projection
     # stops when its inner and outer bounds agree to 1e-7 of the polytope's size).

@@ -11,7 +11,7 @@ References:
   and the slope along a facet's axis, iff mu cos(pi / m) >= tan(theta)
   (common practice for linearized cones).
 - Two facing slopes (a trench) hold below mu = tan(theta) by squeezing
-  (textbook statics, FORMULATION.md section 7).
+  (textbook statics, docs/formulation.md section 8).
 """
 import math
 from pathlib import Path

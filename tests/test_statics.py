@@ -50,7 +50,7 @@ def test_standing_weight_is_carried(stilt):
 
 
 def test_full_rnea_residual_vanishes(stilt):
-    # Reference: Pinocchio's rnea at rest equals S^T tau + sum J_c^T lambda_c (EOM, FORMULATION 1).
+    # Reference: Pinocchio's rnea at rest equals S^T tau + sum J_c^T lambda_c (EOM, docs/formulation.md section 1).
     model, data = stilt.model, stilt.model.createData()
     for q in [stilt.standing_posture, *perturbed_postures(stilt, 5, seed=3)]:
         result = standing_statics(stilt, q)

@@ -14,42 +14,14 @@ from optimizer.errors import TaskError
 from optimizer.problem.terrain import TERRAINS, build_terrain
 from optimizer.schema import Fields
 
-TERRAIN_SPECS = {
-    "flat": {"kind": "flat", "height": 0.1, "friction": 0.7},
-    "blocks": {"kind": "blocks", "friction": 0.8, "blocks": [{"center": [0.5, 0.0], "size": [0.4, 2.0], "height": 0.2}]},
-    "ramp": {"kind": "ramp", "slope_deg": 25.0, "uphill": [1.0, 1.0], "origin": [0.1, -0.2, 0.05], "friction": 0.7},
-    "trench": {"kind": "trench", "slope_deg": 30.0, "bottom_width": 0.1, "friction": {"left": 0.5, "right": 0.6, "bottom": 0.7}},
-    "ceiling": {"kind": "ceiling", "ceiling_height": 0.7, "friction": {"floor": 0.8, "ceiling": 0.9}},
-}
+TERRAIN_SPECS = {kind: cls.EXAMPLE for kind, cls in TERRAINS.items()}
 
 
 def terrain(spec):
     return build_terrain(Fields(spec, "t.yaml", "stance.terrain", TaskError))
 
 
-def test_registry_holds_every_kind():
-    assert set(TERRAINS) == {"flat", "blocks", "ramp", "trench", "ceiling"}
-
-
-@pytest.mark.parametrize("kind", sorted(TERRAIN_SPECS))
-def test_normals_are_unit_and_perpendicular_to_the_surface(kind):
-    rng = np.random.default_rng(7)
-    ground = terrain(TERRAIN_SPECS[kind])
-    h = 1e-4
-    for xy in rng.uniform(-0.6, 0.6, size=(40, 2)):
-        if kind == "blocks" and abs(abs(xy[0] - 0.5) - 0.2) < 0.04:
-            continue                       # too close to a block edge (rejected on purpose)
-        if kind == "trench" and abs(abs(xy[1]) - 0.05) < 2 * h:
-            continue                       # on the kink between bottom and wall
-        here = ground.place(xy, None, "f")
-        assert np.linalg.norm(here.normal) == pytest.approx(1.0, abs=1e-12)
-        # Finite-difference tangents of the surface must be orthogonal to the normal.
-        for step in (np.array([h, 0.0]), np.array([0.0, h])):
-            there = ground.place(xy + step, None, "f").foothold
-            tangent = (there - here.foothold) / h
-            assert tangent @ here.normal == pytest.approx(0.0, abs=1e-8)
-        # Floor-like surfaces face up (into a robot standing on them).
-        assert here.normal[2] > 0
+# Unit normals perpendicular to the surface, for every registered kind: tests/test_registry_contracts.py
 
 
 def test_ceiling_normal_points_down_into_the_robot_beneath():

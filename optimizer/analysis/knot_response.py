@@ -1,6 +1,6 @@
 """Response data of every knot of a plan, from the plan file alone.
 
-Reads only what ``plan/1`` holds (PLAN_FORMAT.md): the URDF, joint and
+Reads only what ``plan/1`` holds (docs/plan-files.md): the URDF, joint and
 contact names, normals, friction, pyramid axes, limits and disturbances in
 ``meta``, and ``q``, ``tau``, ``contact_forces``, ``contact_active`` per knot.
 Jacobians come from Pinocchio's numeric algorithms, so plans made by other

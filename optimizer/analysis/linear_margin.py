@@ -1,4 +1,4 @@
-"""The best margin a linear response can certify at a fixed knot (FORMULATION 4).
+"""The best margin a linear response can certify at a fixed knot (docs/formulation.md section 6).
 
 With the knot's state, torques and forces fixed, the response problem reads
 ``A_ub x <= b_ub, A_eq x = 0`` in ``x = (u, dlambda)`` (see
@@ -43,11 +43,14 @@ class LinearMargin:
         contacts stacked, world frame.
     note : str
         Empty, or why the figure is 0 or negative.
+    limiting : str
+        Name of the limit that sets the figure (empty when none does).
     """
 
     rho: float
     gains: np.ndarray
     note: str = ""
+    limiting: str = ""
 
 
 def project_gains(rows: LimitRows, gains) -> tuple[np.ndarray, float]:
@@ -85,11 +88,13 @@ def certify_gains(rows: LimitRows, gains) -> LinearMargin:
     if (room < 0).any():
         worst = np.argmin(room / np.maximum(reach, 1e-12))
         return LinearMargin(float(room[worst] / max(reach[worst], 1e-12)), K,
-                            f"limit already violated at the plan's point: {rows.names[worst]}")
+                            f"limit already violated at the plan's point: {rows.names[worst]}", str(rows.names[worst]))
     with np.errstate(divide="ignore"):
         ratios = np.where(reach > 0, room / np.maximum(reach, 1e-300), np.inf)
     rho = float(ratios.min(initial=np.inf))
-    return LinearMargin(rho if np.isfinite(rho) else float("inf"), K)
+    if not np.isfinite(rho):
+        return LinearMargin(float("inf"), K)
+    return LinearMargin(rho, K, limiting=str(rows.names[int(np.argmin(ratios))]))
 
 
 @lru_cache(maxsize=32)

@@ -1,4 +1,4 @@
-"""Exact residual-force polytopes by iterative projection (FORMULATION.md section 6).
+"""Exact residual-force polytopes by iterative projection (docs/formulation.md section 7).
 
 The residual set ``P = {u : exists y, A_u u + A_y y <= b, E_u u + E_y y = 0}``
 is the projection of a lifted polytope onto the disturbance coordinates

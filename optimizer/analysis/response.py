@@ -1,4 +1,4 @@
-"""The disturbance-response problem at one knot (FORMULATION.md sections 3 and 6).
+"""The disturbance-response problem at one knot (docs/formulation.md sections 3 and 4).
 
 With the knot's state, torques and contact forces fixed, a disturbance
 ``F = W u`` at a point with Jacobian ``Je`` must be balanced by torque changes

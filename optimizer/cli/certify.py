@@ -12,13 +12,16 @@ import json
 import math
 import sys
 
-from ..analysis.certify import DEFAULT_CAP, DEFAULT_TOL, Settings, certify_plan
 from .. import supervisor
+from ..analysis.certify import DEFAULT_CAP, DEFAULT_TOL, Settings, certify_plan
+from ..analysis.margin_flags import DEFAULT_WARN_FRACTION, certificate_shortfalls, plan_requirements, unmet
+from ..problem.requirement import horizon_requirement
 from ..errors import InputError
 from ..files import atomic_output
 from ..planfile import load_plan
 
 from .notices import MODEL_ONLY, SAFETY
+from .shortfalls import shortfall_lines, use_colour
 
 HELP = "compute the exact smallest unrejectable force of a plan, knot by knot"
 CLI = "command line"
@@ -44,6 +47,12 @@ def add_arguments(parser) -> None:
     parser.add_argument("--samples", type=int, default=400, metavar="N",
                         help="sampled directions for 6-D wrench disturbances (default 400)")
     parser.add_argument("--quiet", action="store_true", help="print only the summary")
+    parser.add_argument("--require-margin", type=float, metavar="NEWTON",
+                        help="also require this exact margin at every certified knot, N (besides the "
+                             "requirements the plan was made under)")
+    parser.add_argument("--warn-below", type=float, metavar="NEWTON",
+                        help="flag knots whose exact margin is below this, N, where nothing is required "
+                             f"(default {100 * DEFAULT_WARN_FRACTION:.0f} %% of the robot's weight)")
 
 
 def run(args) -> int:
@@ -61,13 +70,23 @@ def run(args) -> int:
     cert = certify_plan(plan, knots, args.disturbance, settings, args.replay, args.seed, progress)
     if progress is not None:
         progress.clear()
-    print(report_text(cert, quiet=args.quiet))
+    shortfalls = certificate_shortfalls(cert, plan, requirements(args, plan), args.warn_below)
+    print(report_text(cert, str(args.plan), quiet=args.quiet, head=False,
+                      flags=shortfall_lines(shortfalls, use_colour(sys.stdout)), unmet=bool(unmet(shortfalls))))
     if args.json:
         supervisor.phase("writing the JSON report")
-        document = {"plan": str(args.plan), **cert.to_json()}
+        document = {"plan": str(args.plan), **cert.to_json(), "margin_flags": [s.to_json() for s in shortfalls]}
         with atomic_output(args.json, suffix=".json") as tmp:
             tmp.write_text(json.dumps(document, indent=2) + "\n", encoding="utf-8")
-    return 0 if not cert.problems() else 1
+    return 0 if not cert.problems() and not unmet(shortfalls) else 1
+
+
+def requirements(args, plan) -> list:
+    """The plan's own required margins plus ``--require-margin`` over its whole horizon."""
+    own = plan_requirements(plan.meta)
+    if args.require_margin is None:
+        return own
+    return own + [horizon_requirement(args.require_margin, float(plan.t[-1]))]
 
 
 def _settings(args) -> Settings:
@@ -75,6 +94,10 @@ def _settings(args) -> Settings:
         raise InputError(CLI, "--tol", "a number in (0, 0.1]", args.tol)
     if not (math.isfinite(args.cap) and args.cap > 0.0):
         raise InputError(CLI, "--cap", "a positive number of newtons", args.cap)
+    for name in ("require_margin", "warn_below"):
+        value = getattr(args, name)
+        if value is not None and not (math.isfinite(value) and value > 0):
+            raise InputError(CLI, "--" + name.replace("_", "-"), "a positive number of newtons", value)
     for name in ("replay", "samples"):
         if getattr(args, name) < 0:
             raise InputError(CLI, f"--{name}", "a whole number >= 0", getattr(args, name))
@@ -144,7 +167,7 @@ def knot_table(cert, unit: str) -> list:
     return lines
 
 
-def summary_lines(cert, unit: str) -> list:
+def summary_lines(cert, unit: str, flags=(), unmet: bool = False) -> list:
     s = cert.summary()
     n = s["knots"]
     lines = [f"smallest exact margin: {_fmt(cert.smallest().rho)} {unit} at knot {s['smallest_at_knot']} "
@@ -165,7 +188,8 @@ def summary_lines(cert, unit: str) -> list:
         r = cert.replay
         lines.append(f"replay: {r.rejected} of {r.drawn} disturbances within the planned margin rejected; "
                      f"{r.beyond_unrejectable} of {r.beyond_tried} pushes 0.01% beyond the exact margin not rejectable")
-    problems = s["problems"]
+    problems = s["problems"] + (["a required margin is not met (see the !! lines above)"] if unmet else [])
+    lines += list(flags)
     lines.append("result: certified" if not problems else "result: NOT certified")
     lines += [f"  {p}" for p in problems]
     lines += [MODEL_ONLY, SAFETY]
@@ -173,13 +197,14 @@ def summary_lines(cert, unit: str) -> list:
 
 
 def head_line(plan_name: str, kind: str, frame: str, count: int, settings) -> str:
-    """The report's first line, printed before certification starts."""
+    """The report's first line (``brace certify`` prints it before certification starts)."""
     mode = "whole polytope" if settings.full else "refined around the figure"
     return f"certify {plan_name}: {kind} at {frame}, {count} knots, projection {mode}, tol {settings.tol:g}"
 
 
-def report_text(cert, quiet: bool = False) -> str:
-    """The report after the head line: the per-knot table (unless quiet) and the summary."""
-    unit = "N" if cert.disturbance["kind"] == "force" else "N|Nm"
+def report_text(cert, plan_name: str, quiet: bool = False, flags=(), unmet: bool = False, head: bool = True) -> str:
+    d = cert.disturbance
+    unit = "N" if d["kind"] == "force" else "N|Nm"
+    first = [head_line(plan_name, d["kind"], d["frame"], len(cert.knots), cert.settings)] if head else []
     body = [] if quiet else knot_table(cert, unit) + [""]
-    return "\n".join(body + summary_lines(cert, unit))
+    return "\n".join(first + body + summary_lines(cert, unit, flags, unmet))

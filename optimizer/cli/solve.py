@@ -23,11 +23,13 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 from .. import supervisor
+from ..analysis.margin_flags import DEFAULT_WARN_FRACTION, plan_shortfalls, unmet
 from ..errors import InputError, OutputError, TooLargeForMemory
 from ..memory import SIZE_TEXT, available_memory, format_size, parse_size
 from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
 from .notices import SAFETY
+from .shortfalls import shortfall_lines, use_colour
 
 if TYPE_CHECKING:
     from ..planner import SolveOutcome
@@ -49,6 +51,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              "solver.memory_limit, else what the machine has available)")
     parser.add_argument("--check-only", action="store_true",
                         help="validate the task and run the pre-solve checks, then stop without solving")
+    parser.add_argument("--require-margin", type=float, metavar="NEWTON",
+                        help="require this certified margin at every knot and disturbance point, N "
+                             "(added to the task's 'require' entries)")
+    parser.add_argument("--keep-unmet", action="store_true",
+                        help="write the plan even when a required margin is not met (marked in its meta)")
+    parser.add_argument("--warn-below", type=float, metavar="NEWTON",
+                        help="flag knots whose certified margin is below this, N, where nothing is required "
+                             f"(default {100 * DEFAULT_WARN_FRACTION:.0f} %% of the robot's weight)")
 
 
 def run(args) -> int:
@@ -66,10 +76,13 @@ def _run(args) -> int:
         if not 2 <= args.knots <= MAX_KNOTS:
             raise InputError(CLI, "--knots", f"a whole number from 2 to {MAX_KNOTS}", args.knots)
         task = task.with_knots(args.knots)
+    task = with_cli_requirement(task, args)
     objective = args.objective or task.objective
     out = output_path(args, objective)
     limit = memory_limit(args, task)
     run_checks(task, args.skip_checks)
+    if not args.skip_checks and not requirement_reachable(task):
+        return 1
     check_memory(task, objective, limit)
     if args.check_only:
         print(f"brace solve: task '{task.name}' is valid" + ("" if args.skip_checks else "; pre-solve checks passed"))
@@ -88,12 +101,48 @@ def _run(args) -> int:
         return 1
     from ..planfile import save_plan
 
-    supervisor.phase("writing the plan")
-    save_plan(outcome.plan, out)
-    _remove_stale_point(out)
-    print("\n".join(summary_lines(outcome, elapsed, out, log_path)))
+    shortfalls = plan_shortfalls(outcome.plan, task.requirements, args.warn_below)
+    met = not unmet(shortfalls)
+    if task.requirements:
+        outcome.plan.meta["requirements"]["met"] = met
+    lines = summary_lines(outcome, elapsed, out, log_path)
+    if met or args.keep_unmet:
+        supervisor.phase("writing the plan")
+        save_plan(outcome.plan, out)
+        _remove_stale_point(out)
+    else:
+        lines[0] = f"NO plan written (a required margin is not met; --keep-unmet writes it anyway): {out}"
+    print("\n".join(lines))
+    for line in shortfall_lines(shortfalls, use_colour(sys.stdout)):
+        print(line)
     print(SAFETY)
-    return 0
+    return 0 if met else 1
+
+
+def with_cli_requirement(task, args):
+    """The task with ``--require-margin`` added, checked (> 0 N)."""
+    for name in ("require_margin", "warn_below"):
+        value = getattr(args, name)
+        if value is not None and not (np.isfinite(value) and value > 0):
+            raise InputError(CLI, "--" + name.replace("_", "-"), "a positive number of newtons", value)
+    return task if args.require_margin is None else task.with_required_margin(args.require_margin)
+
+
+def requirement_reachable(task) -> bool:
+    """The required-margin checks: warnings printed; False (after saying why) when proven unreachable."""
+    from ..analysis.requirement_checks import requirement_findings
+
+    findings = requirement_findings(task)
+    proven = [f for f in findings if f.impossible]
+    for finding in findings:
+        if not finding.impossible:
+            print(f"  warning: {finding.text()}")
+    if proven:
+        print(f"brace solve: {task.path}: a required margin cannot be met (pre-solve proof); no plan was written:",
+              file=sys.stderr)
+        for finding in proven:
+            print(f"  {finding.text()}", file=sys.stderr)
+    return not proven
 
 
 def output_path(args, objective: str) -> Path:
@@ -221,11 +270,30 @@ def _report_failure(outcome: SolveOutcome, out: Path, log_path: Path) -> None:
     print("diagnosis at the point where the solver stopped (largest violation first):", file=err)
     print("\n".join("  " + line for line in report_lines(violations)), file=err)
     point = infeasible_path(out)
-    save_infeasible_point(infeasible_point(outcome, violations), point)
+    stopped = infeasible_point(outcome, violations)
+    for line in requirement_failure_lines(outcome.task, stopped):
+        print(line, file=err)
+    save_infeasible_point(stopped, point)
     print(f"  stopping point saved for inspection (NOT a plan, brace certify refuses it): {point}", file=err)
     if out.exists():
         print(f"  note: {out} is from an earlier run, not from this solve", file=err)
     print(f"  Ipopt log: {log_path}", file=err)
+
+
+def requirement_failure_lines(task, stopped) -> list[str]:
+    """Where the stopping point falls short of the task's required margins, in plain words."""
+    from ..analysis.margin_flags import stopping_point_shortfalls
+
+    if not task.requirements:
+        return []
+    short = stopping_point_shortfalls(stopped, task.requirements)
+    if not short:
+        return []
+    return (["required margin: at the point where the solver stopped, the margin a linear response certifies "
+             "falls short of the requirement:"]
+            + [f"  {s.text()}" for s in short]
+            + ["  hint: lower the requirement or narrow its window there, or relieve the limit named "
+               "(footholds, friction, posture, torque limits)"])
 
 
 def _remove_stale_point(out: Path) -> None:

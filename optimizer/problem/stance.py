@@ -347,7 +347,7 @@ def static_support_lp(robot, q, contacts, facets: int = 4, min_normal_force: flo
                       torque_limits=None) -> StaticSupport:
     """Can the robot hold still at ``q`` on ``contacts``? (LP, SciPy HiGHS.)
 
-    Statics at rest (FORMULATION.md section 1 with v = a = 0):
+    Statics at rest (docs/formulation.md section 1 with v = a = 0):
     ``g(q) = S^T tau + sum_c J_c^T lambda_c``, i.e. the 6 base rows
     ``J_C,b^T lambda = g_b`` and ``tau = g_j - J_C,j^T lambda``. Maximizes the
     uniform slack ``s <= 1`` of the pyramid facets, minimum normal forces and

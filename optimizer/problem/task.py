@@ -12,16 +12,20 @@ import copy
 import dataclasses
 import json
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+import pinocchio as pin
 
 from ..errors import InfeasibleTask, TaskError
 from ..files import read_yaml_mapping
 from ..memory import SIZE_TEXT, parse_size
+from ..robot.model import load_robot
 from ..schema import Fields
 from .friction import tangent_basis
+from .requirement import horizon_requirement, read_requirements
+from .stance import foot_residuals, solve_stance
 from .terrain import build_terrain
 
 OBJECTIVES = ("feasible", "robust", "robust-min", "torque")
@@ -30,7 +34,7 @@ UNIT_TOLERANCE = 1e-3      # |n| may differ from 1 by this much before it counts
 MAX_KNOTS = 2000           # more knots than this is a typo, not a plan (the NLP grows linearly)
 MAX_FACETS = 64            # a pyramid finer than this adds rows without changing the answer
 TOP_LEVEL = {"name", "description", "robot", "horizon", "stance", "hand_targets", "disturbances",
-             "objective", "pyramid_facets", "min_normal_force", "initial_posture", "solver"}
+             "objective", "pyramid_facets", "min_normal_force", "initial_posture", "solver", "require"}
 
 
 @dataclass
@@ -125,6 +129,9 @@ class Task:
     raw : dict
         The task mapping as read (JSON-serializable), ``horizon.knots``
         updated by :meth:`with_knots`.
+    requirements : list of MarginRequirement
+        Margins the plan must keep (``require``; see
+        :mod:`optimizer.problem.requirement`); empty when none is stated.
     memory_limit : int or None
         Bytes a solve may use (``solver.memory_limit``); None: what the
         machine has available.
@@ -145,6 +152,7 @@ class Task:
     solver_options: dict
     initial_posture: np.ndarray | None
     raw: dict
+    requirements: list = field(default_factory=list)
     memory_limit: int | None = None
 
     def with_knots(self, knots: int) -> "Task":
@@ -156,6 +164,18 @@ class Task:
         raw = copy.deepcopy(self.raw)
         raw.setdefault("horizon", {})["knots"] = int(knots)
         return dataclasses.replace(self, knots=int(knots), raw=raw)
+
+    def with_required_margin(self, newtons: float) -> "Task":
+        """A copy that also requires ``newtons`` N (> 0) at every knot and disturbance point."""
+        if not (isinstance(newtons, (int, float)) and math.isfinite(newtons) and newtons > 0):
+            raise TaskError(self.path, "require", "a required margin > 0 N", newtons)
+        return dataclasses.replace(self, requirements=[*self.requirements,
+                                                       horizon_requirement(newtons, self.duration)])
+
+    @property
+    def weight(self) -> float:
+        """The robot's weight m g, N."""
+        return self.robot.mass * float(np.linalg.norm(self.robot.gravity))
 
     @property
     def times(self) -> np.ndarray:
@@ -178,6 +198,8 @@ def load_task(path) -> Task:
     duration, knots = read_horizon(top.sub("horizon"))
     contacts = read_stance(top.sub("stance"), robot)
     weight = robot.mass * float(np.linalg.norm(robot.gravity))
+    hand_targets = read_hand_targets(top, robot, duration)
+    disturbances = read_disturbances(top, robot)
     return Task(
         name=top.string("name", path.stem),
         path=path,
@@ -186,8 +208,8 @@ def load_task(path) -> Task:
         duration=duration,
         knots=knots,
         contacts=contacts,
-        hand_targets=read_hand_targets(top, robot, duration),
-        disturbances=read_disturbances(top, robot),
+        hand_targets=hand_targets,
+        disturbances=disturbances,
         objective=top.string("objective", "robust", choices=OBJECTIVES),
         facets=top.integer("pyramid_facets", 4, lo=3, hi=MAX_FACETS),
         min_normal_force=top.number("min_normal_force", 0.05 * weight / len(contacts), lo=0.0),
@@ -195,13 +217,13 @@ def load_task(path) -> Task:
         memory_limit=read_memory_limit(top),
         initial_posture=read_initial_posture(top, robot, contacts),
         raw=json_copy(data, path),
+        requirements=read_requirements(top, weight=weight, duration=duration,
+                                       hand_targets=hand_targets, disturbances=disturbances),
     )
 
 
 def read_robot(top: Fields):
     """Robot file path (resolved against the task's folder) and the loaded robot."""
-    from ..robot.model import load_robot
-
     robot_path = (Path(top.file).parent / top.string("robot")).resolve()
     if not robot_path.is_file():
         top.fail("robot", "an existing robot file (path relative to the task file's folder)", str(robot_path))
@@ -426,10 +448,6 @@ def read_initial_posture(top: Fields, robot, contacts) -> np.ndarray | None:
 
 def solve_stance_hinted(hints: Fields, robot, contacts) -> np.ndarray:
     """The stance IK with the optional base pose and joint hints of ``hints``."""
-    import pinocchio as pin
-
-    from .stance import solve_stance
-
     hints.allow_only({"base_position", "base_rpy_deg", "joints"})
     guess, base = np.array(robot.standing_posture, dtype=float), None
     if hints.has("base_position") or hints.has("base_rpy_deg"):
@@ -455,8 +473,6 @@ def solve_stance_hinted(hints: Fields, robot, contacts) -> np.ndarray:
 
 def read_posture_list(top: Fields, robot, contacts) -> np.ndarray:
     """nq numbers: unit base quaternion, joints within limits, feet on their footholds."""
-    from .stance import foot_residuals
-
     q = top.vector("initial_posture", robot.nq)
     quat = np.linalg.norm(q[3:7])
     if abs(quat - 1.0) > UNIT_TOLERANCE:

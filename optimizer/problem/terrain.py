@@ -74,9 +74,14 @@ def slope_normal(angle: float, uphill) -> np.ndarray:
 
 
 class Terrain:
-    """Base class: subclasses set ``surfaces`` and implement ``_place``."""
+    """Base class: subclasses set ``surfaces`` and ``EXAMPLE`` and implement ``_place``.
+
+    ``EXAMPLE`` is a valid ``stance.terrain`` mapping of the kind (the
+    contract tests run every registered kind on its example).
+    """
 
     surfaces: tuple = ()
+    EXAMPLE: dict = {}
 
     def __init__(self, fields: Fields):
         self.fields = fields
@@ -101,6 +106,8 @@ class FlatTerrain(Terrain):
 
     surfaces = ("ground",)
 
+    EXAMPLE = {"kind": "flat", "height": 0.1, "friction": 0.7}
+
     def __init__(self, fields: Fields):
         super().__init__(fields)
         fields.allow_only({"kind", "height", "friction"})
@@ -120,6 +127,9 @@ class BlocksTerrain(Terrain):
     (m, default 0.03) to a block edge are rejected: a foot on an edge has no
     well-defined surface.
     """
+
+    EXAMPLE = {"kind": "blocks", "friction": 0.8,
+               "blocks": [{"center": [0.5, 0.0], "size": [0.4, 2.0], "height": 0.2}]}
 
     def __init__(self, fields: Fields):
         super().__init__(fields)
@@ -175,6 +185,8 @@ class RampTerrain(Terrain):
 
     surfaces = ("ramp",)
 
+    EXAMPLE = {"kind": "ramp", "slope_deg": 25.0, "uphill": [1.0, 1.0], "origin": [0.1, -0.2, 0.05], "friction": 0.7}
+
     def __init__(self, fields: Fields):
         super().__init__(fields)
         fields.allow_only({"kind", "slope_deg", "uphill", "origin", "friction"})
@@ -206,6 +218,9 @@ class TrenchTerrain(Terrain):
     """
 
     surfaces = ("left", "right", "bottom")
+
+    EXAMPLE = {"kind": "trench", "slope_deg": 30.0, "bottom_width": 0.1,
+               "friction": {"left": 0.5, "right": 0.6, "bottom": 0.7}}
 
     def __init__(self, fields: Fields):
         super().__init__(fields)
@@ -241,6 +256,8 @@ class CeilingTerrain(Terrain):
     """
 
     surfaces = ("floor", "ceiling")
+
+    EXAMPLE = {"kind": "ceiling", "ceiling_height": 0.7, "friction": {"floor": 0.8, "ceiling": 0.9}}
 
     def __init__(self, fields: Fields):
         super().__init__(fields)

@@ -4,7 +4,7 @@ Every function here is built once per (robot, structure) and evaluated on all
 knots at once with ``Function.map``, so the expression graph stays the size
 of one knot and the NLP stays sparse.
 
-Notation (FORMULATION.md): ``q`` (nq,), ``v``, ``a`` (nv,), ``tau`` (nj,),
+Notation (docs/formulation.md): ``q`` (nq,), ``v``, ``a`` (nv,), ``tau`` (nj,),
 ``lam`` (3 nc,) contact forces stacked per contact, world frame [N];
 ``G`` the homogenized contact-force gains ``rho * K_lambda``, shape (3 nc, d)
 stored column-major as (3 nc d,); ``rho`` the margin [N].
@@ -125,7 +125,7 @@ class KnotFunctions:
         return self.limits.scales(values, CASADI_OPS)
 
     def _robust(self, index: int, slot: DisturbanceSlot) -> ca.Function:
-        """Robust rows of disturbance ``index`` in the homogenized gain form (FORMULATION 4).
+        """Robust rows of disturbance ``index`` in the homogenized gain form (docs/formulation.md section 5).
 
         Inputs: q, G (3 nc d,), rho, rooms (the limit rooms, kept as variables,
         see :meth:`_rooms`), facets, normals, shape (d d,), scales (the rooms'

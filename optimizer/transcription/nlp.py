@@ -31,6 +31,9 @@ INF = float("inf")
 # feasibility tolerance, so a solved plan meets every limit exactly and its
 # margin can be certified without any tolerance.
 LIMIT_BACKOFF = 1e-6
+# A required margin is raised by this much (a fraction of itself) in the bound on
+# rho, so the margin certified from the solved gains meets it despite round-off.
+REQUIREMENT_BACKOFF = 1e-6
 
 
 def velocity_names(robot) -> list[str]:
@@ -189,12 +192,14 @@ class Transcription:
         return np.array(self._rooms(arrays["tau"], arrays["lam"], P))
 
     # -- bounds ------------------------------------------------------------
-    def bounds(self, initial_posture=None) -> tuple[np.ndarray, np.ndarray]:
+    def bounds(self, initial_posture=None, required=None) -> tuple[np.ndarray, np.ndarray]:
         """Variable bounds ``(lbx, ubx)`` in the solver's scaled units.
 
         Joint positions, velocities and torques within the robot's limits;
         rest (zero velocity) at both ends and zero acceleration at the last
-        knot; margins non-negative; the start configuration fixed when given.
+        knot; margins non-negative, and at least ``required`` (N, shape (K, P),
+        0 where nothing is required) in robust objectives; the start
+        configuration fixed when given.
         """
         r, L, K = self.robot, self.variables, self.structure.knots
         lo, hi = np.full(L.size, -INF), np.full(L.size, INF)
@@ -217,7 +222,8 @@ class Transcription:
             backoff = LIMIT_BACKOFF * limit
             L.set(lo, "tau", (r.torque_lower + backoff)[:, None]), L.set(hi, "tau", (r.torque_upper - backoff)[:, None])
         for p in range(self.disturbance_count):
-            L.set(lo, f"rho{p}", 0.0)
+            floor = 0.0 if required is None else np.asarray(required, float)[:, p] * (1.0 + REQUIREMENT_BACKOFF)
+            L.set(lo, f"rho{p}", np.broadcast_to(floor, (K,))[None, :])
         if "floor" in L:
             L.set(lo, "floor", 0.0)
         if initial_posture is not None:

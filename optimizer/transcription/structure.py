@@ -9,8 +9,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-import numpy as np
-
+from ..problem.timing import window_knots
 
 
 @dataclass(frozen=True)
@@ -75,25 +74,12 @@ class Structure:
         return self.knots - 1
 
 
-def target_knots(t_start: float, t_end: float, times: np.ndarray) -> list[int]:
-    """Knots a hand target binds: all knots inside ``[t_start, t_end]``, or the nearest one.
-
-    A time window shorter than a step still binds its nearest knot, so a
-    target never disappears when the knot count is reduced.
-    """
-    step = times[1] - times[0]
-    inside = [k for k, t in enumerate(times) if t_start - 1e-9 * step <= t <= t_end + 1e-9 * step]
-    if inside:
-        return inside
-    return [int(np.argmin(np.abs(times - 0.5 * (t_start + t_end))))]
-
-
 def structure_of(task) -> Structure:
     """The :class:`Structure` of a loaded task."""
     times = task.times
     slots, taken = [], set()
     for i, target in enumerate(task.hand_targets):
-        for k in target_knots(target.t_start, target.t_end, times):
+        for k in window_knots(target.t_start, target.t_end, times):
             if (k, target.frame) not in taken:
                 taken.add((k, target.frame))
                 slots.append(TargetSlot(k, i, target.frame, target.orientation is not None))
