@@ -1,13 +1,17 @@
 """brace: robustness-aware whole-body trajectory optimization.
 
-Layers, each importing only from the ones above it:
+Layers, top to bottom, each importing only from the ones below it (the
+contract is in pyproject.toml and checked by the test suite):
 
-- ``optimizer.robot``          robot model (Pinocchio) and its symbolic CasADi twin
-- ``optimizer.problem``        task, terrain, contacts, disturbances (no solver)
-- ``optimizer.transcription``  the direct-transcription NLP as data
-- ``optimizer.solver``         thin adapter to Ipopt
-- ``optimizer.analysis``       margins, certification, diagnosis (reads plans)
 - ``optimizer.cli``            the ``brace`` command
+- ``optimizer.report``         figures and pages made from plans
+- ``optimizer.planner``        the Planner: seed, objective, certified margins
+- ``optimizer.analysis``       margins, certification, diagnosis (reads plans)
+- ``optimizer.solver``         NLP solver backends behind one interface
+- ``optimizer.transcription``  the direct-transcription NLP as data
+- ``optimizer.problem``        task, terrain, contacts, limit rows (no solver); ``optimizer.planfile``
+- ``optimizer.robot``          robot model (Pinocchio) and its symbolic CasADi twin
+- basics: ``errors``, ``files``, ``schema``, ``capture``
 """
 __version__ = "0.1.0"
 

@@ -38,6 +38,7 @@ ARRAYS = {
     "margin": ("f", ("K",)),
 }
 FINITE = ("t", "q", "v", "a", "tau", "contact_forces")
+RESPONSE_GAINS = "response_gains_"   # + point index: the gains that certify ``margins[:, p]``, (K, 3 nc, d)
 # what each axis of an array counts, for messages ("knot 0, coordinate 5")
 AXES = {"t": ("knot",), "q": ("knot", "coordinate"), "v": ("knot", "coordinate"), "a": ("knot", "coordinate"),
         "tau": ("knot", "joint"), "contact_forces": ("knot", "contact", "axis"),
@@ -98,6 +99,17 @@ class Plan:
             out["margins"] = self.margins
         out.update(self.extras)
         return out
+
+
+def response_gains_key(point: int) -> str:
+    """The optional plan key holding the certifying response gains of disturbance point ``point``."""
+    return f"{RESPONSE_GAINS}{point}"
+
+
+def response_gains(plan: Plan, point: int = 0):
+    """The certifying gains of ``point``, shape (K, 3 nc, d) [N per N of disturbance], or None when absent."""
+    gains = plan.extras.get(response_gains_key(point))
+    return None if gains is None else np.asarray(gains, float)
 
 
 def save_plan(plan: Plan, path) -> None:

@@ -32,7 +32,7 @@ from . import __version__, supervisor
 from .analysis.knot_response import knot_responses
 from .analysis.linear_margin import best_linear_margin, certify_gains
 from .errors import SolveFailed
-from .planfile import Plan
+from .planfile import Plan, response_gains_key
 from .problem.requirement import as_json as requirements_json
 from .problem.requirement import required_margins
 from .robot.symbolic import SymbolicRobot
@@ -69,7 +69,8 @@ class SolveOutcome:
     ``plan`` is the finished plan (None when a stage failed); ``last`` the
     physical arrays where the last solver run stopped, ``violations`` its
     largest violation per constraint group and knot, ``transcription`` the
-    NLP of that run (for diagnosis).
+    NLP of that run and ``multipliers`` the solver's constraint multipliers
+    there, one per row of g (for diagnosis).
     """
 
     task: object
@@ -79,6 +80,7 @@ class SolveOutcome:
     last: dict = field(default_factory=dict)
     violations: dict = field(default_factory=dict)
     transcription: object = field(default=None, repr=False)
+    multipliers: np.ndarray | None = field(default=None, repr=False)
 
     @property
     def success(self) -> bool:
@@ -260,7 +262,7 @@ class Planner:
         with self._lock:
             outcome = SolveOutcome(task, objective, None, stages=list(seed.outcome.stages),
                                    last=seed.outcome.last, violations=seed.outcome.violations,
-                                   transcription=seed.outcome.transcription)
+                                   transcription=seed.outcome.transcription, multipliers=seed.outcome.multipliers)
             if not seed.success:
                 return outcome
             arrays = seed.arrays
@@ -312,6 +314,7 @@ class Planner:
         outcome.last = layout.unpack(result.x)
         outcome.violations = transcription.constraints.violations(result.g, transcription.lbg, transcription.ubg)
         outcome.transcription = transcription
+        outcome.multipliers = result.lam_g
         return outcome.last, result
 
 
@@ -398,11 +401,17 @@ def _initial_gains(task, arrays) -> dict:
     return out
 
 
-def certified_margins(task, plan: Plan, arrays) -> np.ndarray:
-    """Sound linear-gain margins [N], shape (K, P): the plan's own gains when it has them, else the best."""
-    columns = []
+def certified_margins(task, plan: Plan, arrays) -> tuple[np.ndarray, list]:
+    """Sound linear-gain margins [N], shape (K, P), and the gains that certify them.
+
+    Per point, the plan's own gains when they certify more, else the best
+    linear response at the plan's point. The gains of point ``p`` have shape
+    (K, 3 nc, d): contact-force change per unit disturbance [N/N or N/(N m)],
+    world frame, contacts stacked, projected to balance the base exactly.
+    """
+    columns, gains = [], []
     for p in range(len(task.disturbances)):
-        column = []
+        column, chosen = [], []
         for k, response in knot_responses(plan, disturbance=p):
             rows = response.limit_rows()
             best = best_linear_margin(rows)
@@ -411,8 +420,10 @@ def certified_margins(task, plan: Plan, arrays) -> np.ndarray:
                 own = certify_gains(rows, arrays[f"G{p}"][:, k].reshape((-1, d), order="F") / arrays[f"rho{p}"][0, k])
                 best = own if own.rho >= best.rho else best
             column.append(best.rho)
+            chosen.append(best.gains)
         columns.append(column)
-    return np.array(columns).T
+        gains.append(np.array(chosen))
+    return np.array(columns).T, gains
 
 
 def _finished_plan(task, objective, arrays, outcome, backend: str) -> Plan:
@@ -423,9 +434,11 @@ def _finished_plan(task, objective, arrays, outcome, backend: str) -> Plan:
                        max_violation=final.max_violation, name=backend)
     plan = _plan_arrays(task, objective, arrays, np.zeros(task.knots), solver_meta)
     supervisor.phase("certifying the plan's margins")
-    margins = certified_margins(task, plan, arrays)
+    margins, gains = certified_margins(task, plan, arrays)
     plan.margin = margins[:, 0].copy()
     plan.margins = margins
+    for p, point_gains in enumerate(gains):
+        plan.extras[response_gains_key(p)] = point_gains
     if "rho0" in arrays:
         plan.extras["margin_optimized"] = arrays["rho0"][0].copy()
     return plan
@@ -460,6 +473,7 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
                              "tangents": [np.asarray(c.tangents, float).tolist() for c in task.contacts]},
         "min_normal_force": float(task.min_normal_force),
         "torque_limits": {"lower": robot.torque_lower.tolist(), "upper": robot.torque_upper.tolist()},
+        "joint_velocity_limits": robot.velocity_limit.tolist(),
         "disturbances": [{"frame": d.frame, "kind": d.kind, "shape": np.asarray(d.shape, float).tolist()}
                          for d in task.disturbances],
         "objective": objective,

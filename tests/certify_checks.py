@@ -15,6 +15,7 @@ of the hull of the support points (points of the residual set) a lower bound.
 """
 from __future__ import annotations
 
+import copy
 import json
 from pathlib import Path
 
@@ -52,8 +53,14 @@ def demo_standing(sweep: float = 0.0, knots: int = 1) -> dict:
 
 def standing_plan(urdf: str, contacts, base_height: float, postures=({},), disturbance_frame="base",
                   kind="force", mu=0.6, min_normal_force=0.0, torque_limits=None, margin=None,
-                  active=None) -> Plan:
-    """A plan/1 plan of a robot standing still, one knot per posture.
+                  active=None, step: float = 0.5) -> Plan:
+    """A plan/1 plan of a robot standing on its feet, one knot per posture.
+
+    Consecutive postures are joined by the semi-implicit Euler rule with
+    Pinocchio's ``difference``: ``v[k+1] = difference(q[k], q[k+1]) / h``,
+    ``a[k] = (v[k+1] - v[k]) / h``, ``v[0] = a[K-1] = 0``; forces balance the
+    base rows of ``rnea(q, v, a)`` (least squares) and torques the joint rows,
+    so the plan meets its own equations of motion and integrator.
 
     Parameters
     ----------
@@ -71,13 +78,16 @@ def standing_plan(urdf: str, contacts, base_height: float, postures=({},), distu
         The planned margin [N]; None uses :func:`least_squares_margin`.
     active : sequence of bool or None
         Contacts in stance (all by default); the others carry no force.
+    step : float
+        Time between knots [s].
     """
     model = pin.buildModelFromXML(urdf, pin.JointModelFreeFlyer())
     data = model.createData()
     nj, nc, K = model.nv - 6, len(contacts), len(postures)
     q = np.array([_posture(model, base_height, p) for p in postures])
     stance = np.ones(nc, bool) if active is None else np.asarray(active, bool)
-    forces, tau = zip(*(_statics(model, data, qk, contacts, stance) for qk in q))
+    v, a = _sweep_rates(model, q, step)
+    forces, tau = zip(*(_statics(model, data, qk, contacts, stance, vk, ak) for qk, vk, ak in zip(q, v, a)))
     lower, upper = torque_limits if torque_limits is not None else (-model.effortLimit[6:], model.effortLimit[6:])
     meta = {
         "format": "plan/1", "software": {"name": "tests", "version": "0"}, "urdf": urdf,
@@ -92,7 +102,7 @@ def standing_plan(urdf: str, contacts, base_height: float, postures=({},), distu
         "objective": "feasible", "task": {}, "solver": {"status": "statics"},
     }
     meta = json.loads(json.dumps(meta))
-    plan = Plan(t=0.1 * np.arange(K), q=q, v=np.zeros((K, model.nv)), a=np.zeros((K, model.nv)),
+    plan = Plan(t=step * np.arange(K), q=q, v=v, a=a,
                 tau=np.array(tau).reshape(K, nj), contact_forces=np.array(forces).reshape(K, nc, 3),
                 contact_active=np.repeat(stance[None], K, axis=0), contact_targets=np.zeros((K, nc, 3)),
                 margin=np.zeros(K), meta=meta)
@@ -122,9 +132,20 @@ def frame_jacobians(model, data, q, frames) -> np.ndarray:
     return np.vstack([pin.computeFrameJacobian(model, data, q, model.getFrameId(f), WORLD)[:3] for f in frames])
 
 
-def _statics(model, data, q, contacts, stance):
-    """Least-squares forces (nc, 3) of the stance contacts and joint torques (nj,) holding q still."""
-    g = pin.rnea(model, data, q, np.zeros(model.nv), np.zeros(model.nv))
+def _sweep_rates(model, q, step: float):
+    """Velocities and accelerations (K, nv) joining postures ``q`` by semi-implicit Euler."""
+    K = q.shape[0]
+    v, a = np.zeros((K, model.nv)), np.zeros((K, model.nv))
+    for k in range(K - 1):
+        v[k + 1] = pin.difference(model, q[k], q[k + 1]) / step
+        a[k] = (v[k + 1] - v[k]) / step
+    return v, a
+
+
+def _statics(model, data, q, contacts, stance, v=None, a=None):
+    """Least-squares forces (nc, 3) of the stance contacts and joint torques (nj,) for q, v, a (default rest)."""
+    zero = np.zeros(model.nv)
+    g = pin.rnea(model, data, q, zero if v is None else v, zero if a is None else a)
     jc = frame_jacobians(model, data, q, contacts)
     on = np.repeat(stance, 3)
     lam = np.zeros(3 * len(contacts))
@@ -256,3 +277,26 @@ def check_plan_against_sampled_lps(plan: Plan, n_dirs: int = 200, knots=None, rt
         rows.append({"knot": c.knot, "rho": c.rho, "lower": lower, "upper": upper,
                      "facets": c.facets, "planned": c.planned})
     return rows
+
+
+def internal_push(plan, k: int, a: int, b: int, size: float):
+    """Push contact ``a``'s force by ``size`` N towards contact ``b`` and ``b``'s by the opposite.
+
+    Statics (Newton): two equal, opposite forces along the line through both points add no
+    net force and no net moment, so the floating base stays balanced; the joint torques are
+    corrected by the contact Jacobians' joint columns (Pinocchio), so the equations of
+    motion keep holding and only the friction check may notice.
+    """
+    meta = plan.meta
+    model = pin.buildModelFromXML(meta["urdf"], pin.JointModelFreeFlyer())
+    data = model.createData()
+    ids = [model.getFrameId(meta["contact_frames"][c]) for c in (a, b)]
+    pin.framesForwardKinematics(model, data, plan.q[k])
+    line = data.oMf[ids[1]].translation - data.oMf[ids[0]].translation
+    push = size * line / np.linalg.norm(line)
+    jac = [pin.computeFrameJacobian(model, data, plan.q[k], i, WORLD)[:3] for i in ids]
+    out = copy.deepcopy(plan)
+    out.contact_forces[k, a] += push
+    out.contact_forces[k, b] -= push
+    out.tau[k] -= jac[0][:, 6:].T @ push - jac[1][:, 6:].T @ push
+    return out

@@ -8,7 +8,7 @@ import pinocchio as pin
 import pytest
 
 from certify_checks import (MODELS, LiftedLP, check_plan_against_sampled_lps, demo_standing,
-                            least_squares_margin, standing_plan)
+                            least_squares_margin, sampled_bounds, standing_plan)
 from optimizer.analysis.certify import Settings, certify_plan
 from optimizer.analysis.knot_response import knot_responses
 
@@ -157,15 +157,39 @@ def test_torque_beyond_its_limit_is_a_violation_and_never_a_crash(excess, repair
     assert json.loads(json.dumps(cert.to_json()))["status"] == cert.status
 
 
-def test_wrench_disturbance_is_sampled_and_says_so():
+def test_wrench_figure_is_exact_and_lies_between_independent_sampled_lp_bounds():
+    # 6-D: the projection runs to its tolerance like in 3-D. Bracketed by SciPy linprog on the
+    # lifted polytope (u, dtau, dlambda) along 300 sampled directions: the smallest support is
+    # an upper bound, the inscribed radius of their hull a lower bound.
     args = demo_standing()
     plan = standing_plan(**args, kind="wrench")
-    cert = certify_plan(plan, settings=Settings(samples=60)).knots[0]
-    assert cert.method == "sampled" and cert.direction.shape == (6,)
-    assert any("sampled directions" in n for n in cert.notes)
-    force_only = certify_plan(standing_plan(**args)).knots[0].rho
+    cert = certify_plan(plan).knots[0]
+    assert cert.exact and cert.method == "projection" and cert.direction.shape == (6,)
+    assert cert.upper - cert.lower <= 1e-6 * cert.upper
+    lower, upper = sampled_bounds(plan, 0, n_dirs=300, seed=4)
+    assert lower * (1 - 1e-6) <= cert.rho <= upper * (1 + 1e-6)
     # a wrench set contains the pure forces: its figure cannot exceed the force figure
-    assert cert.rho <= force_only * (1 + 1e-9) or cert.lower <= force_only
+    force_only = certify_plan(standing_plan(**args)).knots[0].rho
+    assert cert.rho <= force_only * (1 + 1e-9)
+
+
+def test_a_stopped_wrench_projection_reports_a_sound_bound_pair():
+    # With a budget of 14 LPs the 6-D projection cannot close; the knot then carries the inner
+    # hull's radius (a point set inside the residual set: a sound lower bound) and the smallest
+    # support value (a sound upper bound), never an "exact" figure.
+    plan = standing_plan(**demo_standing(), kind="wrench")
+    exact = certify_plan(plan, check=False).knots[0]
+    stopped = certify_plan(plan, check=False, settings=Settings(max_lps=14, samples=50)).knots[0]
+    assert not stopped.exact and stopped.to_json()["rho_exact_N"] is None
+    assert stopped.to_json()["figure"] == "bounds"
+    assert stopped.lower <= exact.rho * (1 + 1e-9) and exact.rho <= stopped.upper * (1 + 1e-9)
+    assert stopped.upper > stopped.lower
+    assert any("bound pair" in n for n in stopped.notes)
+    # a planned margin between the bounds is not proven: the verdict says so
+    between = 0.5 * (max(stopped.lower, 0.0) + stopped.upper)
+    plan.margin[:] = between
+    again = certify_plan(plan, check=False, settings=Settings(max_lps=14, samples=50)).knots[0]
+    assert again.status == "margin not proven (between the bounds)"
 
 
 def test_knot_responses_use_pinocchio_jacobians_and_plan_data(demo_plan):

@@ -192,6 +192,20 @@ def test_robust_limit_rows_are_named_after_the_limit_they_measure(failed):
     assert zero == {f"{robot.joint_names[3]} torque (upper)", f"{task.contacts[1].frame} minimum normal force"}
 
 
+def test_diagnosis_keeps_the_solver_multipliers_of_each_family(failed):
+    # Ipopt's constraint multipliers where it stopped, one per row; each family reports the
+    # largest magnitude over the rows labelled with it.
+    _, outcome = failed
+    labels = outcome.transcription.constraints.labels
+    assert outcome.multipliers is not None and len(outcome.multipliers) == len(labels)
+    for violation in diagnose(outcome):
+        if violation.family == "torque limits":
+            continue                      # variable bounds, not rows of g
+        rows = [abs(m) for m, label in zip(outcome.multipliers, labels) if label.family == violation.family]
+        assert violation.multiplier == pytest.approx(max(rows), rel=1e-12)
+        assert violation.as_dict()["multiplier"] == pytest.approx(max(rows), rel=1e-12)
+
+
 def test_knot_ranges():
     assert knot_ranges([7, 1, 2, 3]) == "1-3, 7"
     assert knot_ranges([]) == "-"

@@ -59,7 +59,8 @@ def test_save_without_npz_suffix_writes_exactly_that_path(plan, tmp_path):
 
 def test_fixture_plan_satisfies_equations_of_motion_checked_with_pinocchio(plan):
     # What a reader can check (docs/plan-files.md): rnea(q, v, a) - S^T tau - sum J_c^T lambda_c = 0,
-    # and Newton on flat ground: sum of normal forces = m g.
+    # and Newton on flat ground: sum of normal forces = m g + m (centre-of-mass acceleration)_z,
+    # the latter from Pinocchio's centroidal momentum rate.
     model = pin.buildModelFromXML(plan.meta["urdf"], pin.JointModelFreeFlyer())
     data = model.createData()
     mass = sum(inertia.mass for inertia in model.inertias)
@@ -68,7 +69,8 @@ def test_fixture_plan_satisfies_equations_of_motion_checked_with_pinocchio(plan)
         residual = (pin.rnea(model, data, plan.q[k], plan.v[k], plan.a[k])
                     - np.concatenate([np.zeros(6), plan.tau[k]]) - jc.T @ plan.contact_forces[k].ravel())
         np.testing.assert_allclose(residual, 0.0, atol=1e-9)
-        np.testing.assert_allclose(plan.contact_forces[k, :, 2].sum(), mass * 9.81, rtol=1e-12)
+        rate = pin.computeCentroidalMomentumTimeVariation(model, data, plan.q[k], plan.v[k], plan.a[k])
+        np.testing.assert_allclose(plan.contact_forces[k, :, 2].sum(), mass * 9.81 + rate.linear[2], rtol=1e-12)
 
 
 def test_saving_a_reserved_extra_key_fails_and_keeps_the_old_file(plan, tmp_path):

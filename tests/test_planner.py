@@ -8,6 +8,7 @@ from that seed's stage).
 """
 from __future__ import annotations
 
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -82,3 +83,19 @@ def test_one_seed_serves_several_objectives_and_files_go_with_the_planner(two_ro
     assert any(folder.iterdir())          # the solver logs live in the planner's folder
     planner.close()
     assert not folder.exists()
+
+
+def test_planners_in_threads_keep_their_own_builds(two_robot_files):
+    # One planner per thread, as documented: each builds its own NLP and reads its own
+    # robot file's limits (the numbers written in the files above).
+    plain, changed = two_robot_files
+    j = plain.robot.joint_names.index("fl_knee")
+
+    def knee_velocity_bound(task):
+        with Planner() as planner:
+            return physical_bounds(planner.transcription(task, "feasible"), task)["v"][1][6 + j, 1]
+
+    with ThreadPoolExecutor(max_workers=2) as pool:
+        first, second = pool.map(knee_velocity_bound, [plain, changed])
+    assert second == pytest.approx(4.0, rel=1e-12)
+    assert first == pytest.approx(plain.robot.velocity_limit[j], rel=1e-12)

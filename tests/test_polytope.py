@@ -135,15 +135,15 @@ def test_no_admissible_response_is_reported_not_raised():
     assert cert.to_json()["rho_exact_N"] is None
 
 
-def test_wrench_disturbance_falls_back_to_sampled_directions():
-    # 6-D: with J = I the set is a 6-D box; the axis directions are among the samples, so the
-    # smallest sampled support is exactly the smallest room (common practice).
+def test_wrench_disturbance_on_a_6d_box_is_exact():
+    # 6-D: with J = I the residual set is the box |u_i| <= room_i; the largest centred ball
+    # inside a box has the smallest half-width as radius (elementary geometry).
     room = np.array([4.0, 5.0, 6.0, 0.7, 0.8, 0.9])
     resp = fixed_arm(np.eye(6), np.zeros(6), -room, room)
-    cert, _ = certify_response(resp, settings=Settings(samples=50))
-    assert cert.method == "sampled" and any("sampled directions" in n for n in cert.notes)
+    cert, _ = certify_response(resp)
+    assert cert.exact and cert.method == "projection"
     assert cert.rho == pytest.approx(0.7, rel=1e-9)
-    assert cert.lower <= cert.rho + 1e-12
+    assert abs(abs(cert.direction[3]) - 1.0) < 1e-9
 
 
 def test_nearest_point_of_a_square_off_the_origin():

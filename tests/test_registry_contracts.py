@@ -150,6 +150,8 @@ def test_backend_builds_once_and_solves_many(name):
         result = solver.solve(np.zeros(2), p, -np.inf * np.ones(2), np.inf * np.ones(2), 1.0, 1.0)
         assert result.success and result.status in ("solved", "acceptable")
         np.testing.assert_allclose(result.x, [(p - 1) / 2, (3 - p) / 2], atol=1e-7)
+        # stationarity of f + lam g: 2 (x - p) + lam = 0, so lam = p + 1
+        np.testing.assert_allclose(result.lam_g, [p + 1], atol=1e-6)
         assert result.max_violation <= 1e-8 and result.iterations >= 0
     assert seen, "the progress callback was never called"
     # x >= 2 and y >= 2 cannot meet x + y = 1: the backend says so in neutral words

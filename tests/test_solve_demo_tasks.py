@@ -6,14 +6,20 @@ and SciPy's LP solver only, never our CasADi model.
 """
 from __future__ import annotations
 
+import copy
 import json
+import math
+import re
 
 import numpy as np
 import pinocchio as pin
 import pytest
 
-from certify_checks import check_plan_against_sampled_lps, sampled_bounds
+from certify_checks import check_plan_against_sampled_lps, internal_push, sampled_bounds
 from optimizer.analysis.certify import certify_plan
+from optimizer.analysis.model_change import ModelChange
+from optimizer.analysis.plan_check import check_plan
+from optimizer.cli import main
 from optimizer.planfile import load_plan, save_plan
 from optimizer.planner import solve
 from optimizer.problem.task import load_task
@@ -175,3 +181,88 @@ def test_every_plans_margin_is_below_its_exact_figure(task_name, objective):
         assert plan.margin[knot.knot] <= knot.rho * (1 + 1e-6) + 1e-7, (knot.knot, plan.margin[knot.knot], knot.rho)
         if knot.rho > 1e-3:   # the report gives the ratio, at most 1 within the same tolerance
             assert 0.0 <= knot.ratio * knot.rho <= knot.rho * (1 + 1e-6) + 1e-7
+
+
+@pytest.mark.parametrize("objective", OBJECTIVES)
+@pytest.mark.parametrize("task_name", TASKS)
+def test_every_solved_plan_passes_the_physics_checks(task_name, objective):
+    # The checks recompute everything with Pinocchio (rnea, frame placements and Jacobians,
+    # integrate / difference) from the plan file; a plan brace writes must pass all of them.
+    _, plan = plan_of(task_name, objective)
+    report = check_plan(plan)
+    assert report.passed, [r.reason() for r in report.failures()]
+
+
+def test_a_solved_plan_with_scaled_torques_is_not_certified(tmp_path, capsys):
+    # 1.3 tau no longer balances rnea(q, v, a) - J_c^T lambda (Pinocchio): the dynamics check
+    # fails, named with its knot, and the command exits 1.
+    _, plan = plan_of("steep_ramp", "robust")
+    scaled = copy.deepcopy(plan)
+    scaled.tau = 1.3 * scaled.tau
+    save_plan(scaled, tmp_path / "scaled.npz")
+    assert main(["certify", str(tmp_path / "scaled.npz"), "--quiet", "--json", str(tmp_path / "c.json")]) == 1
+    text = capsys.readouterr().out
+    assert "result: NOT certified" in text
+    assert re.search(r"dynamics check failed at knot \d+, ", text)
+    doc = json.loads((tmp_path / "c.json").read_text())
+    failed = [c for c in doc["plan_checks"]["checks"] if not c["passed"]]
+    assert [c["name"] for c in failed] == ["dynamics"] and failed[0]["knot"] is not None
+
+
+def test_a_solved_plan_with_a_foot_force_outside_its_pyramid_is_not_certified(tmp_path, capsys):
+    # Two feet on the same side of the ramp push each other along the line joining them
+    # (no net force, no net moment: statics), torques corrected through Pinocchio's contact
+    # Jacobians, so only friction breaks: Coulomb's |f_t| <= mu cos(pi/4) f_n per pyramid axis.
+    _, plan = plan_of("steep_ramp", "robust")
+    k, front, rear = 3, 0, 2
+    normal = np.array(plan.meta["contact_normals"][front])
+    load = plan.contact_forces[k, front] @ normal
+    pushed = internal_push(plan, k, front, rear, plan.meta["friction"][front] * load + 10.0)
+    save_plan(pushed, tmp_path / "pushed.npz")
+    assert main(["certify", str(tmp_path / "pushed.npz"), "--quiet"]) == 1
+    text = capsys.readouterr().out
+    assert "result: NOT certified" in text
+    match = re.search(r"(\S+) check failed at knot (\d+), (\S+) facet", text)
+    assert match and match.group(1) == "friction" and int(match.group(2)) == k
+    assert match.group(3) in (plan.meta["contact_frames"][front], plan.meta["contact_frames"][rear])
+    assert "dynamics check failed" not in text
+
+
+def test_ramp_friction_floor_is_the_inclined_plane_condition():
+    # Inclined plane (textbook): a body at rest on a slope theta needs mu >= tan(theta); with the
+    # plan's inscribed pyramid of m facets the per-axis coefficient is mu cos(pi / m), so the
+    # knot at rest (the last one) stops being feasible at mu = tan(theta) / cos(pi / m).
+    # Moving knots need at least what Newton asks of the summed contact force
+    # F = dh/dt - m g (Pinocchio's centroidal momentum rate), per pyramid axis.
+    task, plan = plan_of("steep_ramp", "robust")
+    meta = plan.meta
+    slope = math.radians(task.raw["stance"]["terrain"]["slope_deg"])
+    m = meta["friction_pyramid"]["facets"]
+    mu = meta["friction"][0]
+    report = certify_plan(plan, check=False, change=ModelChange())
+    floors = [c.changed.friction_floor * mu for c in report.knots]
+    assert floors[-1] == pytest.approx(math.tan(slope) / math.cos(math.pi / m), rel=0.02)
+    model = pin.buildModelFromXML(meta["urdf"], pin.JointModelFreeFlyer())
+    data = model.createData()
+    mass, g = pin.computeTotalMass(model), np.array(meta["gravity"])
+    n, (t1, t2) = np.array(meta["contact_normals"][0]), np.array(meta["friction_pyramid"]["tangents"][0])
+    for k, floor in enumerate(floors):
+        rate = pin.computeCentroidalMomentumTimeVariation(model, data, plan.q[k], plan.v[k], plan.a[k])
+        total = np.array(rate.linear) - mass * g
+        needed = max(abs(total @ t1), abs(total @ t2)) / (total @ n) / math.cos(math.pi / m)
+        assert floor >= needed * (1 - 1e-3), (k, floor, needed)
+
+
+def test_lowering_friction_never_raises_a_margin():
+    # A smaller friction coefficient shrinks every pyramid, so the set of admissible responses
+    # only shrinks (set inclusion): no knot's figure may grow. Tolerance: the projection's own.
+    _, plan = plan_of("steep_ramp", "robust")
+    previous = None
+    for scale in (1.2, 1.0, 0.9, 0.8, 0.7):
+        report = certify_plan(plan, check=False, change=ModelChange(friction_scale=scale), friction_floor=False)
+        figures = np.array([c.changed.cert.rho for c in report.knots])
+        if previous is not None:
+            finite = np.isfinite(figures)
+            assert (figures[finite] <= previous[finite] + 1e-6 * np.abs(previous[finite]) + 1e-7).all(), scale
+        previous = figures
+    assert (previous < 0).any()   # at 0.7 the plan is infeasible somewhere, so the sweep means something

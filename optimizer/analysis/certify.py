@@ -17,11 +17,14 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .knot_response import knot_responses
+from .model_change import ChangedKnots, ModelChange, feasible_at_rest
+from .plan_check import CheckReport, check_plan
 from .polytope import EmptyResidualSet, SupportLP, project, sample_support
 from .response import KnotResponse
 
 DEFAULT_TOL = 1e-7
 DEFAULT_CAP = 1e6
+DEFAULT_MAX_LPS = 400
 MARGIN_RTOL = 1e-6
 
 
@@ -39,9 +42,13 @@ class Settings:
     full : bool
         Project the whole polytope (true facet count), not only around rho.
     samples : int
-        Sampled directions for 6-D (wrench) disturbances.
+        Sampled directions that tighten the upper bound of a knot whose
+        projection stopped (``max_lps``) before inner and outer hull agreed.
     backend : str
         ``"auto"``, ``"resident"`` or ``"linprog"`` (see :class:`SupportLP`).
+    max_lps : int
+        Support LPs per knot after which the projection stops; the knot then
+        carries a bound pair instead of an exact figure.
     """
 
     tol: float = DEFAULT_TOL
@@ -49,6 +56,7 @@ class Settings:
     full: bool = False
     samples: int = 400
     backend: str = "auto"
+    max_lps: int = DEFAULT_MAX_LPS
 
 
 @dataclass
@@ -88,11 +96,13 @@ class KnotCertificate:
     time : float
         Knot time [s].
     rho : float
-        Exact smallest unrejectable disturbance [N] (negative: the plan
+        Smallest unrejectable disturbance [N]: exact within the tolerance
+        when ``exact``, else the sound lower bound (negative: the plan
         already breaks a limit and no response repairs it; ``-inf``: no
         response exists at all).
     lower, upper : float
-        Bounds from inner and outer hull [N].
+        Sound bounds [N]: the inner hull's inscribed radius (points of the
+        residual set) and the smallest support value of any LP asked.
     direction : ndarray, shape (d,)
         Weakest direction, unit, world frame (``[force; moment]`` for a wrench).
     bottleneck : list of str
@@ -100,7 +110,8 @@ class KnotCertificate:
     planned : float
         The plan's margin at this knot [N] (NaN if absent).
     ratio : float
-        ``planned / rho``: 1 means the linear-gain bound is tight.
+        ``planned / rho`` (rho the lower bound when not exact): 1 means the
+        linear-gain bound is tight.
     facets, vertices, lps : int
         Distinct facets and vertices of the (inner) polytope, LPs solved.
     method : str
@@ -115,6 +126,9 @@ class KnotCertificate:
         This knot's replay counts.
     weakest_u : ndarray, shape (d,) or None
         Weakest direction in the coordinates u of ``F = W u``.
+    weakest_support : float
+        Support value along ``weakest_u`` [N]: a push just beyond it that way
+        is unrejectable (equal to rho within the tolerance when exact).
     """
 
     knot: int
@@ -139,10 +153,17 @@ class KnotCertificate:
     notes: list = field(default_factory=list)
     replay: ReplayCounts | None = None
     weakest_u: np.ndarray | None = None
+    weakest_support: float = math.nan
+    changed: "ChangedFigure | None" = None
+
+    @property
+    def exact(self) -> bool:
+        """Inner and outer hull agreed within the tolerance: ``rho`` is the exact figure."""
+        return self.complete
 
     @property
     def margin_ok(self) -> bool:
-        """The planned margin does not exceed rho (relative tolerance 1e-6)."""
+        """The planned margin is proven not to exceed the figure (relative tolerance 1e-6)."""
         if not math.isfinite(self.planned):
             return True
         return self.planned <= self.rho + MARGIN_RTOL * max(abs(self.rho), 1e-9)
@@ -154,12 +175,16 @@ class KnotCertificate:
         if self.violations or self.rho < 0.0:
             return "violation"
         if not self.margin_ok:
-            return "margin above exact"
+            if self.exact:
+                return "margin above exact"
+            above = self.planned > self.upper + MARGIN_RTOL * max(abs(self.upper), 1e-9)
+            return "margin above upper bound" if above else "margin not proven (between the bounds)"
         return "ok"
 
     def to_json(self) -> dict:
         return {
-            "knot": self.knot, "time_s": _num(self.time), "rho_exact_N": _num(self.rho),
+            "knot": self.knot, "time_s": _num(self.time), "figure": "exact" if self.exact else "bounds",
+            "rho_exact_N": _num(self.rho) if self.exact else None,
             "rho_lower_N": _num(self.lower), "rho_upper_N": _num(self.upper),
             "weakest_direction": [_num(x) for x in self.direction],
             "bottleneck": list(self.bottleneck), "planned_margin_N": _num(self.planned),
@@ -169,6 +194,7 @@ class KnotCertificate:
             "converged": self.complete, "violations": list(self.violations),
             "seconds": _num(self.seconds), "notes": list(self.notes),
             "replay": None if self.replay is None else _replay_json(self.replay),
+            "changed_model": None if self.changed is None else self.changed.to_json(),
         }
 
 
@@ -212,10 +238,9 @@ def certify_response(resp: KnotResponse, planned: float = math.nan, settings: Se
     lp = support_lp(resp, settings)
     violations = nominal_violations(lp)
     try:
-        if lp.dim <= 3:
-            proj = project(lp, settings.tol, settings.full)
-        else:
-            proj = sample_support(lp, settings.samples)
+        proj = project(lp, settings.tol, settings.full, settings.max_lps)
+        if not proj.complete and settings.samples > 0:
+            proj = _tighten_upper(lp, proj, settings.samples)
     except EmptyResidualSet:
         return _empty_certificate(resp, lp, planned, knot, t, violations, start), lp
     direction = resp.shape @ proj.weakest.direction
@@ -228,9 +253,21 @@ def certify_response(resp: KnotResponse, planned: float = math.nan, settings: Se
         facets=proj.facets, vertices=len(proj.vertices), lps=lp.solved, method=proj.method,
         flat=proj.flat, capped=proj.capped, unbounded=proj.unbounded, complete=proj.complete,
         violations=violations, notes=list(proj.notes), weakest_u=proj.weakest.direction,
+        weakest_support=proj.weakest.value,
     )
+    if not proj.complete:
+        cert.notes.append(f"{lp.dim}-D projection stopped after {settings.max_lps} LPs before inner and outer "
+                          "hull agreed: the figure is a bound pair (sound lower, sampled upper)")
     cert.seconds = time.perf_counter() - start
     return cert, lp
+
+
+def _tighten_upper(lp: SupportLP, proj, samples: int):
+    """Lower the projection's upper bound with ``samples`` sampled support LPs (never its lower bound)."""
+    sampled = sample_support(lp, samples)
+    if sampled.upper < proj.upper:
+        proj.upper = sampled.upper
+    return proj
 
 
 def _empty_certificate(resp, lp, planned, knot, t, violations, start) -> KnotCertificate:
@@ -263,11 +300,40 @@ def replay_knot(lp: SupportLP, cert: KnotCertificate, draws: int, rng) -> Replay
     elif draws > 0:
         counts.skipped.append(f"knot {cert.knot}: no positive planned margin to replay")
     if cert.rho > 0.0 and not cert.capped and cert.weakest_u is not None:
+        beyond = max(cert.rho, cert.weakest_support if math.isfinite(cert.weakest_support) else cert.rho)
         counts.beyond_tried += 1
-        counts.beyond_unrejectable += not lp.contains(cert.rho * (1.0 + 1e-4) * cert.weakest_u)
+        counts.beyond_unrejectable += not lp.contains(beyond * (1.0 + 1e-4) * cert.weakest_u)
     else:
         counts.skipped.append(f"knot {cert.knot}: no push beyond rho (rho not positive or capped)")
     return counts
+
+
+@dataclass
+class ChangedFigure:
+    """One knot under a changed model (the plan fixed).
+
+    Attributes
+    ----------
+    cert : KnotCertificate
+        Certification with the changed limits (and payload); ``cert.rho`` is
+        the margin under the changed model [N].
+    feasible : bool
+        Some response keeps every changed limit with no disturbance.
+    friction_floor : float
+        Smallest friction scale (times the plan's coefficients, the other
+        changes applied) at which the knot stays feasible.
+    """
+
+    cert: KnotCertificate
+    feasible: bool
+    friction_floor: float
+
+    def to_json(self) -> dict:
+        c = self.cert
+        return {"rho_N": _num(c.rho) if c.exact else None, "rho_lower_N": _num(c.lower),
+                "rho_upper_N": _num(c.upper), "figure": "exact" if c.exact else "bounds",
+                "feasible": self.feasible, "friction_floor_scale": _num(self.friction_floor),
+                "bottleneck": list(c.bottleneck), "violations_at_planned_point": list(c.violations)}
 
 
 @dataclass
@@ -278,6 +344,14 @@ class PlanCertificate:
     disturbance: dict
     settings: Settings
     replay: ReplayCounts | None = None
+    checks: CheckReport | None = None
+    change: ModelChange | None = None
+    change_text: str = ""
+    plan_friction: list = field(default_factory=list)
+
+    def infeasible_under_change(self) -> list:
+        """Knots where the plan is not feasible at all under the changed model."""
+        return [c.knot for c in self.knots if c.changed is not None and not c.changed.feasible]
 
     def smallest(self) -> KnotCertificate:
         return min(self.knots, key=lambda c: c.rho)
@@ -288,7 +362,12 @@ class PlanCertificate:
 
     def problems(self) -> list:
         """Plain-language list of what failed (empty when the plan is certified)."""
-        out = [f"knot {c.knot}: {c.status}" for c in self.knots if c.status != "ok"]
+        out = [] if self.checks is None else [r.reason() for r in self.checks.failures()]
+        out += [f"knot {c.knot}: {c.status}" for c in self.knots if c.status != "ok"]
+        bad = self.infeasible_under_change()
+        if bad:
+            out.append(f"changed model ({self.change_text}): the plan is not feasible at all at knots "
+                       + ", ".join(map(str, bad)))
         if self.replay is not None and not self.replay.passed:
             r = self.replay
             out.append(f"replay: {r.drawn - r.rejected} of {r.drawn} draws not rejectable, "
@@ -307,16 +386,33 @@ class PlanCertificate:
             "bottleneck_knots": times, "planned_over_exact_min": _num(min(ratios)) if ratios else None,
             "planned_over_exact_max": _num(max(ratios)) if ratios else None,
             "margin_above_exact_knots": sum(not c.margin_ok for c in self.knots),
+            "exact_knots": sum(c.exact for c in self.knots),
+            "smallest_rho_upper_N": _num(low.upper), "smallest_is_exact": low.exact,
+            "physics_checked": self.checks is not None,
+            **self._changed_summary(),
             "violation_knots": sum(c.status == "violation" for c in self.knots),
             "median_ms_per_knot": _num(1e3 * float(np.median(seconds))),
             "certified": not self.problems(), "problems": self.problems(),
         }
 
+    def _changed_summary(self) -> dict:
+        if self.change is None:
+            return {}
+        figures = [c.changed for c in self.knots]
+        low = min(figures, key=lambda f: f.cert.rho)
+        floor = max(figures, key=lambda f: -math.inf if math.isnan(f.friction_floor) else f.friction_floor)
+        return {"changed_smallest_rho_N": _num(low.cert.rho), "changed_smallest_at_knot": low.cert.knot,
+                "changed_smallest_is_exact": low.cert.exact,
+                "changed_infeasible_knots": self.infeasible_under_change(),
+                "friction_floor_scale": _num(floor.friction_floor), "friction_floor_at_knot": floor.cert.knot}
+
     def to_json(self) -> dict:
         s = self.settings
         return {
             "format": "brace-certificate/1", "disturbance": self.disturbance,
-            "settings": {"tol": s.tol, "cap_N": s.cap, "full": s.full, "samples": s.samples},
+            "settings": {"tol": s.tol, "cap_N": s.cap, "full": s.full, "samples": s.samples, "max_lps": s.max_lps},
+            "plan_checks": {"run": False} if self.checks is None else self.checks.to_json(),
+            "model_change": None if self.change is None else {**self.change.to_json(), "text": self.change_text},
             "summary": self.summary(), "knots": [c.to_json() for c in self.knots],
             "replay": None if self.replay is None else _replay_json(self.replay),
         }
@@ -332,8 +428,13 @@ def planned_margin(plan, k: int, disturbance: int) -> float:
 
 
 def certify_plan(plan, knots=None, disturbance: int = 0, settings: Settings | None = None,
-                 replay: int = 0, seed: int = 0, progress=None) -> PlanCertificate:
-    """Certify the chosen knots (all by default) of ``plan``.
+                 replay: int = 0, seed: int = 0, progress=None, check: bool = True,
+                 tolerances: dict | None = None, change: ModelChange | None = None,
+                 friction_floor: bool = True) -> PlanCertificate:
+    """Check the plan's physics, then certify the chosen knots (all by default) of ``plan``.
+
+    A plan that fails a physics check (:mod:`.plan_check`) is not certified,
+    whatever its margins.
 
     Parameters
     ----------
@@ -348,14 +449,29 @@ def certify_plan(plan, knots=None, disturbance: int = 0, settings: Settings | No
         Seed of the replay's random generator.
     progress : callable, optional
         Called as ``progress(done, total, certificate)`` after every knot.
+    check : bool
+        Run the physics checks first (False: skip them; the report says so).
+    tolerances : dict of str to float, optional
+        Check tolerances by check name (see :data:`.plan_check.CHECKS`).
+    change : ModelChange, optional
+        Also certify every chosen knot under this changed model (the plan
+        fixed): margin, feasibility and (``friction_floor``) the friction
+        floor per knot.
+    friction_floor : bool
+        Find each knot's friction floor under ``change`` (about 15 LPs per
+        knot); False leaves it NaN.
     """
     settings = settings or Settings()
+    checks = check_plan(plan, tolerances) if check else None
     chosen = list(range(plan.t.shape[0]) if knots is None else knots)
     rng = np.random.default_rng(seed)
     total = ReplayCounts() if replay else None
     certs = []
+    changed = None if change is None else ChangedKnots(plan, change, disturbance)
     for i, (k, resp) in enumerate(knot_responses(plan, chosen, disturbance)):
         cert, lp = certify_response(resp, planned_margin(plan, k, disturbance), settings, k, float(plan.t[k]))
+        if changed is not None:
+            cert.changed = changed_figure(changed, k, cert, settings, friction_floor)
         if replay:
             cert.replay = replay_knot(lp, cert, replay, rng)
             total.add(cert.replay)
@@ -364,4 +480,19 @@ def certify_plan(plan, knots=None, disturbance: int = 0, settings: Settings | No
             progress(i + 1, len(chosen), cert)
     entry = plan.meta["disturbances"][disturbance]
     info = {"index": disturbance, "frame": entry["frame"], "kind": entry["kind"]}
-    return PlanCertificate(certs, info, settings, total)
+    text = "" if change is None else change.describe(plan.meta, disturbance)
+    return PlanCertificate(certs, info, settings, total, checks, change, text, list(plan.meta["friction"]))
+
+
+def changed_figure(changed: ChangedKnots, k: int, planned: KnotCertificate, settings: Settings,
+                   friction_floor: bool = True) -> ChangedFigure:
+    """Knot ``k`` certified under the changed model, with its feasibility and friction floor."""
+    resp = changed.response(k)
+    if not np.isfinite(resp.forces).all():  # the contacts cannot balance the payload at all
+        cert = KnotCertificate(k, planned.time, -math.inf, -math.inf, -math.inf, np.full(resp.dim, math.nan), [],
+                               planned.planned, math.nan, 0, 0, 0, "projection",
+                               notes=["the stance contacts cannot balance the payload"])
+        return ChangedFigure(cert, False, math.inf)
+    cert, _ = certify_response(resp, planned.planned, settings, k, planned.time)
+    floor = changed.friction_floor(resp) if friction_floor else math.nan
+    return ChangedFigure(cert, feasible_at_rest(resp), floor)

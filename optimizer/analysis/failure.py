@@ -29,7 +29,10 @@ class Violation:
 
     ``largest`` is in the NLP's scaled unit ``unit``; ``size`` says it in
     physical words; ``knots`` are the knots within 10 % of the largest;
-    ``worst`` the contacts, joints or targets behind it, worst first.
+    ``worst`` the contacts, joints or targets behind it, worst first;
+    ``multiplier`` the largest magnitude of the solver's multipliers on the
+    family's rows where it stopped (NaN when unknown): how hard that family
+    pushed back against the objective.
     """
 
     family: str
@@ -41,6 +44,7 @@ class Violation:
     worst: list
     hint: str
     groups: list = field(default_factory=list)
+    multiplier: float = math.nan
 
     def lines(self) -> list[str]:
         who = f"; worst {', '.join(self.worst[:4])}" if self.worst else ""
@@ -49,6 +53,7 @@ class Violation:
     def as_dict(self) -> dict:
         out = {k: getattr(self, k) for k in ("family", "words", "largest", "unit", "size", "knots", "worst", "hint")}
         out["largest"] = float(self.largest) if math.isfinite(self.largest) else None
+        out["multiplier"] = float(self.multiplier) if math.isfinite(self.multiplier) else None
         return out
 
 
@@ -89,8 +94,13 @@ def diagnose(outcome, transcription=None) -> list[Violation]:
     families: dict[str, list] = {}
     for group in transcription.constraints.groups:
         families.setdefault(group.family, []).append(group)
+    multipliers = getattr(outcome, "multipliers", None)
+    if multipliers is not None and len(multipliers) != g.size:   # from another NLP than this one
+        multipliers = None
     found = [_family_violation(name, groups, excess, weight) for name, groups in families.items()]
     found = [v for v in found if v is not None]
+    for violation in found:
+        violation.multiplier = _largest_multiplier(families[violation.family], multipliers)
     found.sort(key=lambda v: v.largest, reverse=True)
     torque = torque_limit_violation(outcome)
     return found + ([torque] if torque is not None else [])
@@ -115,6 +125,14 @@ def _family_violation(family, groups, excess, weight) -> Violation | None:
                      sorted(k for k, v in per_knot.items() if v >= 0.1 * largest),
                      [w for w, v in sorted(per_who.items(), key=lambda e: -e[1]) if v >= 0.1 * largest],
                      described.hint, [g.name for g in groups])
+
+
+def _largest_multiplier(groups, multipliers) -> float:
+    """Largest |multiplier| on the rows of ``groups`` (NaN when the solver gave none)."""
+    if multipliers is None or len(multipliers) == 0:
+        return math.nan
+    values = [np.abs(np.asarray(multipliers)[group.slice()]) for group in groups]
+    return float(max((v.max(initial=0.0) for v in values), default=0.0))
 
 
 def _larger(a: float, b: float) -> float:

@@ -301,12 +301,20 @@ def _facet_planes(hull: ConvexHull):
 
 
 def count_distinct_planes(normals, offsets, scale: float) -> int:
-    """Number of distinct planes among qhull's (triangulated) facets."""
-    kept = []
+    """Number of distinct planes among qhull's (triangulated) facets.
+
+    Two facets lie on one plane when their normals agree within 1e-6 and
+    their offsets within ``1e-6 scale``; each facet is compared with the
+    planes kept so far in one vectorized step (a 6-D hull has thousands).
+    """
+    normals, offsets = np.asarray(normals, float), np.asarray(offsets, float)
+    kept_n = np.zeros((0, normals.shape[1] if normals.ndim == 2 else 0))
+    kept_o = np.zeros(0)
     for n, o in zip(normals, offsets):
-        if not any(np.abs(n - m).max() < 1e-6 and abs(o - p) < 1e-6 * scale for m, p in kept):
-            kept.append((n, o))
-    return len(kept)
+        same = (np.abs(kept_n - n).max(axis=1, initial=0.0) < 1e-6) & (np.abs(kept_o - o) < 1e-6 * scale)
+        if not same.any():
+            kept_n, kept_o = np.vstack([kept_n, n]), np.append(kept_o, o)
+    return len(kept_o)
 
 
 def nearest_point(points) -> np.ndarray:

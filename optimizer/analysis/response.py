@@ -145,11 +145,12 @@ def limit_values(resp: KnotResponse) -> LimitValues:
 
 def _owner_order(limits: KnotLimits, joints, contacts, active) -> list[int]:
     """Rows by owner: each joint's upper and lower torque, then each active contact's facets and normal force."""
+    names = limits.names  # a property that lists every row: read it once
     by_owner: dict[str, list[int]] = {}
-    for i, name in enumerate(limits.names):
+    for i, name in enumerate(names):
         by_owner.setdefault(name.owner, []).append(i)
     order = [i for joint in joints for i in sorted(by_owner.get(joint, []),
-                                                  key=lambda i: limits.names[i].side != "upper")]
+                                                  key=lambda i: names[i].side != "upper")]
     return order + [i for c, on in zip(contacts, active) if on for i in by_owner.get(c, [])]
 
 
@@ -176,5 +177,6 @@ def build_limit_rows(resp: KnotResponse) -> LimitRows:
     a_ub = np.hstack([np.zeros((len(b), d)), -a_lam[:, cols]]) + a_tau @ t_map
     keep = [i for i in _owner_order(limits, joints, contacts, active) if np.isfinite(b[i])]
     a_eq = np.hstack([je_b.T, jc_b[cols].T])
+    names = limits.names
     return LimitRows(a_ub[keep].reshape(len(keep), d + cols.size), np.asarray(room, float)[keep], a_eq,
-                     [str(limits.names[i]) for i in keep], d, [limits.names[i] for i in keep])
+                     [str(names[i]) for i in keep], d, [names[i] for i in keep])

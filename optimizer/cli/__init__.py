@@ -27,12 +27,14 @@ COMMANDS = {
     "check-model": "optimizer.cli.check_model",
     "solve": "optimizer.cli.solve",
     "certify": "optimizer.cli.certify",
+    "export": "optimizer.cli.export",
 }
 
 COMMAND_HELP = {
     "check-model": "inspect a robot file: mass, frames, limits, standing statics",
     "solve": "plan a whole-body motion for a task file and write a plan file",
     "certify": "compute the exact smallest unrejectable force of a plan, knot by knot",
+    "export": "resample a plan at a fixed rate for a tracking controller (CSV or NPZ)",
 }
 
 

@@ -31,7 +31,10 @@ class SolverResult:
     ``x`` is the last point (in the NLP's own, scaled units), ``status`` one
     of :data:`STATUSES`, ``max_violation`` the largest bound or constraint
     violation at ``x``, ``wall_time`` in s, ``message`` the backend's own
-    status text, ``g`` the constraint values at ``x``.
+    status text, ``g`` the constraint values at ``x``; ``lam_g`` and
+    ``lam_x`` the multipliers of the constraints and of the variable bounds
+    at ``x`` (the Lagrangian ``f + lam_g . g + lam_x . x``; None when the
+    backend has none).
     """
 
     x: np.ndarray
@@ -43,6 +46,8 @@ class SolverResult:
     max_violation: float
     message: str
     g: np.ndarray = field(repr=False, default=None)
+    lam_g: np.ndarray = field(repr=False, default=None)
+    lam_x: np.ndarray = field(repr=False, default=None)
 
 
 class BuiltSolver(Protocol):

@@ -169,7 +169,8 @@ class IpoptSolver:
         x, g = np.array(out["x"]).ravel(), np.array(out["g"]).ravel()
         violation = max(max_excess(g, lbg, ubg), max_excess(x, lbx, ubx))
         return SolverResult(x, status, status in SUCCESS, int(stats.get("iter_count", 0)), wall,
-                            float(out["f"]), violation, name, g)
+                            float(out["f"]), violation, name, g, np.array(out["lam_g"]).ravel(),
+                            np.array(out["lam_x"]).ravel())
 
 
 class IpoptBackend:
