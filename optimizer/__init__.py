@@ -18,7 +18,8 @@ __version__ = "0.1.0"
 # The Python API, imported on first use so ``brace --help`` stays fast:
 #   optimizer.load_task(path), optimizer.solve(task, objective=...), optimizer.Planner(...),
 #   optimizer.save_plan(plan, path), optimizer.load_plan(path),
-#   optimizer.certify_plan(plan), optimizer.load_robot(path)
+#   optimizer.certify_plan(plan), optimizer.load_robot(path),
+#   optimizer.check_plan(plan), optimizer.ModelChange(friction_scale=...)
 _API = {
     "load_task": "optimizer.problem.task",
     "solve": "optimizer.planner",
@@ -26,6 +27,8 @@ _API = {
     "save_plan": "optimizer.planfile",
     "load_plan": "optimizer.planfile",
     "certify_plan": "optimizer.analysis.certify",
+    "check_plan": "optimizer.analysis.plan_check",
+    "ModelChange": "optimizer.analysis.model_change",
     "load_robot": "optimizer.robot.model",
 }
 

@@ -47,7 +47,11 @@ from .transcription.structure import structure_of
 
 @dataclass
 class StageReport:
-    """One solver run: objective, neutral status, iterations, times [s], violation."""
+    """One solver run: objective, neutral status, iterations, times [s], violation.
+
+    ``eval_time`` is the part of ``solve_time`` spent evaluating the NLP's
+    functions and derivatives.
+    """
 
     objective: str
     status: str
@@ -57,6 +61,7 @@ class StageReport:
     build_time: float
     max_violation: float
     message: str
+    eval_time: float = 0.0
 
     def as_dict(self) -> dict:
         return dict(self.__dict__)
@@ -132,7 +137,7 @@ class Planner:
     ----------
     objective : str, optional
         Default objective (``feasible``, ``robust``, ``robust-min``,
-        ``torque``); None uses each task's own.
+        ``robust-sum``, ``torque``); None uses each task's own.
     knots : int, optional
         Knot count overriding the tasks' own.
     backend : str
@@ -244,19 +249,27 @@ class Planner:
             self._listener(iteration, x, f, g)
 
     # -- solving -----------------------------------------------------------------
-    def seed(self, task, *, progress=None, log_path=None) -> Seed:
-        """The feasibility solve of ``task`` from its initial guess: the start of every objective."""
+    def seed(self, task, *, progress=None, log_path=None, start: dict | None = None) -> Seed:
+        """The feasibility solve of ``task`` from its initial guess: the start of every objective.
+
+        ``start`` (physical arrays by block name, e.g. a solved neighbouring
+        task's) replaces the initial guess; limit rooms are recomputed.
+        """
         task = self.prepared(task)
         with self._lock:
             outcome = SolveOutcome(task, "feasible", None)
             supervisor.phase("computing the starting point")
-            start = initial_guess(task)
-            arrays, result = self._run_stage(task, "feasible", start, outcome, progress, log_path)
+            first = initial_guess(task) if start is None else _without_rooms(start)
+            arrays, result = self._run_stage(task, "feasible", first, outcome, progress, log_path)
             return Seed(task, arrays if result.success else {}, outcome)
 
     def solve_from_seed(self, seed: Seed, objective: str | None = None, *, progress=None,
-                        log_path=None) -> SolveOutcome:
-        """Solve ``objective`` starting from ``seed``; the outcome's stages begin with the seed's."""
+                        log_path=None, start: dict | None = None) -> SolveOutcome:
+        """Solve ``objective`` starting from ``seed``; the outcome's stages begin with the seed's.
+
+        ``start`` (physical arrays, e.g. a neighbouring task's solution of the
+        same objective) replaces the seed's point as the objective's start.
+        """
         task = seed.task
         objective = self.objective_for(task, objective)
         with self._lock:
@@ -267,7 +280,9 @@ class Planner:
                 return outcome
             arrays = seed.arrays
             if objective != "feasible":
-                if objective_named(objective).robust:
+                if start is not None:
+                    arrays = _without_rooms(start)
+                elif objective_named(objective).robust:
                     supervisor.phase("computing the starting gains")
                     arrays = dict(arrays, **_initial_gains(task, arrays))
                 arrays, result = self._run_stage(task, objective, arrays, outcome, progress, log_path)
@@ -309,13 +324,18 @@ class Planner:
             _append_log(built.log, log_path, objective)
         outcome.stages.append(StageReport(objective, result.status, result.success, result.iterations,
                                           result.wall_time, built.unreported_build_time, result.max_violation,
-                                          result.message))
+                                          result.message, result.eval_time))
         built.unreported_build_time = 0.0  # reported once, with the first solve that paid for it
         outcome.last = layout.unpack(result.x)
         outcome.violations = transcription.constraints.violations(result.g, transcription.lbg, transcription.ubg)
         outcome.transcription = transcription
         outcome.multipliers = result.lam_g
         return outcome.last, result
+
+
+def _without_rooms(arrays: dict) -> dict:
+    """``arrays`` less the limit rooms, which depend on the task's numbers and are recomputed."""
+    return {name: value for name, value in arrays.items() if name != "rooms"}
 
 
 _SHARED: dict[tuple, Planner] = {}
@@ -340,7 +360,7 @@ def solve(task, objective: str | None = None, *, knots: int | None = None, progr
     task : Task
         A loaded task (:func:`optimizer.problem.task.load_task`).
     objective : str, optional
-        One of ``feasible``, ``robust``, ``robust-min``, ``torque``.
+        One of ``feasible``, ``robust``, ``robust-min``, ``robust-sum``, ``torque``.
     knots : int, optional
         Override the task's knot count.
     progress : callable(stage, iteration, objective, violation, min_margin), optional
@@ -467,6 +487,7 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
         "gravity": [float(g) for g in robot.gravity],
         "integrator": INTEGRATOR,
         "contact_frames": [c.frame for c in task.contacts],
+        "hand_frame": robot.hand_frame,
         "contact_normals": [np.asarray(c.normal, float).tolist() for c in task.contacts],
         "friction": [float(c.friction) for c in task.contacts],
         "friction_pyramid": {"facets": int(task.facets), "inscribed": True,

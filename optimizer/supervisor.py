@@ -91,7 +91,7 @@ def remove_scratch(folder) -> None:
 
 
 def will_create(folder, prefix: str) -> None:
-    """Declare that temporary files named ``prefix*`` are about to be made in ``folder``.
+    """Declare that temporary files or folders named ``prefix*`` are about to be made in ``folder``.
 
     For temporary files that cannot live in the scratch area (an output
     written beside its final path so that the final rename is atomic). The
@@ -179,8 +179,11 @@ class _Run:
             with contextlib.suppress(OSError):
                 for entry in os.scandir(folder):
                     if entry.name.startswith(prefix):
-                        with contextlib.suppress(OSError):
-                            os.unlink(entry.path)
+                        if entry.is_dir(follow_symlinks=False):
+                            shutil.rmtree(entry.path, ignore_errors=True)
+                        else:
+                            with contextlib.suppress(OSError):
+                                os.unlink(entry.path)
         shutil.rmtree(self.root, ignore_errors=True)
 
     def stop(self, signum, frame) -> None:

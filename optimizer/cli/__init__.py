@@ -27,6 +27,10 @@ COMMANDS = {
     "check-model": "optimizer.cli.check_model",
     "solve": "optimizer.cli.solve",
     "certify": "optimizer.cli.certify",
+    "compare": "optimizer.cli.compare",
+    "report": "optimizer.cli.report",
+    "simulate": "optimizer.cli.simulate",
+    "sweep": "optimizer.cli.sweep",
     "export": "optimizer.cli.export",
 }
 
@@ -34,6 +38,10 @@ COMMAND_HELP = {
     "check-model": "inspect a robot file: mass, frames, limits, standing statics",
     "solve": "plan a whole-body motion for a task file and write a plan file",
     "certify": "compute the exact smallest unrejectable force of a plan, knot by knot",
+    "compare": "plan a task with several objectives and compare them: table, figures, motion preview, HTML page",
+    "report": "draw and compare existing plan files: figures, motion preview and an HTML page",
+    "simulate": "replay a plan in MuJoCo with a tracking controller and push it at the hand",
+    "sweep": "solve a task over a grid or sample of variants; resumable, on a local pool or a Dask cluster",
     "export": "resample a plan at a fixed rate for a tracking controller (CSV or NPZ)",
 }
 

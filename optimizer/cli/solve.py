@@ -28,7 +28,7 @@ from ..errors import InputError, OutputError, TooLargeForMemory
 from ..memory import SIZE_TEXT, available_memory, format_size, parse_size
 from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
-from .notices import SAFETY
+from ..notices import SAFETY
 from .shortfalls import shortfall_lines, use_colour
 
 if TYPE_CHECKING:

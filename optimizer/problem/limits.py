@@ -31,6 +31,7 @@ registered in :data:`LIMIT_KINDS`.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Callable
 
 import numpy as np
@@ -186,10 +187,10 @@ class KnotLimits:
     contacts: tuple
     facets: int
 
-    @property
-    def names(self) -> list[LimitName]:
-        """Every row's name, in the order of :meth:`rooms`."""
-        return [n for kind in LIMIT_KINDS.values() for n in kind.names(self.joints, self.contacts, self.facets)]
+    @cached_property
+    def names(self) -> tuple[LimitName, ...]:
+        """Every row's name, in the order of :meth:`rooms` (listed once per instance)."""
+        return tuple(n for kind in LIMIT_KINDS.values() for n in kind.names(self.joints, self.contacts, self.facets))
 
     @property
     def size(self) -> int:

@@ -24,11 +24,12 @@ from ..memory import SIZE_TEXT, parse_size
 from ..robot.model import load_robot
 from ..schema import Fields
 from .friction import tangent_basis
+from .push_shape import shape_from_directions, wrench_shape
 from .requirement import horizon_requirement, read_requirements
 from .stance import foot_residuals, solve_stance
 from .terrain import build_terrain
 
-OBJECTIVES = ("feasible", "robust", "robust-min", "torque")
+OBJECTIVES = ("feasible", "robust", "robust-min", "robust-sum", "torque")
 DISTURBANCE_DIMS = {"force": 3, "wrench": 6}
 UNIT_TOLERANCE = 1e-3      # |n| may differ from 1 by this much before it counts as a mistake
 MAX_KNOTS = 2000           # more knots than this is a typo, not a plan (the NLP grows linearly)
@@ -189,7 +190,12 @@ class Task:
 def load_task(path) -> Task:
     """Read and validate the task file at ``path``."""
     path = Path(path)
-    data = read_yaml_mapping(path, TaskError)
+    return task_from_mapping(read_yaml_mapping(path, TaskError), path)
+
+
+def task_from_mapping(data: dict, path) -> Task:
+    """Validate a task mapping as if read from ``path`` (relative paths resolve against its folder)."""
+    path = Path(path)
     top = Fields(data, path, "", TaskError)
     top.allow_only(TOP_LEVEL)
     if top.has("description"):
@@ -389,14 +395,45 @@ def read_disturbances(top: Fields, robot) -> list[DisturbanceSpec]:
 
 
 def read_disturbance(spec: Fields, robot) -> DisturbanceSpec:
-    spec.allow_only({"frame", "kind", "shape"})
+    spec.allow_only({"frame", "kind", "shape", "expected", "length_scale"})
     frame = check_frame(spec, "frame", robot, spec.string("frame", robot.hand_frame))
     kind = spec.string("kind", "force", choices=list(DISTURBANCE_DIMS))
+    given = [key for key in ("shape", "expected", "length_scale") if spec.has(key)]
+    if len(given) > 1:
+        spec.fail(given[1], "at most one of 'shape', 'expected' (forces) or 'length_scale' (wrenches)", given)
     d = DISTURBANCE_DIMS[kind]
-    shape = spec.matrix("shape", (d, d)) if spec.has("shape") else np.eye(d)
+    shape = np.eye(d)
+    if spec.has("shape"):
+        shape = spec.matrix("shape", (d, d))
+    elif spec.has("expected"):
+        if kind != "force":
+            spec.fail("expected", "expected pushes on a force disturbance (kind: force)", kind)
+        shape = read_expected_pushes(spec.sub("expected"))
+    elif spec.has("length_scale"):
+        if kind != "wrench":
+            spec.fail("length_scale", "a length scale on a wrench disturbance (kind: wrench)", kind)
+        shape = wrench_shape(spec.number("length_scale", lo=0.0, lo_open=True, hi=100.0))
     if not np.any(shape):
         spec.fail("shape", "a shape matrix with a non-zero entry", shape.tolist())
     return DisturbanceSpec(frame, kind, shape)
+
+
+def read_expected_pushes(expected: Fields) -> np.ndarray:
+    """``{directions: [{along: [x, y, z], weight: w}], others: o}`` -> ``W`` (see problem/push_shape.py)."""
+    expected.allow_only({"directions", "others"})
+    items = expected.raw("directions")
+    if not isinstance(items, list) or not items:
+        expected.fail("directions", "a non-empty list of {along: [x, y, z], weight: w}", items)
+    directions, weights = [], []
+    for i, item in enumerate(items):
+        entry = Fields(item, expected.file, expected.at(f"directions[{i}]"), TaskError)
+        entry.allow_only({"along", "weight"})
+        along = entry.vector("along", 3)
+        if np.linalg.norm(along) < 1e-9:
+            entry.fail("along", "a direction of non-zero length", along.tolist())
+        directions.append(along)
+        weights.append(entry.number("weight", 1.0, lo=0.0, lo_open=True))
+    return shape_from_directions(directions, weights, expected.number("others", 0.0, lo=0.0))
 
 
 MEMORY_LIMIT = "memory_limit"  # the one key of ``solver`` that brace reads itself (not an Ipopt option)
