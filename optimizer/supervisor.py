@@ -141,14 +141,16 @@ def _remove_process_scratch(folder: Path, owner: int) -> None:
 class _Run:
     """State of one supervised run, as the parent sees it."""
 
-    def __init__(self, command: str):
+    def __init__(self, command: str, grace: float = 0.0):
         self.command = command
+        self.grace = grace
         self.root = Path(tempfile.mkdtemp(prefix=f"{SCRATCH_PREFIX}run-"))
         self.pid: int | None = None
         self.phase = "starting"
         self.phase_started = time.monotonic()
         self.declared: list[tuple[str, str]] = []
         self.stopping = False
+        self.grace_seconds = grace
         self.reader: threading.Thread | None = None
 
     def read_messages(self, fd: int) -> None:
@@ -191,6 +193,18 @@ class _Run:
         code = 128 + int(signum)
         if self.stopping:  # a second signal: end at once
             os._exit(code)
+        if self.grace > 0 and self.pid is not None and signum != signal.SIGALRM:
+            # The work stops itself (it keeps what it finished): pass the signal on, and kill it
+            # anyway if it has not ended within the grace time or a second signal comes.
+            self.grace, self.signum = 0.0, signum
+            with contextlib.suppress(OSError):
+                os.killpg(self.pid, signum)
+            signal.signal(signal.SIGALRM, self.stop)
+            signal.setitimer(signal.ITIMER_REAL, self.grace_seconds)
+            return
+        if signum == signal.SIGALRM:
+            signum = code = getattr(self, "signum", signal.SIGINT)
+            code = 128 + int(signum)
         self.stopping = True
         if self.pid is not None:
             with contextlib.suppress(OSError):
@@ -215,7 +229,7 @@ class _Stopped(Exception):
         self.code = code
 
 
-def run(work, *, command: str) -> int:
+def run(work, *, command: str, grace: float = 0.0) -> int:
     """Run ``work()`` (returns an exit code) in a supervised child process; return its exit code.
 
     Parameters
@@ -226,6 +240,11 @@ def run(work, *, command: str) -> int:
         straight to the inherited standard output and error.
     command : str
         The command's name, for the one line printed when it is stopped.
+    grace : float
+        0 (default): a stop signal kills the work at once. > 0: the signal
+        is passed on to the work, which stops itself (e.g. a batch command
+        keeping its finished results); it is killed if it has not ended
+        after ``grace`` seconds or at a second signal.
 
     Returns
     -------
@@ -237,7 +256,7 @@ def run(work, *, command: str) -> int:
     """
     if not hasattr(os, "fork"):  # no fork (Windows): run in-process, stoppable between Python steps only
         return int(work() or 0)
-    state = _Run(command)
+    state = _Run(command, grace)
     previous = {s: signal.getsignal(s) for s in STOP_SIGNALS}
     for s in STOP_SIGNALS:
         signal.signal(s, state.stop)
@@ -264,6 +283,7 @@ def run(work, *, command: str) -> int:
     except _Stopped as stopped:
         return stopped.code
     finally:
+        signal.setitimer(signal.ITIMER_REAL, 0)
         if not state.stopping:
             state.clean()
         for s, handler in previous.items():

@@ -75,7 +75,8 @@ def main(argv=None, supervise: bool | None = None) -> int:
     args = sub.parse_args(rest)
     args.debug = args.debug or top.debug
     if supervise:
-        return supervisor.run(lambda: run_command(top.command, module, args), command=top.command)
+        return supervisor.run(lambda: run_command(top.command, module, args), command=top.command,
+                              grace=getattr(module, "STOP_GRACE", 0.0))
     return run_command(top.command, module, args)
 
 

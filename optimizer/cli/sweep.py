@@ -20,6 +20,10 @@ from pathlib import Path
 from ..errors import InputError
 from .notices import SAFETY
 
+# Stopping: the supervisor passes Ctrl-C / SIGTERM on and waits this long [s] for the sweep to
+# stop its workers and write the summary of what finished (optimizer.supervisor).
+STOP_GRACE = 30.0
+
 HELP = "solve a task over a grid or sample of variants; resumable, on a local pool or a Dask cluster"
 CLI = "command line"
 
