@@ -235,18 +235,20 @@ def section_html(title: str, meta: dict, entries, folder: str, files: list[str])
     return "".join(parts)
 
 
-def page_html(sections: list[str], subtitle: str) -> str:
-    """The whole page around the comparison sections."""
+COMPARISON_NOTE = "A comparison ranks plans on the model; it does not say that any of them is safe to run."
+
+
+def page_html(sections: list[str], subtitle: str, title: str = TITLE, note: str = COMPARISON_NOTE) -> str:
+    """The whole page around its sections: header, sections, and the safety cautions with ``note``."""
     safety = SAFETY.removeprefix("Safety: ")
     caution = (f'<div class="caution"><h2>Safety</h2><p>{_e(safety[:1].upper() + safety[1:])}</p>'
-               f"<p>{_e(MODEL_ONLY)}</p>"
-               "<p>A comparison ranks plans on the model; it does not say that any of them is safe to run.</p></div>")
+               f"<p>{_e(MODEL_ONLY)}</p><p>{_e(note)}</p></div>")
     return (
         "<!DOCTYPE html>\n"
         '<html lang="en"><head><meta charset="utf-8">'
         '<meta name="viewport" content="width=device-width, initial-scale=1">'
         '<link rel="icon" href="data:,">'
-        f"<title>{_e(TITLE)}</title><style>{STYLE}</style></head><body><main>"
-        f'<header class="page"><h1>{_e(TITLE)}</h1><p>{_e(subtitle)} &middot; brace {_e(__version__)}</p></header>'
+        f"<title>{_e(title)}</title><style>{STYLE}</style></head><body><main>"
+        f'<header class="page"><h1>{_e(title)}</h1><p>{_e(subtitle)} &middot; brace {_e(__version__)}</p></header>'
         + "".join(sections) + caution + "</main></body></html>\n"
     )
