@@ -74,6 +74,10 @@ class TaskError(InputError):
     """A task file is invalid."""
 
 
+class SweepError(InputError):
+    """A sweep file is invalid, or a results folder belongs to another sweep."""
+
+
 class PlanFileError(InputError):
     """A plan file does not follow the plan/1 contract."""
 

@@ -244,17 +244,26 @@ class Planner:
             self._listener(iteration, x, f, g)
 
     # -- solving -----------------------------------------------------------------
-    def seed(self, task, *, progress=None, log_path=None) -> Seed:
-        """The feasibility solve of ``task`` from its initial guess: the start of every objective."""
+    def seed(self, task, *, progress=None, log_path=None, start: dict | None = None) -> Seed:
+        """The feasibility solve of ``task`` from its initial guess: the start of every objective.
+
+        ``start`` (physical arrays by block name, e.g. a solved neighbouring
+        task's) replaces the initial guess; limit rooms are recomputed.
+        """
         task = self.prepared(task)
         with self._lock:
             outcome = SolveOutcome(task, "feasible", None)
-            arrays, result = self._run_stage(task, "feasible", initial_guess(task), outcome, progress, log_path)
+            first = initial_guess(task) if start is None else _without_rooms(start)
+            arrays, result = self._run_stage(task, "feasible", first, outcome, progress, log_path)
             return Seed(task, arrays if result.success else {}, outcome)
 
     def solve_from_seed(self, seed: Seed, objective: str | None = None, *, progress=None,
-                        log_path=None) -> SolveOutcome:
-        """Solve ``objective`` starting from ``seed``; the outcome's stages begin with the seed's."""
+                        log_path=None, start: dict | None = None) -> SolveOutcome:
+        """Solve ``objective`` starting from ``seed``; the outcome's stages begin with the seed's.
+
+        ``start`` (physical arrays, e.g. a neighbouring task's solution of the
+        same objective) replaces the seed's point as the objective's start.
+        """
         task = seed.task
         objective = self.objective_for(task, objective)
         with self._lock:
@@ -265,7 +274,9 @@ class Planner:
                 return outcome
             arrays = seed.arrays
             if objective != "feasible":
-                if objective_named(objective).robust:
+                if start is not None:
+                    arrays = _without_rooms(start)
+                elif objective_named(objective).robust:
                     arrays = dict(arrays, **_initial_gains(task, arrays))
                 arrays, result = self._run_stage(task, objective, arrays, outcome, progress, log_path)
                 if not result.success:
@@ -312,6 +323,11 @@ class Planner:
         outcome.transcription = transcription
         outcome.multipliers = result.lam_g
         return outcome.last, result
+
+
+def _without_rooms(arrays: dict) -> dict:
+    """``arrays`` less the limit rooms, which depend on the task's numbers and are recomputed."""
+    return {name: value for name, value in arrays.items() if name != "rooms"}
 
 
 _SHARED: dict[tuple, Planner] = {}
@@ -462,6 +478,7 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
         "gravity": [float(g) for g in robot.gravity],
         "integrator": INTEGRATOR,
         "contact_frames": [c.frame for c in task.contacts],
+        "hand_frame": robot.hand_frame,
         "contact_normals": [np.asarray(c.normal, float).tolist() for c in task.contacts],
         "friction": [float(c.friction) for c in task.contacts],
         "friction_pyramid": {"facets": int(task.facets), "inscribed": True,

@@ -20,6 +20,8 @@ COMMANDS = {
     "check-model": "optimizer.cli.check_model",
     "solve": "optimizer.cli.solve",
     "certify": "optimizer.cli.certify",
+    "simulate": "optimizer.cli.simulate",
+    "sweep": "optimizer.cli.sweep",
     "export": "optimizer.cli.export",
 }
 
@@ -27,6 +29,8 @@ COMMAND_HELP = {
     "check-model": "inspect a robot file: mass, frames, limits, standing statics",
     "solve": "plan a whole-body motion for a task file and write a plan file",
     "certify": "compute the exact smallest unrejectable force of a plan, knot by knot",
+    "simulate": "replay a plan in MuJoCo with a tracking controller and push it at the hand",
+    "sweep": "solve a task over a grid or sample of variants; resumable, on a local pool or a Dask cluster",
     "export": "resample a plan at a fixed rate for a tracking controller (CSV or NPZ)",
 }
 

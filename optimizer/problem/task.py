@@ -185,7 +185,12 @@ class Task:
 def load_task(path) -> Task:
     """Read and validate the task file at ``path``."""
     path = Path(path)
-    data = read_yaml_mapping(path, TaskError)
+    return task_from_mapping(read_yaml_mapping(path, TaskError), path)
+
+
+def task_from_mapping(data: dict, path) -> Task:
+    """Validate a task mapping as if read from ``path`` (relative paths resolve against its folder)."""
+    path = Path(path)
     top = Fields(data, path, "", TaskError)
     top.allow_only(TOP_LEVEL)
     if top.has("description"):

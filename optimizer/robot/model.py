@@ -112,8 +112,11 @@ class RobotModel:
         return self.joint_names.index(name)
 
 
-def load_robot(path) -> RobotModel:
+def load_robot(path, urdf_text: str | None = None) -> RobotModel:
     """Load a robot file (YAML) and its URDF; see the module docstring.
+
+    ``urdf_text`` replaces the URDF file's text (a derived model, e.g. with a
+    payload added); the file's path still names it in messages.
 
     Raises
     ------
@@ -126,7 +129,7 @@ def load_robot(path) -> RobotModel:
     fields = Fields(read_yaml_mapping(yaml_path, ModelError), yaml_path, "", ModelError)
     fields.allow_only(ROBOT_FIELDS)
     urdf_path = yaml_path.parent / fields.string("urdf")
-    urdf_text = read_text(urdf_path, ModelError)
+    urdf_text = read_text(urdf_path, ModelError) if urdf_text is None else urdf_text
     urdf_joints = read_urdf_joints(urdf_text, urdf_path)
     model = build_pinocchio_model(urdf_text, urdf_path)
     check_moving_inertias(model, urdf_joints, urdf_path)

@@ -1,0 +1,154 @@
+"""brace simulate: the MuJoCo scene and replays, checked against outside references.
+
+References: Pinocchio (frame placements and forward dynamics ``aba`` of the
+plan's URDF), MuJoCo's own ray casting (every foothold lies on a terrain
+surface, the plan's normal facing out), Newton's statics (the normal forces
+of a robot standing still add up to its weight), and the plans themselves
+(nominal replay acceptance: feet within 5 mm, hand targets within 2 cm; a
+push of half the certified margin survived in informed mode).
+
+Robust demo plans are solved once per module at 20 knots: coarser plans
+(8 or 12 knots, a step of 0.2-0.36 s) do not describe a motion a controller
+can track closely (see benchmarks/RESULTS.md, "Simulation").
+"""
+from __future__ import annotations
+
+import json
+
+import mujoco
+import numpy as np
+import pinocchio as pin
+import pytest
+
+from certify_checks import demo_standing, standing_plan
+from optimizer.cli import main
+from optimizer.planfile import build_model, save_plan
+from optimizer.planner import solve
+from optimizer.problem.task import load_task
+from optimizer.simulation.inputs import simulation_inputs
+from optimizer.simulation.pushes import Simulator
+from optimizer.simulation.scene import build_scene
+from optimizer.simulation.surfaces import scene_surfaces
+
+TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
+SIM_KNOTS = 20
+
+
+@pytest.fixture(scope="module")
+def robust_plans():
+    """Robust plan of every demo task at SIM_KNOTS knots, solved once for this module."""
+    plans = {}
+    for name in TASKS:
+        outcome = solve(load_task(f"tasks/{name}.yaml"), "robust", knots=SIM_KNOTS)
+        assert outcome.success, [(s.objective, s.status) for s in outcome.stages]
+        plans[name] = outcome.plan
+    return plans
+
+
+def simulator(plan) -> Simulator:
+    inputs = simulation_inputs(plan, build_model("plan", plan.meta["urdf"]))
+    return Simulator(plan, inputs.surfaces, inputs.targets, inputs.hand_frame)
+
+
+def standing(knots: int = 6):
+    return standing_plan(**demo_standing(knots=knots), mu=0.8)
+
+
+def test_scene_matches_pinocchio_kinematics_and_forward_dynamics():
+    plan = standing(1)
+    scene = build_scene(plan, scene_surfaces(plan)[0], frames=["grip_point"])
+    model, data = scene.pin_model, scene.pin_model.createData()
+    rng = np.random.default_rng(3)
+    for _ in range(5):
+        q = pin.randomConfiguration(model)
+        q[:3] = [0.2, -0.1, 5.0]  # far above the ground: no contact
+        v, tau = rng.normal(size=model.nv), rng.normal(scale=5.0, size=model.nv - 6)
+        scene.set_state(q, v)
+        # Reference: Pinocchio's frame placements.
+        pin.framesForwardKinematics(model, data, q)
+        for name, site in scene.sites.items():
+            assert np.allclose(scene.data.site_xpos[site], data.oMf[model.getFrameId(name)].translation, atol=1e-12)
+        # Reference: Pinocchio's articulated-body algorithm with the same torques.
+        scene.data.qfrc_applied[:] = 0.0
+        scene.data.qfrc_applied[scene.joint_dof] = tau
+        mujoco.mj_forward(scene.model, scene.data)
+        assert scene.data.ncon == 0
+        a = pin.aba(model, data, q, v, np.concatenate([np.zeros(6), tau]))
+        rot = data.oMi[1].rotation
+        # MuJoCo's base linear acceleration is the world-frame derivative of the world velocity.
+        assert np.allclose(scene.data.qacc[:3], rot @ (a[:3] + np.cross(v[3:6], v[:3])), atol=1e-8)
+        assert np.allclose(scene.data.qacc[3:6], a[3:6], atol=1e-8)
+        assert np.allclose(scene.data.qacc[scene.joint_dof], a[6:], atol=1e-7 * max(1.0, np.abs(a).max()))
+        back_q, back_v = scene.pinocchio_state()
+        assert np.allclose(back_q, q) and np.allclose(back_v, v)
+
+
+def test_standing_robot_rests_on_its_footholds_with_its_weight():
+    plan = standing(6)  # 0.5 s of standing still
+    sim = simulator(plan)
+    report = sim.nominal()
+    # Newton: at rest the surface carries the whole weight.
+    weight = pin.computeTotalMass(sim.scene.pin_model) * 9.81
+    sim._restart()
+    rec = sim.rollout("blind").run(0.5)
+    assert abs(rec.normal_force[-50:].sum(axis=1).mean() - weight) < 0.01 * weight
+    assert max(f["distance_m"] for f in report["feet"]) < 5e-4
+    assert report["base_error_m"] < 1e-3 and report["ok"]
+
+
+@pytest.mark.parametrize("task_name", TASKS)
+def test_every_foothold_lies_on_a_terrain_surface_facing_its_normal(robust_plans, task_name):
+    plan = robust_plans[task_name]
+    scene = build_scene(plan, scene_surfaces(plan)[0])
+    terrain = {i for i in range(scene.model.ngeom) if scene.model.geom(i).name.startswith("terrain:")}
+    geomid = np.zeros(1, np.int32)
+    for foothold, normal in zip(plan.contact_targets[0], plan.meta["contact_normals"]):
+        # Reference: MuJoCo's ray casting against the terrain geoms alone (group 0; feet are group 1).
+        start = foothold + 0.05 * np.asarray(normal)
+        distance = mujoco.mj_ray(scene.model, scene.data, start, -np.asarray(normal),
+                                 np.array([1, 0, 0, 0, 0, 0], np.uint8), 1, -1, geomid)
+        assert geomid[0] in terrain
+        assert distance == pytest.approx(0.05, abs=1e-9)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("task_name", TASKS)
+def test_nominal_replay_keeps_feet_and_reaches_hand_targets(robust_plans, task_name):
+    report = simulator(robust_plans[task_name]).nominal()
+    for foot in report["feet"]:
+        assert foot["distance_m"] <= 0.005, foot
+        assert foot["contact_losses"] == 0, foot
+    assert report["targets"], "the demo tasks have hand targets"
+    for target in report["targets"]:
+        assert target["error_m"] <= 0.02, target
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("task_name", TASKS)
+def test_half_the_certified_margin_is_survived_at_the_weakest_knot(robust_plans, task_name):
+    plan = robust_plans[task_name]
+    sim = simulator(plan)
+    k = int(np.argmin(plan.margin))
+    assert plan.margin[k] > 0.0
+    push = sim.push_at(k, 0.5 * plan.margin[k])
+    assert sim.survives(push, "informed") == ""
+    # The rules can fail: eight times the exact figure is more than any response can reject.
+    cert, _ = sim.certified_direction(k)
+    assert sim.survives(sim.push_at(k, 8.0 * max(cert.rho, 1.0)), "informed") != ""
+
+
+def test_cli_writes_the_nominal_report_and_refuses_bad_options(tmp_path, capsys):
+    plan = standing(6)
+    path = tmp_path / "standing.npz"
+    save_plan(plan, path)
+    out = tmp_path / "sim.json"
+    assert main(["simulate", str(path), "--knots", "none", "--json", str(out)]) == 0
+    text = capsys.readouterr().out
+    assert "nominal replay within limits" in text and "Safety" in text
+    document = json.loads(out.read_text())
+    assert document["format"] == "brace-simulation/1" and document["nominal"]["ok"]
+    assert main(["simulate", str(path), "--slip", "-1"]) == 2
+    err = capsys.readouterr().err
+    assert len(err.strip().splitlines()) == 1 and "--slip" in err
+    assert main(["simulate", str(tmp_path / "nope.npz")]) == 2
+    assert "nope.npz" in capsys.readouterr().err
