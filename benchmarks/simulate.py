@@ -117,7 +117,8 @@ def section(args, nominal, pushes, elapsed, load_before, load_after) -> str:
         "certified margin and at the middle knot. \"linear response limit\" is the push size at which the "
         "plan's own linear response (the one informed mode applies) meets its first limit along that "
         "direction; \">=\" marks pushes survived up to the largest size tried (8 times the margin, or 8 % of "
-        "the weight when the margin is smaller than 1 % of it).", "", *pushes, ""])
+        "the weight when the margin is smaller than 1 % of it); \"(-)\": no ratio to a margin below 0.1 % of "
+        "the weight.", "", *pushes, ""])
 
 
 def write_section(path: Path, text: str) -> None:

@@ -1,106 +1,194 @@
-"""Full-size solves of every demo task, and the ablation of the eliminated torque gains.
+"""Time and memory of planning, per demo task and knot count, each plan in a fresh process.
 
-    python benchmarks/solve.py [--knots 60] [--tasks stair_landing,steep_ramp,...]
-                               [--ablation-task steep_ramp] [--write benchmarks/RESULTS.md]
+    python benchmarks/solve.py [--tasks steep_ramp,crawl_space] [--knots 30,60,120]
+                               [--objective robust] [--evaluation expanded,mapped]
+                               [--again] [--compare 60] [--torque-gains variables]
+                               [--write benchmarks/RESULTS.md]
 
-For each demo task it plans with ``feasible``, ``robust``, ``robust-min`` and ``torque`` (each
-run repeats the feasibility seed, as ``brace solve`` does) and reports wall
-time and iterations per stage, the solver build time (paid once per NLP
-shape, shared by every task of that shape) and the ratio of the robust plan's
-solve time (seed included) to the feasibility solve's. The ablation solves one
-task with the joint-torque gains kept as decision variables and the full
-nv x 3 balance, against the transcription with the gains eliminated, in the
-same run. Prints Markdown; ``--write`` replaces the "## Solve" section of the
-results file.
+Every measurement runs in a child process of its own (``python benchmarks/solve.py --child ...``),
+so it pays what a user's first plan pays: imports, solver builds, the seed, both solver stages
+and the certified margins. With ``--again`` the child then plans the same task a second time in
+the same process, with its built solvers kept: the figure a plan costs once its shape is built. Per stage it
+reports iterations, solve time and the share of that time spent evaluating the NLP's functions
+and derivatives (the rest is Ipopt's own work: factorizations, line search); per run the peak
+resident memory; per task the growth exponent of the whole-plan time against knots (least
+squares on log time against log knots).
+
+``--evaluation`` names how the NLP is evaluated: ``expanded`` (one scalar graph, CasADi
+``expand=True``: faster iterations, slow build) or ``mapped`` (the knot functions mapped over
+the knots, ``expand=False``: fast build, slower iterations). ``--compare K`` also solves
+``robust``, ``robust-min`` and ``robust-sum`` from one seed per task at K knots and reports
+their certified margins. Prints Markdown; ``--write`` replaces the "## Solve" section of the
+results file. Record the machine's load with the figures: timings on a busy machine are slow.
 """
 from __future__ import annotations
 
 import argparse
 import datetime
+import json
 import os
 import platform
 import re
+import resource
+import subprocess
 import sys
 import time
 from pathlib import Path
 
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 ROOT = Path(__file__).resolve().parent.parent
-
-from optimizer.planner import solve  # noqa: E402
-from optimizer.problem.task import load_task  # noqa: E402
-
 TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
+EVALUATION = {"expanded": True, "mapped": False}
 
 
-def run(task, objective, knots, **options):
+# -- child process: one measurement ---------------------------------------------------------
+def child(task_name: str, knots: int, objective: str, evaluation: str, torque_gains: str, again: bool) -> dict:
+    """Plan once from a fresh process and, with ``again``, once more with the built solvers kept."""
     started = time.perf_counter()
-    outcome = solve(task, objective, knots=knots, **options)
-    wall = time.perf_counter() - started
-    stages = {s.objective: s for s in outcome.stages}
+    from optimizer.planner import Planner
+    from optimizer.problem.task import load_task
+    imported = time.perf_counter() - started
+    task = load_task(ROOT / "tasks" / f"{task_name}.yaml")
+    runs = []
+    with Planner(knots=knots, expand=EVALUATION[evaluation], torque_gains=torque_gains) as planner:
+        for _ in range(2 if again else 1):
+            began = time.perf_counter()
+            outcome = planner.solve(task, objective)
+            runs.append(_run_figures(outcome, time.perf_counter() - began))
+    peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux: kB
+    return {"task": task_name, "knots": knots, "objective": objective, "evaluation": evaluation,
+            "import": imported, "fresh": runs[0], "built": runs[1] if again else None, "peak_mb": peak_mb}
+
+
+def _run_figures(outcome, wall: float) -> dict:
+    stages = [{"objective": s.objective, "status": s.status, "iterations": s.iterations,
+               "solve": s.solve_time, "eval": s.eval_time, "build": s.build_time} for s in outcome.stages]
     margin = outcome.plan.margin if outcome.plan is not None else None
-    return outcome, stages, wall, margin
+    return {"wall": wall, "stages": stages,
+            "margin_min": None if margin is None else float(margin.min()),
+            "margin_mean": None if margin is None else float(margin.mean())}
 
 
-def stage_text(stage) -> str:
-    return f"{stage.solve_time:.1f} s / {stage.iterations} it ({stage.status})"
+def compare_child(task_name: str, knots: int) -> dict:
+    """Certified margins of the robust objectives from one seed, mapped evaluation."""
+    from optimizer.planner import Planner
+    from optimizer.problem.task import load_task
+    task = load_task(ROOT / "tasks" / f"{task_name}.yaml")
+    out = {}
+    with Planner(knots=knots, expand=False) as planner:
+        outcomes = planner.solve_objectives(task, ["robust", "robust-min", "robust-sum"])
+    for name, outcome in outcomes.items():
+        stage = outcome.stages[-1]
+        margin = outcome.plan.margin if outcome.plan is not None else None
+        out[name] = {"iterations": stage.iterations, "status": stage.status,
+                     "min": None if margin is None else float(margin.min()),
+                     "mean": None if margin is None else float(margin.mean())}
+    return {"task": task_name, "knots": knots, "objectives": out}
 
 
-def task_rows(names, knots):
-    rows = ["| task | objective | seed (feasible) | objective stage | solve total [s] | build [s] | "
-            "robust / feasible | margin min / mean [N] |",
-            "| --- | --- | --- | --- | ---: | ---: | ---: | --- |"]
-    for name in names:
-        task = load_task(ROOT / "tasks" / f"{name}.yaml")
-        feasible_time = None
-        for objective in ("feasible", "robust", "robust-min", "torque"):
-            outcome, stages, wall, margin = run(task, objective, knots)
-            solve_time = sum(s.solve_time for s in stages.values())
-            build = sum(s.build_time for s in stages.values())
-            seed = stages["feasible"]
-            if objective == "feasible":
-                feasible_time = seed.solve_time
-            main = stages.get(objective) if objective != "feasible" else None
-            ratio = f"{solve_time / feasible_time:.2f}" if objective == "robust" and feasible_time else ""
-            figures = "failed" if margin is None else f"{margin.min():.3g} / {margin.mean():.3g}"
-            rows.append(f"| {name} | {objective} | {stage_text(seed)} | {stage_text(main) if main else '-'} | "
-                        f"{solve_time:.1f} | {build:.1f} | {ratio} | {figures} |")
-            print(rows[-1], flush=True)
+def in_child(*args: str) -> dict:
+    """Run this script with ``args`` in a fresh interpreter; its last output line is JSON."""
+    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    done = subprocess.run([sys.executable, str(Path(__file__).resolve()), *args], capture_output=True,
+                          text=True, env=env, cwd=ROOT)
+    lines = [line for line in done.stdout.splitlines() if line.startswith("{")]
+    if done.returncode != 0 or not lines:
+        raise RuntimeError(f"child {' '.join(args)} failed:\n{done.stderr[-2000:]}")
+    return json.loads(lines[-1])
+
+
+# -- tables ---------------------------------------------------------------------------------
+def stage_text(stage: dict) -> str:
+    share = stage["eval"] / stage["solve"] if stage["solve"] > 0 else 0.0
+    return f"{stage['iterations']} it, {stage['solve']:.1f} s ({share:.0%} eval)"
+
+
+def run_rows(result: dict) -> list[str]:
+    rows = []
+    for label in ("fresh", "built"):
+        run = result[label]
+        if run is None:
+            continue
+        stages = run["stages"]
+        build = sum(s["build"] for s in stages)
+        seed, main = stages[0], stages[-1] if len(stages) > 1 else None
+        figures = "failed" if run["margin_min"] is None else f"{run['margin_min']:.3g} / {run['margin_mean']:.3g}"
+        ratio = f"{main['solve'] / seed['solve']:.2f}" if main and seed["solve"] > 0 else "-"
+        whole = run["wall"] + (result["import"] if label == "fresh" else 0.0)
+        rows.append(f"| {result['task']} | {result['knots']} | {result['evaluation']} | "
+                    f"{'fresh process' if label == 'fresh' else 'built kept'} | {whole:.1f} | {build:.1f} | "
+                    f"{stage_text(seed)} | {stage_text(main) if main else '-'} | {ratio} | "
+                    f"{result['peak_mb'] / 1024:.2f} | {figures} |")
     return rows
 
 
-def ablation_rows(name, knots):
-    task = load_task(ROOT / "tasks" / f"{name}.yaml")
-    rows = ["| torque gains | robust stage | build [s] | status | margin min / mean [N] |",
-            "| --- | --- | ---: | --- | --- |"]
-    for form, label in (("eliminated", "eliminated (closed form, 6 x 3 base rows)"),
-                        ("variables", "decision variables (full nv x 3 balance)")):
-        outcome, stages, wall, margin = run(task, "robust", knots, torque_gains=form)
-        stage = stages["robust"]
-        figures = "failed" if margin is None else f"{margin.min():.3g} / {margin.mean():.3g}"
-        rows.append(f"| {label} | {stage.solve_time:.1f} s / {stage.iterations} it | "
-                    f"{stage.build_time:.1f} | {stage.status} | {figures} |")
-        print(rows[-1], flush=True)
-    return rows
+def growth_exponent(results: list[dict], task: str, evaluation: str, label: str) -> float | None:
+    import numpy as np
+    points = [(r["knots"], r[label]["wall"]) for r in results
+              if r["task"] == task and r["evaluation"] == evaluation and r[label] and r[label]["wall"] > 0]
+    if len(points) < 2:
+        return None
+    k, t = np.log([p[0] for p in points]), np.log([p[1] for p in points])
+    return float(np.polyfit(k, t, 1)[0])
 
 
-def section(args, task_table, ablation_table, elapsed) -> str:
+def load_text() -> str:
+    try:
+        return os.popen("uptime").read().strip()
+    except OSError:
+        return "unknown"
+
+
+def section(args, results, growth, comparison, elapsed, loads) -> str:
     cpu = platform.processor() or platform.machine()
-    return "\n".join([
+    lines = [
         "## Solve", "",
-        f"Script: `python benchmarks/solve.py --knots {args.knots}` "
+        f"Script: `python benchmarks/solve.py --tasks {args.tasks} --knots {args.knots} --objective "
+        f"{args.objective} --evaluation {args.evaluation}"
+        + (" --torque-gains variables" if args.torque_gains == "variables" else "")
+        + (" --again" if args.again else "")
+        + (f" --compare {args.compare}" if args.compare else "")
+        + (f" --compare-tasks {args.compare_tasks}" if args.compare and args.compare_tasks else "") + "` "
         f"({datetime.date.today().isoformat()}, {os.cpu_count()} cores, {cpu}, Python "
-        f"{platform.python_version()}, `OPENBLAS_NUM_THREADS=1`, Ipopt + MUMPS through CasADi, "
-        f"`expand=True`); whole run {elapsed / 60:.1f} min.", "",
-        f"Every demo task at {args.knots} knots. Each row is one `solve()` call: the feasibility "
-        "seed, then the objective. \"solve total\" is the solver time of both stages; \"build\" "
-        "is the time to create the solver, paid once per NLP shape and objective (the first "
-        "task of a shape pays it, the others reuse the solver). \"robust / feasible\" divides "
-        "the robust plan's solve total by the feasibility plan's.", "",
-        *task_table, "",
-        f"Ablation on `{args.ablation_task}` at {args.knots} knots, same run: joint-torque gains "
-        "eliminated (ours) against kept as decision variables with the full balance.", "",
-        *ablation_table, ""])
+        f"{platform.python_version()}, `OPENBLAS_NUM_THREADS=1`, Ipopt + MUMPS through CasADi); "
+        f"whole run {elapsed / 60:.1f} min.", "",
+        "Machine load (`uptime`) at the start and the end of the run: " + " / ".join(f"`{x}`" for x in loads)
+        + ". The machine was shared with other jobs while this ran, so absolute times are slow and "
+        "noisy; ratios within one row (robust / feasible, evaluation share) are the steadier figures.", "",
+        "Each row pair is one fresh process: \"fresh process\" is its first plan (imports, solver "
+        "builds, seed, both stages, certified margins); \"built kept\" plans the same task again in "
+        "that process with the built solvers kept. \"whole\" is the wall time of the plan "
+        "(imports included for the first); \"build\" is solver creation; each stage gives "
+        "iterations, solve time and the share of it spent evaluating the NLP (\"eval\"); "
+        "\"robust / feasible\" divides the objective stage's solve time by the seed's; peak is the "
+        "process's peak resident memory.", "",
+        "| task | knots | evaluation | plan | whole [s] | build [s] | feasible stage | objective stage | "
+        "robust / feasible | peak [GB] | margin min / mean [N] |",
+        "| --- | ---: | --- | --- | ---: | ---: | --- | --- | ---: | ---: | --- |"]
+    for result in results:
+        lines += run_rows(result)
+    if growth:
+        lines += ["", "Growth exponent of the whole-plan time against knots (fit over the knot counts above):", "",
+                  "| task | evaluation | fresh process | built kept |", "| --- | --- | ---: | ---: |"]
+        lines += [f"| {task} | {ev} | {fmt(a)} | {fmt(b)} |" for task, ev, a, b in growth]
+    if comparison:
+        lines += ["", f"Robust objectives from one seed at {args.compare} knots (mapped evaluation), certified "
+                  "margins min / mean [N] and the objective stage's iterations:", "",
+                  "| task | robust | robust-min | robust-sum | robust min / robust-min min | "
+                  "robust mean / robust-sum mean |", "| --- | --- | --- | --- | ---: | ---: |"]
+        for row in comparison:
+            o = row["objectives"]
+            cells = [f"{v['min']:.3g} / {v['mean']:.3g} ({v['iterations']} it)" if v["min"] is not None
+                     else f"failed ({v['status']})" for v in (o["robust"], o["robust-min"], o["robust-sum"])]
+            ok = all(v["min"] is not None for v in o.values())
+            r1 = f"{o['robust']['min'] / o['robust-min']['min']:.2f}" if ok and o["robust-min"]["min"] > 0 else "-"
+            r2 = f"{o['robust']['mean'] / o['robust-sum']['mean']:.2f}" if ok and o["robust-sum"]["mean"] > 0 else "-"
+            lines.append(f"| {row['task']} | {' | '.join(cells)} | {r1} | {r2} |")
+    return "\n".join(lines) + "\n"
+
+
+def fmt(value) -> str:
+    return "-" if value is None else f"{value:.2f}"
 
 
 def write_section(path: Path, text: str) -> None:
@@ -112,15 +200,46 @@ def write_section(path: Path, text: str) -> None:
 
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--knots", type=int, default=60)
     parser.add_argument("--tasks", default=",".join(TASKS))
-    parser.add_argument("--ablation-task", default="steep_ramp")
+    parser.add_argument("--knots", default="30,60,120")
+    parser.add_argument("--objective", default="robust")
+    parser.add_argument("--evaluation", default="expanded,mapped")
+    parser.add_argument("--compare", type=int, default=0, metavar="K")
+    parser.add_argument("--compare-tasks", metavar="TASKS", help="tasks of --compare (default: --tasks)")
     parser.add_argument("--write", metavar="RESULTS.md")
+    parser.add_argument("--torque-gains", default="eliminated", choices=["eliminated", "variables"],
+                        help="joint-torque gains in closed form (default) or as decision variables (ablation)")
+    parser.add_argument("--again", action="store_true",
+                        help="plan each task a second time in the same process, built solvers kept")
+    parser.add_argument("--child", nargs=6, metavar=("TASK", "KNOTS", "OBJECTIVE", "EVALUATION", "GAINS", "AGAIN"),
+                        help=argparse.SUPPRESS)
+    parser.add_argument("--compare-child", nargs=2, metavar=("TASK", "KNOTS"), help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
-    started = time.perf_counter()
-    task_table = task_rows(args.tasks.split(","), args.knots)
-    ablation_table = ablation_rows(args.ablation_task, args.knots)
-    text = section(args, task_table, ablation_table, time.perf_counter() - started)
+    if args.child:
+        task, knots, objective, evaluation, gains, again = args.child
+        print(json.dumps(child(task, int(knots), objective, evaluation, gains, again == "again")), flush=True)
+        return 0
+    if args.compare_child:
+        print(json.dumps(compare_child(args.compare_child[0], int(args.compare_child[1]))), flush=True)
+        return 0
+    started, loads = time.perf_counter(), [load_text()]
+    results, comparison, growth = [], [], []
+    tasks, evaluations = args.tasks.split(","), args.evaluation.split(",")
+    for task in tasks:
+        for evaluation in evaluations:
+            for knots in (int(k) for k in args.knots.split(",")):
+                result = in_child("--child", task, str(knots), args.objective, evaluation, args.torque_gains,
+                                  "again" if args.again else "once")
+                results.append(result)
+                print("\n".join(run_rows(result)), flush=True)
+            growth.append((task, evaluation, growth_exponent(results, task, evaluation, "fresh"),
+                           growth_exponent(results, task, evaluation, "built")))
+    if args.compare:
+        for task in (args.compare_tasks or args.tasks).split(","):
+            comparison.append(in_child("--compare-child", task, str(args.compare)))
+            print(json.dumps(comparison[-1]), flush=True)
+    loads.append(load_text())
+    text = section(args, results, growth, comparison, time.perf_counter() - started, loads)
     print(text)
     if args.write:
         write_section(Path(args.write), text)

@@ -48,7 +48,11 @@ from .transcription.structure import structure_of
 
 @dataclass
 class StageReport:
-    """One solver run: objective, neutral status, iterations, times [s], violation."""
+    """One solver run: objective, neutral status, iterations, times [s], violation.
+
+    ``eval_time`` is the part of ``solve_time`` spent evaluating the NLP's
+    functions and derivatives.
+    """
 
     objective: str
     status: str
@@ -58,6 +62,7 @@ class StageReport:
     build_time: float
     max_violation: float
     message: str
+    eval_time: float = 0.0
 
     def as_dict(self) -> dict:
         return dict(self.__dict__)
@@ -133,7 +138,7 @@ class Planner:
     ----------
     objective : str, optional
         Default objective (``feasible``, ``robust``, ``robust-min``,
-        ``torque``); None uses each task's own.
+        ``robust-sum``, ``torque``); None uses each task's own.
     knots : int, optional
         Knot count overriding the tasks' own.
     backend : str
@@ -316,7 +321,7 @@ class Planner:
             _append_log(built.log, log_path, objective)
         outcome.stages.append(StageReport(objective, result.status, result.success, result.iterations,
                                           result.wall_time, built.unreported_build_time, result.max_violation,
-                                          result.message))
+                                          result.message, result.eval_time))
         built.unreported_build_time = 0.0  # reported once, with the first solve that paid for it
         outcome.last = layout.unpack(result.x)
         outcome.violations = transcription.constraints.violations(result.g, transcription.lbg, transcription.ubg)
@@ -352,7 +357,7 @@ def solve(task, objective: str | None = None, *, knots: int | None = None, progr
     task : Task
         A loaded task (:func:`optimizer.problem.task.load_task`).
     objective : str, optional
-        One of ``feasible``, ``robust``, ``robust-min``, ``torque``.
+        One of ``feasible``, ``robust``, ``robust-min``, ``robust-sum``, ``torque``.
     knots : int, optional
         Override the task's knot count.
     progress : callable(stage, iteration, objective, violation, min_margin), optional

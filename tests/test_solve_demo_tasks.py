@@ -153,6 +153,20 @@ def test_robust_objectives_beat_the_torque_baseline(task_name):
     assert robust_min.margin.min() > torque.margin.min()
 
 
+def test_default_robust_keeps_the_floor_of_robust_min_and_the_mean_of_the_plain_sum():
+    # On the steep ramp the plain sum of margins leaves the first knots with almost nothing
+    # (all of facet 0's friction goes to starting the arm). The default objective must hold
+    # 90 % of robust-min's smallest margin and 90 % of the plain sum's mean margin, on the
+    # plans' certified figures (each checked against sampled SciPy LPs and the exact
+    # polytope figure in the tests above).
+    _, robust = plan_of("steep_ramp", "robust")
+    _, robust_min = plan_of("steep_ramp", "robust-min")
+    _, robust_sum = plan_of("steep_ramp", "robust-sum")
+    assert robust.margin.min() >= 0.9 * robust_min.margin.min()
+    assert robust.margin.mean() >= 0.9 * robust_sum.margin.mean()
+    assert robust_sum.margin.min() < robust.margin.min()  # the case the default exists for
+
+
 def test_plan_file_round_trip_keeps_every_array_and_meta(tmp_path):
     task, plan = plan_of("steep_ramp", "robust")
     path = tmp_path / "plan.npz"

@@ -130,7 +130,7 @@ def test_orientation_as_rpy_is_a_rotation(tmp_path):
     ({"disturbances": [{"kind": "wrench", "shape": [[1, 0, 0], [0, 1, 0], [0, 0, 1]]}]},
      r"disturbances\[0\].shape.*a 6x6 matrix"),
     ({"disturbances": [{"kind": "torque"}]}, r"disturbances\[0\].kind.*one of force, wrench"),
-    ({"objective": "robustest"}, r"objective.*one of feasible, robust, robust-min, torque"),
+    ({"objective": "robustest"}, r"objective.*one of feasible, robust, robust-min, robust-sum, torque"),
     ({"pyramid_facets": 2}, r"pyramid_facets.*a whole number >= 3"),
     ({"min_normal_force": -1.0}, r"min_normal_force.*a number >= 0"),
     ({"hand_targets__0__orientation": [[1, 0, 0], [0, 1, 0], [0, 0, -1]]}, r"orientation.*a rotation matrix"),

@@ -21,7 +21,7 @@ from ..errors import InputError
 from ..files import atomic_output
 from ..planfile import load_plan
 
-from .notices import MODEL_ONLY, SAFETY
+from ..notices import MODEL_ONLY, SAFETY
 from .shortfalls import shortfall_lines, use_colour
 
 HELP = "compute the exact smallest unrejectable force of a plan, knot by knot"

@@ -17,7 +17,7 @@ from ..analysis.export import csv_columns, csv_rows, resample
 from ..errors import InputError
 from ..files import atomic_output
 from ..planfile import load_plan
-from .notices import SAFETY
+from ..notices import SAFETY
 
 HELP = "resample a plan at a fixed rate for a tracking controller (CSV or NPZ)"
 CLI = "command line"

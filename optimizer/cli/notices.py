@@ -1,8 +1,5 @@
-"""Cautions printed under every plan and certification report."""
+"""The cautions for command-line modules; the texts live in ``optimizer/notices.py``
+(below the report layer, which prints them on its pages too)."""
+from ..notices import MODEL_ONLY, SAFETY
 
-SAFETY = ("Safety: this plan is not validated on hardware. Check it in simulation first, run it at "
-          "reduced speed and torque limits in a cleared area with an emergency stop at hand, and "
-          "follow your local robot-safety rules and qualified staff.")
-
-MODEL_ONLY = ("These figures hold for the robot model, contacts and limits in the plan file; they are "
-              "not a rating of the real machine.")
+__all__ = ["MODEL_ONLY", "SAFETY"]

@@ -26,7 +26,7 @@ from ..analysis.margin_flags import DEFAULT_WARN_FRACTION, plan_shortfalls, unme
 from ..errors import InputError, OutputError
 from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
-from .notices import SAFETY
+from ..notices import SAFETY
 from .shortfalls import shortfall_lines, use_colour
 
 if TYPE_CHECKING:

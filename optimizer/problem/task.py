@@ -28,7 +28,7 @@ from .requirement import horizon_requirement, read_requirements
 from .stance import foot_residuals, solve_stance
 from .terrain import build_terrain
 
-OBJECTIVES = ("feasible", "robust", "robust-min", "torque")
+OBJECTIVES = ("feasible", "robust", "robust-min", "robust-sum", "torque")
 DISTURBANCE_DIMS = {"force": 3, "wrench": 6}
 UNIT_TOLERANCE = 1e-3      # |n| may differ from 1 by this much before it counts as a mistake
 MAX_KNOTS = 2000           # more knots than this is a typo, not a plan (the NLP grows linearly)

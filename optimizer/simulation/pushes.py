@@ -111,9 +111,9 @@ class PushResult:
     failure : str
         What ended the smallest failed run.
     trials : int
-    scale : float
-        Push size the bisection started from [N]: the margin, or 1 % of the
-        weight when the margin is smaller.
+    weight : float
+        The robot's weight [N]; the ratio to a margin below 0.1 % of it is
+        left out (not a meaningful figure).
     """
 
     knot: int
@@ -127,12 +127,12 @@ class PushResult:
     failed: float
     failure: str
     trials: int
-    scale: float = 0.0
+    weight: float = 0.0
 
     @property
     def ratio(self) -> float:
-        """Survived push over the certified margin (NaN for a margin below the bisection's scale)."""
-        return self.survived / self.margin if self.margin > 0 and self.margin >= self.scale else math.nan
+        """Survived push over the certified margin (NaN for a margin below 0.1 % of the weight)."""
+        return self.survived / self.margin if self.margin > 1e-3 * self.weight and self.margin > 0 else math.nan
 
     def to_json(self) -> dict:
         return {"knot": self.knot, "time_s": self.time, "mode": self.mode,
@@ -240,7 +240,8 @@ class Simulator:
             return not last
 
         def result(lo, hi, failure):
-            return PushResult(k, start, mode, cert.direction, margin, cert.rho, limit, lo, hi, failure, trials, scale)
+            return PushResult(k, start, mode, cert.direction, margin, cert.rho, limit, lo, hi, failure, trials,
+                              self.weight)
 
         if not survived(0.0):
             return result(0.0, 0.0, "fails without a push: " + last)

@@ -34,7 +34,9 @@ class SolverResult:
     status text, ``g`` the constraint values at ``x``; ``lam_g`` and
     ``lam_x`` the multipliers of the constraints and of the variable bounds
     at ``x`` (the Lagrangian ``f + lam_g . g + lam_x . x``; None when the
-    backend has none).
+    backend has none); ``eval_time`` the part of ``wall_time`` spent
+    evaluating the NLP's functions and derivatives (the rest is the solver's
+    own work: factorizations, line search).
     """
 
     x: np.ndarray
@@ -48,6 +50,7 @@ class SolverResult:
     g: np.ndarray = field(repr=False, default=None)
     lam_g: np.ndarray = field(repr=False, default=None)
     lam_x: np.ndarray = field(repr=False, default=None)
+    eval_time: float = 0.0
 
 
 class BuiltSolver(Protocol):

@@ -1,0 +1,154 @@
+"""The comparison table: one row per plan, as text, CSV and HTML cells.
+
+A row holds what a planner reads first: status, smallest and mean margin
+(planned by the plan's linear gains, and exact from certification), when the
+smallest exact margin happens, the peak torque and friction use and where,
+solver iterations and time. A plan that could not be made is a row with its
+reason and no figures.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..analysis.limit_use import LimitUse, limit_use
+
+
+@dataclass
+class Entry:
+    """One plan of a comparison, or the reason it is missing.
+
+    Attributes
+    ----------
+    name : str
+        Label in reports (the objective for ``brace compare``).
+    plan : Plan or None
+    certificate : PlanCertificate or None
+        Exact certification of every knot.
+    failure : str
+        Why there is no plan (empty when there is one).
+    source : str
+        Plan file name, relative to the report (empty when none).
+    """
+
+    name: str
+    plan: object = None
+    certificate: object = None
+    failure: str = ""
+    source: str = ""
+    _use: LimitUse | None = field(default=None, repr=False)
+
+    @property
+    def ok(self) -> bool:
+        return self.plan is not None and self.certificate is not None
+
+    @property
+    def use(self) -> LimitUse:
+        if self._use is None:
+            self._use = limit_use(self.plan)
+        return self._use
+
+    @property
+    def exact(self) -> np.ndarray:
+        """Exact smallest unrejectable force per knot [N], shape (K,)."""
+        return np.array([c.rho for c in self.certificate.knots])
+
+    @property
+    def smallest(self):
+        """The certificate of the knot with the smallest exact margin."""
+        return self.certificate.smallest()
+
+
+COLUMNS = (
+    ("objective", "objective", ""),
+    ("status", "status", ""),
+    ("margin_planned_min_N", "planned min [N]", ".2f"),
+    ("margin_planned_mean_N", "planned mean [N]", ".2f"),
+    ("margin_exact_min_N", "exact min [N]", ".2f"),
+    ("margin_exact_mean_N", "exact mean [N]", ".2f"),
+    ("smallest_at_s", "smallest at [s]", ".2f"),
+    ("peak_torque_use_pct", "peak torque [%]", ".0f"),
+    ("peak_torque_joint", "torque joint", ""),
+    ("peak_friction_use_pct", "peak friction [%]", ".0f"),
+    ("peak_friction_contact", "friction contact", ""),
+    ("iterations", "iterations", "d"),
+    ("solve_time_s", "solve time [s]", ".1f"),
+)
+"""(CSV key, column title with unit, number format) of every column, in order."""
+
+
+def row(entry: Entry) -> dict:
+    """The table row of ``entry``, keyed by the CSV keys of :data:`COLUMNS` (None: no value)."""
+    out = {key: None for key, _, _ in COLUMNS}
+    out["objective"] = entry.name
+    if not entry.ok:
+        out["status"] = f"failed: {entry.failure}"
+        return out
+    plan, use = entry.plan, entry.use
+    exact = entry.exact
+    low = entry.smallest
+    torque, _, joint = use.peak_torque()
+    friction, _, contact = use.peak_friction()
+    solver = plan.meta.get("solver") or {}
+    out.update(
+        status="certified" if not entry.certificate.problems() else "NOT certified",
+        margin_planned_min_N=float(np.min(plan.margin)), margin_planned_mean_N=float(np.mean(plan.margin)),
+        margin_exact_min_N=float(np.min(exact)), margin_exact_mean_N=float(np.mean(exact)),
+        smallest_at_s=float(low.time),
+        peak_torque_use_pct=100.0 * torque, peak_torque_joint=use.joint_names[joint],
+        peak_friction_use_pct=100.0 * friction if math.isfinite(friction) else None,
+        peak_friction_contact=use.contact_names[contact] if math.isfinite(friction) else None,
+        iterations=_int_or_none(solver.get("iterations")),
+        solve_time_s=_float_or_none(solver.get("wall_time")),
+    )
+    return out
+
+
+def _int_or_none(x):
+    return int(x) if isinstance(x, (int, float)) and not isinstance(x, bool) else None
+
+
+def _float_or_none(x):
+    return float(x) if isinstance(x, (int, float)) and not isinstance(x, bool) else None
+
+
+def cell(value, spec: str) -> str:
+    """One value formatted for people: '-' for missing, the column's format for numbers."""
+    if value is None:
+        return "-"
+    if spec and isinstance(value, (int, float)):
+        if isinstance(value, float) and not math.isfinite(value):
+            return "-inf" if value < 0 else ("inf" if value > 0 else "-")
+        return format(value, spec)
+    return str(value)
+
+
+def csv_text(rows: list[dict]) -> str:
+    """CSV of ``rows`` with the keys of :data:`COLUMNS` as header; numbers at full precision."""
+    stream = io.StringIO()
+    writer = csv.writer(stream, lineterminator="\n")
+    writer.writerow([key for key, _, _ in COLUMNS])
+    for r in rows:
+        writer.writerow(["" if r[key] is None else (repr(r[key]) if isinstance(r[key], float) else r[key])
+                         for key, _, _ in COLUMNS])
+    return stream.getvalue()
+
+
+def text_table(rows: list[dict]) -> list[str]:
+    """The table as aligned text lines for a terminal (failed rows carry their reason at the end)."""
+    shown = [c for c in COLUMNS if c[0] != "status"]
+    cells = [[title for _, title, _ in shown]]
+    for r in rows:
+        cells.append([cell(r[key], spec) for key, _, spec in shown])
+    widths = [max(len(line[i]) for line in cells) for i in range(len(shown))]
+    lines = []
+    for i, line in enumerate(cells):
+        text = "  ".join(c.ljust(w) if j == 0 or shown[j][2] == "" else c.rjust(w)
+                         for j, (c, w) in enumerate(zip(line, widths)))
+        status = "status" if i == 0 else rows[i - 1]["status"]
+        lines.append(f"{text}  {status}")
+    return lines
