@@ -16,7 +16,7 @@ from .. import __version__
 from ..notices import MODEL_ONLY, SAFETY
 from . import palette
 from .figures import CAPTIONS, FIGURES
-from .table import COLUMNS, cell, row
+from .table import COLUMNS, cell, entry_shortfalls, row
 
 TITLE = "brace comparison"
 
@@ -153,6 +153,10 @@ def reading(entries) -> list[str]:
         direction = ", ".join(f"{0.0 if abs(x) < 5e-3 else x:+.2f}" for x in s.direction[:3])
         out.append(f"What limits {_e(e.name)} at its weakest moment: a push along ({direction}) is stopped by "
                    f"<i>{_e(names or 'no named limit')}</i>.")
+    for e in ranked:
+        for s in entry_shortfalls(e):
+            what = "required margin not met" if s.required else "low margin"
+            out.append(f'<span class="not-certified">{what}</span> for {_e(e.name)}: {_e(s.text())}.')
     failed = [e for e in entries if not e.ok]
     for e in failed:
         out.append(f"{_e(e.name)} has no plan: {_e(e.failure)}.")
