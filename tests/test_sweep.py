@@ -14,6 +14,7 @@ import signal
 import subprocess
 import sys
 import time
+from html.parser import HTMLParser
 from pathlib import Path
 
 import numpy as np
@@ -132,9 +133,35 @@ def test_report_rebuilds_summary_and_figures_from_the_folder(pool_run, tmp_path)
     before = (copy / "summary.csv").read_text()
     shutil.rmtree(copy / "figures")
     (copy / "summary.csv").unlink()
+    (copy / "report.html").unlink()
     assert main(["sweep", "--report", str(copy)]) == 0
     assert (copy / "summary.csv").read_text() == before
     assert len(list((copy / "figures").glob("*.png"))) == 4
+    # The page, parsed with the standard library's HTML parser: every referenced file is in the folder,
+    # nothing is fetched from elsewhere, and every stored result has its row.
+    page = (copy / "report.html").read_text()
+    refs = PageRefs()
+    refs.feed(page)
+    assert refs.images and all((copy / src).is_file() for src in refs.images + refs.links)
+    assert not [r for r in refs.images + refs.links if "://" in r]
+    assert refs.rows == 1 + len(summary_rows(copy)) and "Safety" in page
+
+
+class PageRefs(HTMLParser):
+    """Image sources, link targets and table rows of a page."""
+
+    def __init__(self):
+        super().__init__()
+        self.images, self.links, self.rows = [], [], 0
+
+    def handle_starttag(self, tag, attrs):
+        attrs = dict(attrs)
+        if tag == "img":
+            self.images.append(attrs["src"])
+        elif tag == "a" and "href" in attrs:
+            self.links.append(attrs["href"])
+        elif tag == "tr":
+            self.rows += 1
 
 
 # ---------------------------------------------------------------- resume after a crash

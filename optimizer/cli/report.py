@@ -171,8 +171,16 @@ def print_summary(comparisons, out: Path) -> None:
     from ..report.build import PAGE
     from ..report.table import row, text_table
 
+    from ..report.table import entry_shortfalls
+    from .shortfalls import shortfall_lines, use_colour
+
     for c in comparisons:
         print(f"{c.title}:")
         print("\n".join("  " + line for line in text_table([row(e) for e in c.entries])))
+        for entry in c.entries:
+            flags = shortfall_lines(entry_shortfalls(entry), use_colour(sys.stdout))
+            if flags:
+                print(f"  {entry.name}:")
+                print("\n".join("  " + line for line in flags))
     print(f"report written: {out / PAGE}")
     print(SAFETY)

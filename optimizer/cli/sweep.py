@@ -86,10 +86,14 @@ def report(out: Path) -> int:
 
 
 def _figures(out: Path, rows: list) -> list:
+    """The figures and the page (``report.html``, last) of a results folder."""
     from ..sweep import store
     from ..sweep.figures import draw_figures
+    from ..sweep.page import write_sweep_page
 
-    return draw_figures(out, store.read_manifest(out), rows)
+    manifest = store.read_manifest(out)
+    figures = draw_figures(out, manifest, rows)
+    return figures + [write_sweep_page(out, manifest, rows, figures)]
 
 
 class ProgressLine:
