@@ -107,6 +107,17 @@ class InfeasibleTask(BraceError):
         super().__init__("\n".join(lines))
 
 
+class TooLargeForMemory(BraceError):
+    """A solve's estimated memory exceeds what the machine has or the limit the user set.
+
+    The message gives the estimate, the ceiling and the largest knot count
+    that fits; nothing has been built (exit code 2, like other input the
+    run cannot take).
+    """
+
+    exit_code = 2
+
+
 class SolveFailed(BraceError):
     """The NLP solver did not reach a feasible point."""
 

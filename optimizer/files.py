@@ -8,6 +8,7 @@ from pathlib import Path
 
 import yaml
 
+from . import supervisor
 from .errors import InputError, OutputError
 
 LARGEST_INPUT = 20_000_000  # bytes; robot, URDF and task files are far smaller
@@ -77,14 +78,18 @@ def atomic_output(path, suffix: str = ""):
     """Yield a temporary path beside ``path``; move it into place only on success.
 
     An exception (including KeyboardInterrupt) inside the block removes the
-    temporary file, so no half-written output is ever left at ``path``.
+    temporary file, so no half-written output is ever left at ``path``; the
+    temporary's name is declared to the supervisor first, which removes it
+    if it stops the process (``optimizer.supervisor``).
     """
     path = Path(path)
     if path.is_dir():
         raise OutputError(path, "", "a file path to write", "a directory")
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=suffix or path.suffix, dir=path.parent)
+        prefix = f".{path.name}.{os.getpid()}."
+        supervisor.will_create(path.parent, prefix)
+        fd, tmp = tempfile.mkstemp(prefix=prefix, suffix=suffix or path.suffix, dir=path.parent)
     except OSError as exc:
         raise OutputError(path, "", "a writable place for the output", exc.strerror or str(exc)) from None
     os.close(fd)

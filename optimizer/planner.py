@@ -21,7 +21,6 @@ from __future__ import annotations
 
 import hashlib
 import shutil
-import tempfile
 import threading
 import weakref
 from dataclasses import dataclass, field
@@ -29,7 +28,7 @@ from pathlib import Path
 
 import numpy as np
 
-from . import __version__
+from . import __version__, supervisor
 from .analysis.clearance import clearance_meta
 from .analysis.knot_response import knot_responses
 from .analysis.linear_margin import best_linear_margin, certify_gains
@@ -170,7 +169,7 @@ class Planner:
         self._built: dict[tuple, BuiltNLP] = {}
         self._lock = threading.RLock()
         self._listener = None
-        self._folder = Path(tempfile.mkdtemp(prefix="brace-planner-"))
+        self._folder = supervisor.scratch_dir("planner")
         self._cleanup = weakref.finalize(self, shutil.rmtree, str(self._folder), True)
 
     # -- lifetime --------------------------------------------------------------
@@ -239,6 +238,7 @@ class Planner:
         key = self.build_key(task, objective)
         with self._lock:
             if key not in self._built:
+                supervisor.phase(f"building the {objective} solver")
                 transcription = self.transcription(task, objective)
                 log = self._folder / f"solver-{len(self._built)}.log"
                 solver = self.backend.build(transcription.nlp, self.solver_options(task), expand=self.expand,
@@ -260,6 +260,7 @@ class Planner:
         task = self.prepared(task)
         with self._lock:
             outcome = SolveOutcome(task, "feasible", None)
+            supervisor.phase("computing the starting point")
             first = initial_guess(task) if start is None else _without_rooms(start)
             arrays, result = self._run_stage(task, "feasible", first, outcome, progress, log_path)
             return Seed(task, arrays if result.success else {}, outcome)
@@ -285,6 +286,7 @@ class Planner:
                 if start is not None:
                     arrays = _without_rooms(start)
                 elif objective_named(objective).robust:
+                    supervisor.phase("computing the starting gains")
                     arrays = dict(arrays, **_initial_gains(task, arrays))
                 arrays, result = self._run_stage(task, objective, arrays, outcome, progress, log_path)
                 if not result.success:
@@ -316,6 +318,7 @@ class Planner:
         lbx, ubx = transcription.bounds(task.initial_posture,
                                         required_margins(task.requirements, task.times, len(task.disturbances)))
         self._listener = None if progress is None else _listener(progress, objective, transcription)
+        supervisor.phase(f"solving the {objective} stage")
         try:
             result: SolverResult = built.solver.solve(np.clip(x0, lbx, ubx), p, lbx, ubx, transcription.lbg,
                                                       transcription.ubg)
@@ -453,6 +456,7 @@ def _finished_plan(task, objective, arrays, outcome, backend: str) -> Plan:
                        wall_time=sum(s.solve_time + s.build_time for s in outcome.stages),
                        max_violation=final.max_violation, name=backend)
     plan = _plan_arrays(task, objective, arrays, np.zeros(task.knots), solver_meta)
+    supervisor.phase("certifying the plan's margins")
     margins, gains = certified_margins(task, plan, arrays)
     plan.margin = margins[:, 0].copy()
     plan.margins = margins

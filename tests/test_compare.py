@@ -24,6 +24,7 @@ from html.parser import HTMLParser
 from pathlib import Path
 
 import numpy as np
+import pinocchio as pin
 import pytest
 from PIL import Image
 
@@ -340,3 +341,19 @@ def test_report_bad_input_is_a_one_line_error(tmp_path):
     code, _, stderr = run_cli(["report", str(not_a_plan), "--out", str(occupied)])
     assert code == 2 and "--out" in stderr and len(stderr.strip().splitlines()) == 1
     assert not (tmp_path / "r").exists()
+
+
+def test_low_margins_are_flagged_in_the_terminal_and_on_the_page(workspace):
+    # The torque baseline of the crawl space keeps practically no margin somewhere; the robust-min plan
+    # keeps its floor everywhere. The warning level is 5 % of m g, m from Pinocchio's total mass.
+    code, out, stdout, _ = compared("crawl_space", workspace)
+    torque, floor = load_plan(out / "torque.npz"), load_plan(out / "robust-min.npz")
+    model = pin.buildModelFromXML(torque.meta["urdf"], pin.JointModelFreeFlyer())
+    level = 0.05 * pin.computeTotalMass(model) * np.linalg.norm(torque.meta["gravity"])
+    exact = {name: [c.rho for c in certify_plan(load_plan(out / f"{name}.npz")).knots]
+             for name in ("torque", "robust-min")}
+    assert min(exact["torque"]) < level <= min(exact["robust-min"]), (exact, level)
+    assert "torque:\n  !! LOW MARGIN" in stdout and "robust-min:\n  !!" not in stdout
+    page = (out / PAGE).read_text(encoding="utf-8")
+    assert "low margin</span> for torque" in page and "for robust-min:" not in page
+    assert floor.margin.min() > 0

@@ -13,6 +13,7 @@ import yaml
 
 from certify_checks import LiftedLP, sampled_bounds
 from optimizer.analysis.certify import certify_plan
+from optimizer.analysis.plan_check import check_plan
 from optimizer.errors import TaskError
 from optimizer.planner import solve
 from optimizer.problem.push_shape import shape_from_directions, wrench_shape
@@ -104,3 +105,12 @@ def test_certification_of_a_directional_plan_rejects_every_push_in_the_scaled_ba
         for u in rng.normal(size=(25, 3)):
             u *= (1 - 1e-6) * c.rho * rng.uniform() ** (1 / 3) / np.linalg.norm(u)
             assert lp.contains(u), (c.knot, u)
+
+
+def test_drawer_plans_pass_the_physics_checks(drawer_plans):
+    # The checks certify runs first recompute the plan with Pinocchio (rnea with the contact
+    # forces, frame placements, integrate / difference) from the file alone: every plan brace
+    # solve writes for a demo task must pass them.
+    for name, plan in drawer_plans.items():
+        report = check_plan(plan)
+        assert report.passed, (name, [r.reason() for r in report.failures()])

@@ -7,16 +7,19 @@ the demo sweep and the benchmark, not here.
 """
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 import signal
 import subprocess
 import sys
 import time
+from html.parser import HTMLParser
 from pathlib import Path
 
 import numpy as np
 import pinocchio as pin
+import psutil
 import pytest
 import yaml
 
@@ -99,8 +102,12 @@ def test_dask_cluster_on_loopback_gives_the_same_rows(pool_run, tmp_path):
     psutil = pytest.importorskip("psutil")
     _, pool_out = pool_run
     sweep = write_sweep(tmp_path, **SMALL_SWEEP)
-    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                                  dashboard_address="127.0.0.1:0", worker_dashboard_address=None) as cluster:
+    import dask
+
+    with dask.config.set({"temporary-directory": str(tmp_path / "dask")}), \
+            distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                     local_directory=str(tmp_path / "dask"),
+                                     dashboard_address="127.0.0.1:0", worker_dashboard_address=None) as cluster:
         pids = [os.getpid()] + [p.pid for p in psutil.Process().children(recursive=True)]
         listening = [c.laddr.ip for pid in pids for c in psutil.Process(pid).net_connections("inet")
                      if c.status == psutil.CONN_LISTEN]
@@ -126,16 +133,45 @@ def test_report_rebuilds_summary_and_figures_from_the_folder(pool_run, tmp_path)
     before = (copy / "summary.csv").read_text()
     shutil.rmtree(copy / "figures")
     (copy / "summary.csv").unlink()
+    (copy / "report.html").unlink()
     assert main(["sweep", "--report", str(copy)]) == 0
     assert (copy / "summary.csv").read_text() == before
     assert len(list((copy / "figures").glob("*.png"))) == 4
+    # The page, parsed with the standard library's HTML parser: every referenced file is in the folder,
+    # nothing is fetched from elsewhere, and every stored result has its row.
+    page = (copy / "report.html").read_text()
+    refs = PageRefs()
+    refs.feed(page)
+    assert refs.images and all((copy / src).is_file() for src in refs.images + refs.links)
+    assert not [r for r in refs.images + refs.links if "://" in r]
+    assert refs.rows == 1 + len(summary_rows(copy)) and "Safety" in page
+
+
+class PageRefs(HTMLParser):
+    """Image sources, link targets and table rows of a page."""
+
+    def __init__(self):
+        super().__init__()
+        self.images, self.links, self.rows = [], [], 0
+
+    def handle_starttag(self, tag, attrs):
+        attrs = dict(attrs)
+        if tag == "img":
+            self.images.append(attrs["src"])
+        elif tag == "a" and "href" in attrs:
+            self.links.append(attrs["href"])
+        elif tag == "tr":
+            self.rows += 1
 
 
 # ---------------------------------------------------------------- resume after a crash
 
 
-def _start(sweep: Path, out: Path) -> subprocess.Popen:
+def _start(sweep: Path, out: Path, tmpdir: Path | None = None) -> subprocess.Popen:
     env = dict(os.environ, OPENBLAS_NUM_THREADS="1", MPLBACKEND="Agg", PYTHONPATH=str(ROOT))
+    if tmpdir is not None:
+        tmpdir.mkdir(exist_ok=True)
+        env["TMPDIR"] = str(tmpdir)
     # A terminal's Ctrl-C reaches a process whose SIGINT is at its default; an ignored SIGINT would be
     # inherited from the test process (some tools ignore it), so the child starts with the default.
     return subprocess.Popen([sys.executable, "-m", "optimizer", "sweep", str(sweep), "--out", str(out),
@@ -173,10 +209,15 @@ def test_interrupt_then_kill_then_resume_solves_each_variant_once(tmp_path):
     stored = sorted(p.stem for p in (out / "results").glob("v*.json"))
     assert len(stored) < len(slopes), "the sweep finished before the interrupt; the test proves nothing"
     assert [f"{r['variant']}-{r['objective']}" for r in summary_rows(out)] == stored
-    # SIGKILL of the coordinator and its workers: nothing runs any cleanup.
-    second = _start(sweep, out)
+    # SIGKILL of the supervisor, the coordinator and its workers: nothing runs any cleanup (so this run
+    # gets a temporary folder of its own: the supervisor's run folder is left behind by design).
+    second = _start(sweep, out, tmp_path / "killed-tmp")
     _wait_for_records(out, len(stored) + 1, second)
+    everything = psutil.Process(second.pid).children(recursive=True)
     os.killpg(second.pid, signal.SIGKILL)
+    for process in everything:
+        with contextlib.suppress(psutil.NoSuchProcess):
+            process.kill()
     second.communicate(timeout=60)
     killed_with = len(list((out / "results").glob("v*.json")))
     assert killed_with < len(slopes), "the sweep finished before the kill; the test proves nothing"

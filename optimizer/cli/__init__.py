@@ -4,6 +4,12 @@ Each subcommand lives in its own module of this package and provides
 ``HELP`` (one line), ``add_arguments(parser)`` and ``run(args) -> int``.
 The registry below maps command names to module names; modules are imported
 only when their command runs, so ``brace --help`` stays fast.
+
+Run as a program (``brace ...``, ``python -m optimizer ...``), every command's
+work runs under :mod:`optimizer.supervisor`: SIGINT, SIGTERM or SIGHUP stop
+it at any moment (exit 128 + signal), with one line naming what was stopped
+and no temporary file left. Called from Python with an explicit ``argv``
+(tests), the command runs in-process unless ``supervise=True``.
 """
 from __future__ import annotations
 
@@ -12,6 +18,7 @@ import importlib
 import sys
 import traceback
 
+from .. import supervisor
 from ..errors import BraceError
 
 INTERNAL_ERROR = 70  # exit code of an unexpected exception (a bug); bad input is 2, a failed solve 1
@@ -51,8 +58,13 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
-def main(argv=None) -> int:
-    """Entry point of the ``brace`` console script; returns the exit code."""
+def main(argv=None, supervise: bool | None = None) -> int:
+    """Entry point of the ``brace`` console script; returns the exit code.
+
+    ``supervise`` (default: only when ``argv`` is None, i.e. run as a program)
+    runs the command's work in a supervised child process.
+    """
+    supervise = argv is None if supervise is None else supervise
     argv = list(sys.argv[1:] if argv is None else argv)
     parser = build_parser()
     top, rest = parser.parse_known_args(argv)
@@ -62,20 +74,28 @@ def main(argv=None) -> int:
     module.add_arguments(sub)
     args = sub.parse_args(rest)
     args.debug = args.debug or top.debug
+    if supervise:
+        return supervisor.run(lambda: run_command(top.command, module, args), command=top.command,
+                              grace=getattr(module, "STOP_GRACE", 0.0))
+    return run_command(top.command, module, args)
+
+
+def run_command(name: str, module, args) -> int:
+    """Run one parsed command in this process, turning errors into one line and an exit code."""
     try:
         return int(module.run(args) or 0)
     except BraceError as exc:
         if args.debug:
             traceback.print_exc()
-        print(f"brace {top.command}: error: {exc}", file=sys.stderr)
+        print(f"brace {name}: error: {exc}", file=sys.stderr)
         return exc.exit_code
     except KeyboardInterrupt:
-        print(f"brace {top.command}: interrupted; no output was written", file=sys.stderr)
+        print(f"brace {name}: interrupted; no output was written", file=sys.stderr)
         return 130
     except Exception as exc:  # a bug in brace, not in the input: say so in one line
         if args.debug:
             traceback.print_exc()
-        print(f"brace {top.command}: internal error: {type(exc).__name__}: {exc}".splitlines()[0][:300]
+        print(f"brace {name}: internal error: {type(exc).__name__}: {exc}".splitlines()[0][:300]
               + " (a bug in brace; run with --debug for the traceback and report it)", file=sys.stderr)
         return INTERNAL_ERROR
 

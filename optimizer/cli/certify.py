@@ -12,6 +12,7 @@ import json
 import math
 import sys
 
+from .. import supervisor
 from ..analysis.certify import DEFAULT_CAP, DEFAULT_MAX_LPS, DEFAULT_TOL, Settings, certify_plan
 from ..analysis.model_change import ModelChange
 from ..analysis.plan_check import CHECKS
@@ -76,21 +77,27 @@ def add_arguments(parser) -> None:
 
 def run(args) -> int:
     settings = _settings(args)
+    supervisor.phase("loading the plan")
     plan = load_plan(args.plan)
     knots = parse_knots(args.knots, plan.t.shape[0])
     count = len(plan.meta["disturbances"])
     if not 0 <= args.disturbance < count:
         raise InputError(CLI, "--disturbance", f"an index from 0 to {count - 1}", args.disturbance)
     tolerances = parse_check_tolerances(args.check_tol)
+    change = model_change(args)
+    entry = plan.meta["disturbances"][args.disturbance]
+    supervisor.phase(f"certifying {len(knots)} knot(s)")
+    print(head_line(str(args.plan), entry["kind"], entry["frame"], len(knots), settings), flush=True)
     progress = ProgressLine(sys.stderr) if len(knots) > 1 else None
     cert = certify_plan(plan, knots, args.disturbance, settings, args.replay, args.seed, progress,
-                        check=not args.no_check, tolerances=tolerances, change=model_change(args))
+                        check=not args.no_check, tolerances=tolerances, change=change)
     if progress is not None:
         progress.clear()
     shortfalls = certificate_shortfalls(cert, plan, requirements(args, plan), args.warn_below)
-    print(report_text(cert, str(args.plan), quiet=args.quiet,
+    print(report_text(cert, str(args.plan), quiet=args.quiet, head=False,
                       flags=shortfall_lines(shortfalls, use_colour(sys.stdout)), unmet=bool(unmet(shortfalls))))
     if args.json:
+        supervisor.phase("writing the JSON report")
         document = {"plan": str(args.plan), **cert.to_json(), "margin_flags": [s.to_json() for s in shortfalls]}
         with atomic_output(args.json, suffix=".json") as tmp:
             tmp.write_text(json.dumps(document, indent=2) + "\n", encoding="utf-8")
@@ -342,6 +349,12 @@ def summary_lines(cert, unit: str, flags=(), unmet: bool = False) -> list:
     return lines
 
 
+def head_line(plan_name: str, kind: str, frame: str, count: int, settings) -> str:
+    """The report's first line (``brace certify`` prints it before certification starts)."""
+    mode = "whole polytope" if settings.full else "refined around the figure"
+    return f"certify {plan_name}: {kind} at {frame}, {count} knots, projection {mode}, tol {settings.tol:g}"
+
+
 def result_line(cert, summary: dict, problems) -> str:
     """The verdict, worded by what was proven."""
     if problems:
@@ -359,11 +372,9 @@ def result_line(cert, summary: dict, problems) -> str:
     return f"result: certified (physics checks passed; {what})"
 
 
-def report_text(cert, plan_name: str, quiet: bool = False, flags=(), unmet: bool = False) -> str:
+def report_text(cert, plan_name: str, quiet: bool = False, flags=(), unmet: bool = False, head: bool = True) -> str:
     d = cert.disturbance
     unit = "N" if d["kind"] == "force" else "N|Nm"
-    mode = "whole polytope" if cert.settings.full else "refined around the figure"
-    head = [f"certify {plan_name}: {d['kind']} at {d['frame']}, {len(cert.knots)} knots, "
-            f"projection {mode}, tol {cert.settings.tol:g}"]
+    first = [head_line(plan_name, d["kind"], d["frame"], len(cert.knots), cert.settings)] if head else []
     body = [] if quiet else knot_table(cert, unit) + [""]
-    return "\n".join(head + check_lines(cert, quiet) + body + summary_lines(cert, unit, flags, unmet))
+    return "\n".join(first + check_lines(cert, quiet) + body + summary_lines(cert, unit, flags, unmet))

@@ -18,6 +18,7 @@ import sys
 import tempfile
 from pathlib import Path
 
+from .. import supervisor
 from ..errors import InputError, OutputError
 from ..notices import SAFETY
 
@@ -127,7 +128,9 @@ def staged(out: Path):
     """A staging folder beside ``out``; on success its files move into ``out``, else it is removed."""
     try:
         out.parent.mkdir(parents=True, exist_ok=True)
-        stage = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=out.parent))
+        prefix = f".{out.name}.{os.getpid()}."
+        supervisor.will_create(out.parent, prefix)  # removed by the supervisor if the command is stopped
+        stage = Path(tempfile.mkdtemp(prefix=prefix, dir=out.parent))
     except OSError as exc:
         raise OutputError(out, "", "a writable place for the report", exc.strerror or str(exc)) from None
     try:
@@ -168,8 +171,16 @@ def print_summary(comparisons, out: Path) -> None:
     from ..report.build import PAGE
     from ..report.table import row, text_table
 
+    from ..report.table import entry_shortfalls
+    from .shortfalls import shortfall_lines, use_colour
+
     for c in comparisons:
         print(f"{c.title}:")
         print("\n".join("  " + line for line in text_table([row(e) for e in c.entries])))
+        for entry in c.entries:
+            flags = shortfall_lines(entry_shortfalls(entry), use_colour(sys.stdout))
+            if flags:
+                print(f"  {entry.name}:")
+                print("\n".join("  " + line for line in flags))
     print(f"report written: {out / PAGE}")
     print(SAFETY)

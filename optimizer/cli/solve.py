@@ -22,8 +22,10 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from .. import supervisor
 from ..analysis.margin_flags import DEFAULT_WARN_FRACTION, plan_shortfalls, unmet
-from ..errors import InputError, OutputError
+from ..errors import InputError, OutputError, TooLargeForMemory
+from ..memory import SIZE_TEXT, available_memory, format_size, parse_size
 from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
 from ..notices import SAFETY
@@ -44,6 +46,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--quiet", action="store_true", help="no per-iteration progress lines")
     parser.add_argument("--skip-checks", action="store_true",
                         help="do not run the pre-solve checks (reach, standing still, statics, timing)")
+    parser.add_argument("--memory-limit", metavar="SIZE",
+                        help="most memory the solve may use, e.g. 8G or 512M (default: the task's "
+                             "solver.memory_limit, else what the machine has available)")
     parser.add_argument("--check-only", action="store_true",
                         help="validate the task and run the pre-solve checks, then stop without solving")
     parser.add_argument("--require-margin", type=float, metavar="NEWTON",
@@ -57,6 +62,15 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args) -> int:
+    supervisor.on_phase(None if args.quiet else _print_phase)
+    try:
+        return _run(args)
+    finally:
+        supervisor.on_phase(None)
+
+
+def _run(args) -> int:
+    supervisor.phase("loading the task")
     task = load_task(args.task)
     if args.knots is not None:
         if not 2 <= args.knots <= MAX_KNOTS:
@@ -65,9 +79,11 @@ def run(args) -> int:
     task = with_cli_requirement(task, args)
     objective = args.objective or task.objective
     out = output_path(args, objective)
+    limit = memory_limit(args, task)
     run_checks(task, args.skip_checks)
     if not args.skip_checks and not requirement_reachable(task):
         return 1
+    check_memory(task, objective, limit)
     if args.check_only:
         print(f"brace solve: task '{task.name}' is valid" + ("" if args.skip_checks else "; pre-solve checks passed"))
         return 0
@@ -91,6 +107,7 @@ def run(args) -> int:
         outcome.plan.meta["requirements"]["met"] = met
     lines = summary_lines(outcome, elapsed, out, log_path)
     if met or args.keep_unmet:
+        supervisor.phase("writing the plan")
         save_plan(outcome.plan, out)
         _remove_stale_point(out)
     else:
@@ -150,15 +167,65 @@ def run_checks(task, skip: bool) -> None:
     """Solver options on a tiny NLP, then the pre-solve checks (raise when the task is impossible)."""
     from ..analysis.presolve import check_solver_options, require_possible
 
+    supervisor.phase("checking the solver options")
     check_solver_options(task)
     if skip:
         return
+    supervisor.phase("running the pre-solve checks")
     started = time.perf_counter()
     warnings = require_possible(task)
     print(f"brace solve: pre-solve checks done in {time.perf_counter() - started:.2f} s"
           + (f", {len(warnings)} warning(s):" if warnings else ", nothing found"))
     for finding in warnings:
         print(f"  warning: {finding.text()}")
+
+
+def memory_limit(args, task) -> int | None:
+    """``--memory-limit`` in bytes, else the task's ``solver.memory_limit``, else None."""
+    if args.memory_limit is None:
+        return task.memory_limit
+    size = parse_size(args.memory_limit)
+    if size is None:
+        raise InputError(CLI, "--memory-limit", SIZE_TEXT, args.memory_limit)
+    return size
+
+
+CLOSE = 0.8  # warn when the estimate takes more than this share of the ceiling
+
+
+def check_memory(task, objective: str, limit: int | None) -> None:
+    """Refuse, before building anything, a solve whose estimated memory exceeds the ceiling; warn when close.
+
+    The ceiling is ``limit`` when given, else the memory available now.
+    """
+    from ..footprint import estimate_memory
+
+    supervisor.phase("estimating the memory the solve needs")
+    estimate = estimate_memory(task, objective)
+    available = available_memory()
+    if limit is not None:
+        ceiling, what = limit, "set as the memory limit"
+    elif available is not None:
+        ceiling, what = available.size, available.source
+    else:
+        print(f"brace solve: memory: {estimate.describe()} (the system does not say how much is available)")
+        return
+    if estimate.total > ceiling:
+        fits = estimate.largest_knots(ceiling)
+        advice = (f"the largest knot count that fits is {fits} (--knots {fits})" if fits >= 2
+                  else "not even 2 knots fit")
+        raise TooLargeForMemory(f"the solve needs {estimate.describe()}, more than the {format_size(ceiling)} {what}; "
+                                f"{advice}; nothing was built (a higher --memory-limit overrides the estimate)")
+    print(f"brace solve: memory: {estimate.describe()}; {format_size(ceiling)} {what}")
+    if estimate.total > CLOSE * ceiling:
+        print(f"  warning: the estimate is {100 * estimate.total / ceiling:.0f} % of the {format_size(ceiling)} "
+              f"{what}; the solve may run out of memory (fewer knots need less)")
+    if limit is not None and available is not None and estimate.total > available.size:
+        print(f"  warning: only {format_size(available.size)} is {available.source}, less than the estimate")
+
+
+def _print_phase(text: str) -> None:
+    print(f"  ... {text}", flush=True)
 
 
 def _print_progress(stage, iteration, cost, violation, smallest_margin):

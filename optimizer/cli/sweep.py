@@ -20,6 +20,10 @@ from pathlib import Path
 from ..errors import InputError
 from .notices import SAFETY
 
+# Stopping: the supervisor passes Ctrl-C / SIGTERM on and waits this long [s] for the sweep to
+# stop its workers and write the summary of what finished (optimizer.supervisor).
+STOP_GRACE = 30.0
+
 HELP = "solve a task over a grid or sample of variants; resumable, on a local pool or a Dask cluster"
 CLI = "command line"
 
@@ -82,10 +86,14 @@ def report(out: Path) -> int:
 
 
 def _figures(out: Path, rows: list) -> list:
+    """The figures and the page (``report.html``, last) of a results folder."""
     from ..sweep import store
     from ..sweep.figures import draw_figures
+    from ..sweep.page import write_sweep_page
 
-    return draw_figures(out, store.read_manifest(out), rows)
+    manifest = store.read_manifest(out)
+    figures = draw_figures(out, manifest, rows)
+    return figures + [write_sweep_page(out, manifest, rows, figures)]
 
 
 class ProgressLine:

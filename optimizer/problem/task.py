@@ -20,6 +20,7 @@ import pinocchio as pin
 
 from ..errors import InfeasibleTask, TaskError
 from ..files import read_yaml_mapping
+from ..memory import SIZE_TEXT, parse_size
 from ..robot.model import load_robot
 from ..schema import Fields
 from .clearance import DEFAULT_CLEARANCE, ClearanceSpec, clearance_spec
@@ -129,7 +130,7 @@ class Task:
     min_normal_force : float
         N, for every active contact.
     solver_options : dict
-        Passed to the solver adapter as given.
+        Passed to the solver adapter as given (without ``memory_limit``).
     initial_posture : ndarray, shape (nq,), or None
         Fixed start configuration; None leaves it free (at rest).
     clearance : ClearanceSpec
@@ -141,6 +142,9 @@ class Task:
     requirements : list of MarginRequirement
         Margins the plan must keep (``require``; see
         :mod:`optimizer.problem.requirement`); empty when none is stated.
+    memory_limit : int or None
+        Bytes a solve may use (``solver.memory_limit``); None: what the
+        machine has available.
     """
 
     name: str
@@ -160,6 +164,7 @@ class Task:
     raw: dict
     requirements: list = field(default_factory=list)
     clearance: ClearanceSpec = None
+    memory_limit: int | None = None
 
     def with_knots(self, knots: int) -> "Task":
         """A copy with ``knots`` knots (>= 2); the robot object is shared."""
@@ -226,6 +231,7 @@ def task_from_mapping(data: dict, path) -> Task:
         facets=top.integer("pyramid_facets", 4, lo=3, hi=MAX_FACETS),
         min_normal_force=top.number("min_normal_force", 0.05 * weight / len(contacts), lo=0.0),
         solver_options=read_solver_options(top),
+        memory_limit=read_memory_limit(top),
         initial_posture=read_initial_posture(top, robot, contacts, clearance),
         raw=json_copy(data, path),
         clearance=clearance,
@@ -466,15 +472,31 @@ def read_expected_pushes(expected: Fields) -> np.ndarray:
     return shape_from_directions(directions, weights, expected.number("others", 0.0, lo=0.0))
 
 
+MEMORY_LIMIT = "memory_limit"  # the one key of ``solver`` that brace reads itself (not an Ipopt option)
+
+
 def read_solver_options(top: Fields) -> dict:
-    """``solver``: a flat mapping of option name -> number, text or true/false."""
+    """``solver``: a flat mapping of option name -> number, text or true/false (``memory_limit`` apart)."""
     options = top.sub("solver", {})
     for key, value in options.data.items():
+        if key == MEMORY_LIMIT:
+            continue
         if not isinstance(key, str):
             options.fail(str(key), "an option name (text) as the key", key)
         if not isinstance(value, (bool, int, float, str)) or (isinstance(value, float) and not math.isfinite(value)):
             options.fail(str(key), "a number, text or true/false", value)
-    return dict(options.data)
+    return {key: value for key, value in options.data.items() if key != MEMORY_LIMIT}
+
+
+def read_memory_limit(top: Fields) -> int | None:
+    """``solver.memory_limit``: the most memory a solve may use, e.g. ``8G``; None when absent."""
+    options = top.sub("solver", {})
+    if MEMORY_LIMIT not in options.data:
+        return None
+    size = parse_size(options.data[MEMORY_LIMIT])
+    if size is None:
+        options.fail(MEMORY_LIMIT, SIZE_TEXT, options.data[MEMORY_LIMIT])
+    return size
 
 
 def read_initial_posture(top: Fields, robot, contacts, clearance=None) -> np.ndarray | None:

@@ -16,7 +16,7 @@ from .. import __version__
 from ..notices import MODEL_ONLY, SAFETY
 from . import palette
 from .figures import CAPTIONS, FIGURES
-from .table import COLUMNS, cell, row
+from .table import COLUMNS, cell, entry_shortfalls, row
 
 TITLE = "brace comparison"
 
@@ -153,6 +153,10 @@ def reading(entries) -> list[str]:
         direction = ", ".join(f"{0.0 if abs(x) < 5e-3 else x:+.2f}" for x in s.direction[:3])
         out.append(f"What limits {_e(e.name)} at its weakest moment: a push along ({direction}) is stopped by "
                    f"<i>{_e(names or 'no named limit')}</i>.")
+    for e in ranked:
+        for s in entry_shortfalls(e):
+            what = "required margin not met" if s.required else "low margin"
+            out.append(f'<span class="not-certified">{what}</span> for {_e(e.name)}: {_e(s.text())}.')
     failed = [e for e in entries if not e.ok]
     for e in failed:
         out.append(f"{_e(e.name)} has no plan: {_e(e.failure)}.")
@@ -235,18 +239,20 @@ def section_html(title: str, meta: dict, entries, folder: str, files: list[str])
     return "".join(parts)
 
 
-def page_html(sections: list[str], subtitle: str) -> str:
-    """The whole page around the comparison sections."""
+COMPARISON_NOTE = "A comparison ranks plans on the model; it does not say that any of them is safe to run."
+
+
+def page_html(sections: list[str], subtitle: str, title: str = TITLE, note: str = COMPARISON_NOTE) -> str:
+    """The whole page around its sections: header, sections, and the safety cautions with ``note``."""
     safety = SAFETY.removeprefix("Safety: ")
     caution = (f'<div class="caution"><h2>Safety</h2><p>{_e(safety[:1].upper() + safety[1:])}</p>'
-               f"<p>{_e(MODEL_ONLY)}</p>"
-               "<p>A comparison ranks plans on the model; it does not say that any of them is safe to run.</p></div>")
+               f"<p>{_e(MODEL_ONLY)}</p><p>{_e(note)}</p></div>")
     return (
         "<!DOCTYPE html>\n"
         '<html lang="en"><head><meta charset="utf-8">'
         '<meta name="viewport" content="width=device-width, initial-scale=1">'
         '<link rel="icon" href="data:,">'
-        f"<title>{_e(TITLE)}</title><style>{STYLE}</style></head><body><main>"
-        f'<header class="page"><h1>{_e(TITLE)}</h1><p>{_e(subtitle)} &middot; brace {_e(__version__)}</p></header>'
+        f"<title>{_e(title)}</title><style>{STYLE}</style></head><body><main>"
+        f'<header class="page"><h1>{_e(title)}</h1><p>{_e(subtitle)} &middot; brace {_e(__version__)}</p></header>'
         + "".join(sections) + caution + "</main></body></html>\n"
     )

@@ -25,13 +25,15 @@ import contextlib
 OBJECTIVE_COLOURS = {
     "robust": "#1d4e89",        # deep blue
     "robust-min": "#5fb4e0",    # light sky blue
+    "robust-sum": "#9ad0a0",    # pale green (lightest: the plain sum of margins)
     "torque": "#d2691e",        # burnt orange
     "feasible": "#6e6e6e",      # neutral grey: the plain baseline
 }
 """Hex sRGB colour of each objective."""
 
-OBJECTIVE_MARKERS = {"robust": "o", "robust-min": "s", "torque": "^", "feasible": "D"}
-OBJECTIVE_DASHES = {"robust": "-", "robust-min": "--", "torque": "-.", "feasible": ":"}
+OBJECTIVE_MARKERS = {"robust": "o", "robust-min": "s", "robust-sum": "v", "torque": "^", "feasible": "D"}
+OBJECTIVE_DASHES = {"robust": "-", "robust-min": "--", "robust-sum": (0, (5, 1, 1, 1)), "torque": "-.",
+                    "feasible": ":"}
 
 EXTRA_COLOURS = ("#8e3b8f", "#3f8f4f", "#c9a227", "#9c2f2f", "#2f6f6f")
 """Further colours, in order, for series that are not the four objectives."""

@@ -16,6 +16,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..analysis.limit_use import LimitUse, limit_use
+from ..analysis.margin_flags import certificate_shortfalls, plan_requirements
 
 
 @dataclass
@@ -152,3 +153,10 @@ def text_table(rows: list[dict]) -> list[str]:
         status = "status" if i == 0 else rows[i - 1]["status"]
         lines.append(f"{text}  {status}")
     return lines
+
+
+def entry_shortfalls(entry) -> list:
+    """Low-margin ranges and unmet requirements of a plan's exact figures (none without a plan)."""
+    if entry.plan is None or entry.certificate is None:
+        return []
+    return certificate_shortfalls(entry.certificate, entry.plan, plan_requirements(entry.plan.meta))

@@ -67,6 +67,7 @@ class SolverBackend(Protocol):
 
     name: str      # registry key
     title: str     # how reports spell it
+    build_bytes_per_node: float  # memory a built solver takes per node of the expanded NLP [bytes] (estimates)
 
     def check_options(self, options: dict) -> str | None:
         """Why the backend refuses ``options`` (one short line), or None when it accepts them."""

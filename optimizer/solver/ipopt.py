@@ -32,6 +32,14 @@ STATUS = {
     "Invalid_Number_Detected": "numerical-error",
 }
 
+# Memory a solver built with ``expand=True`` takes per node of the expanded NLP
+# (constraints and cost as one SX graph): its Jacobian and Hessian graphs,
+# their work vectors and Ipopt's factorization together [bytes]. Measured on
+# the demo robot as the growth of the peak resident size per knot divided by
+# the growth of the expanded NLP's nodes per knot (benchmarks/memory.py,
+# results in benchmarks/RESULTS.md); re-measure when the build changes.
+BUILD_BYTES_PER_NODE = 2400
+
 DEFAULT_OPTIONS = {
     "tol": 1e-6,
     "constr_viol_tol": 1e-7,
@@ -171,6 +179,7 @@ class IpoptBackend:
     """Ipopt as a :class:`~optimizer.solver.backend.SolverBackend`."""
 
     name = "ipopt"
+    build_bytes_per_node = BUILD_BYTES_PER_NODE
     title = "Ipopt"
 
     def build(self, nlp, options=None, *, expand=True, log_file=None, progress=None, defaults=True) -> IpoptSolver:

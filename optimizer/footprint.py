@@ -1,0 +1,104 @@
+"""How much memory a solve will need, measured on the problem before anything is built.
+
+Building a solver dominates a solve's memory (the NLP is expanded into one
+expression graph, then differentiated twice), and it grows linearly with
+the knot count. The estimate measures the transcription itself: it builds
+the NLP of each stage at two tiny knot counts (a fraction of a second),
+expands it and counts its nodes, which gives the nodes per knot and the
+nodes independent of knots; each node costs the solver backend's
+``build_bytes_per_node`` once built (Ipopt: ``solver.ipopt.BUILD_BYTES_PER_NODE``). A solve keeps every stage's
+solver (the feasibility seed and the objective), so the stages add up, on
+top of what the process holds already.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import casadi as ca
+
+from .memory import format_size, resident_size
+from .planner import Planner, shared_planner
+from .transcription.nlp import Transcription
+from .transcription.objectives import objective_named
+from .transcription.structure import structure_of
+
+PROBE_KNOTS = (6, 8)  # two small knot counts; the difference gives the nodes per knot
+
+
+@dataclass(frozen=True)
+class StageSize:
+    """Size of one stage's NLP: expanded nodes per knot and independent of knots."""
+
+    objective: str
+    nodes_per_knot: float
+    nodes_fixed: float
+    variables_per_knot: float
+
+
+@dataclass(frozen=True)
+class MemoryEstimate:
+    """Peak memory of a solve [bytes] as a function of the knot count.
+
+    ``baseline`` is what the process holds before building; each stage adds
+    ``bytes_per_node`` per node of its expanded NLP.
+    """
+
+    knots: int
+    baseline: int
+    stages: tuple
+    bytes_per_node: float
+
+    def at(self, knots: int) -> int:
+        """Estimated peak [bytes] with ``knots`` knots."""
+        nodes = sum(s.nodes_fixed + knots * s.nodes_per_knot for s in self.stages)
+        return int(self.baseline + self.bytes_per_node * nodes)
+
+    @property
+    def total(self) -> int:
+        return self.at(self.knots)
+
+    def largest_knots(self, ceiling: float) -> int:
+        """The largest knot count whose estimate stays within ``ceiling`` bytes (0 if none, even 2)."""
+        per_knot = self.bytes_per_node * sum(s.nodes_per_knot for s in self.stages)
+        spare = ceiling - self.at(0)
+        return max(int(spare // per_knot), 0) if per_knot > 0 else self.knots
+
+    def describe(self) -> str:
+        stages = " + ".join(s.objective for s in self.stages)
+        nodes = sum(s.nodes_per_knot for s in self.stages)
+        return (f"about {format_size(self.total)} for {self.knots} knots "
+                f"({stages} solver{'s' if len(self.stages) > 1 else ''}, {nodes:,.0f} expression nodes per knot)")
+
+
+def stages_of(objective: str) -> list:
+    """The stages a solve of ``objective`` builds: the feasibility seed, then the objective."""
+    return ["feasible"] if objective == "feasible" else ["feasible", objective]
+
+
+def stage_size(task, objective: str, planner: Planner | None = None) -> StageSize:
+    """Measure one stage's NLP at :data:`PROBE_KNOTS` and split nodes into per-knot and fixed."""
+    planner = planner or shared_planner()
+    counts = []
+    for knots in PROBE_KNOTS:
+        small = task.with_knots(knots)
+        transcription = Transcription(small.robot, planner.symbolic_robot(small.robot), structure_of(small),
+                                      objective_named(objective), torque_gains=planner.torque_gains)
+        nlp = transcription.nlp
+        expanded = ca.Function("nlp", [nlp["x"], nlp["p"]], [nlp["f"], nlp["g"]]).expand()
+        counts.append((expanded.n_nodes(), transcription.variables.size))
+    (k0, k1), ((n0, x0), (n1, x1)) = PROBE_KNOTS, counts
+    per_knot = (n1 - n0) / (k1 - k0)
+    return StageSize(objective, per_knot, max(n0 - k0 * per_knot, 0.0), (x1 - x0) / (k1 - k0))
+
+
+def estimate_memory(task, objective: str | None = None, planner: Planner | None = None) -> MemoryEstimate:
+    """Estimated peak memory [bytes] of solving ``task`` for ``objective`` with ``planner``.
+
+    ``planner`` defaults to the one :func:`optimizer.solve` uses (its
+    symbolic robot is reused by the solve); solvers it has built already are
+    counted again (the estimate is for a fresh process, as ``brace solve``).
+    """
+    planner = planner or shared_planner()
+    objective = objective or task.objective
+    stages = tuple(stage_size(task, name, planner) for name in stages_of(objective))
+    return MemoryEstimate(task.knots, resident_size(), stages, planner.backend.build_bytes_per_node)

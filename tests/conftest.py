@@ -1,0 +1,59 @@
+"""Suite-wide check that brace leaves no temporary file or folder behind.
+
+The whole session runs with a fresh, empty temporary folder (``TMPDIR`` and
+:data:`tempfile.tempdir`, inherited by every command the tests start). When
+the session ends, that folder may hold only pytest's own ``pytest-of-*``
+folder and the folder of scratch space this test process itself still uses
+(its solvers stay cached until exit; that exit cleanup is checked by
+``tests/test_temporary_files.py`` in a separate process). Anything else is
+litter made by brace (or by a library through brace) and fails the session.
+"""
+from __future__ import annotations
+
+import os
+import shutil
+import tempfile
+from pathlib import Path
+
+import pytest
+
+_ORIGINAL_TMPDIR = os.environ.get("TMPDIR")
+_SUITE_TMP: Path | None = None
+
+
+def pytest_configure(config):
+    global _SUITE_TMP
+    if hasattr(config, "workerinput"):  # a pytest-xdist worker shares the controller's folder
+        return
+    _SUITE_TMP = Path(tempfile.mkdtemp(prefix="suite-tmp-"))
+    os.environ["TMPDIR"] = str(_SUITE_TMP)
+    tempfile.tempdir = str(_SUITE_TMP)
+
+
+def litter(folder: Path) -> list[str]:
+    """Entries of ``folder`` that nobody but brace could have left there."""
+    from optimizer import supervisor
+
+    own = supervisor.current_scratch_root()
+    return sorted(p.name for p in folder.iterdir()
+                  if not p.name.startswith("pytest-of-") and (own is None or p != own))
+
+
+@pytest.fixture(scope="session", autouse=True)
+def no_temporary_files_left():
+    """After the last test: the session's temporary folder holds nothing brace made."""
+    yield
+    if _SUITE_TMP is not None:
+        left = litter(_SUITE_TMP)
+        assert not left, f"temporary files left behind in {_SUITE_TMP}: {left}"
+
+
+def pytest_unconfigure(config):
+    if _SUITE_TMP is None:
+        return
+    tempfile.tempdir = None
+    if _ORIGINAL_TMPDIR is None:
+        os.environ.pop("TMPDIR", None)
+    else:
+        os.environ["TMPDIR"] = _ORIGINAL_TMPDIR
+    shutil.rmtree(_SUITE_TMP, ignore_errors=True)

@@ -1,0 +1,104 @@
+"""Memory before building: sizes, what the machine has, the estimate's shape, refusal before any build.
+
+The estimate itself is checked against measured peaks (30, 60, 120 knots)
+by ``benchmarks/memory.py`` (``benchmarks/RESULTS.md``); here: its parts.
+"""
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import casadi as ca
+import pytest
+import yaml
+
+from optimizer.footprint import estimate_memory, stage_size
+from optimizer.memory import available_memory, parse_size
+from optimizer.planner import shared_planner
+from optimizer.problem.task import load_task
+from optimizer.transcription.nlp import Transcription
+from optimizer.transcription.objectives import objective_named
+from optimizer.transcription.structure import structure_of
+
+ROOT = Path(__file__).resolve().parents[1]
+RAMP = ROOT / "tasks" / "steep_ramp.yaml"
+
+
+@pytest.mark.parametrize("text, size", [
+    ("8G", 8 * 2**30), ("512M", 512 * 2**20), ("1.5 GB", int(1.5 * 2**30)), ("64k", 64 * 1024), ("2TiB", 2 * 2**40)])
+def test_sizes_in_binary_units(text, size):
+    assert parse_size(text) == size   # binary units, 1 K = 1024 bytes (common practice, IEC 80000-13 "Ki")
+
+
+@pytest.mark.parametrize("text", ["8", "lots", "-1G", "0M", "", "8X", True, 8])
+def test_sizes_without_a_unit_or_positive_value_are_refused(text):
+    assert parse_size(text) is None
+
+
+def test_available_memory_agrees_with_psutil():
+    psutil = pytest.importorskip("psutil")
+    ours = available_memory()
+    theirs = psutil.virtual_memory().available   # psutil reads the same kernel figure its own way
+    assert ours is not None
+    assert ours.size <= theirs * 1.1 + 64 * 2**20  # a cgroup limit may only make it smaller
+
+
+def test_nodes_grow_linearly_with_knots():
+    """The two small probes predict the expanded NLP's size at a larger knot count (within 2 %)."""
+    task = load_task(RAMP)
+    size = stage_size(task, "robust")
+    big = task.with_knots(16)
+    nlp = Transcription(big.robot, shared_planner().symbolic_robot(big.robot), structure_of(big), objective_named("robust")).nlp
+    nodes = ca.Function("nlp", [nlp["x"], nlp["p"]], [nlp["f"], nlp["g"]]).expand().n_nodes()
+    predicted = size.nodes_fixed + 16 * size.nodes_per_knot
+    assert abs(predicted - nodes) <= 0.02 * nodes, (predicted, nodes)
+
+
+def test_robust_needs_more_than_feasible_and_knots_cost_memory():
+    task = load_task(RAMP)
+    feasible, robust = estimate_memory(task.with_knots(40), "feasible"), estimate_memory(task.with_knots(40), "robust")
+    assert robust.total > feasible.total
+    assert robust.at(80) > robust.at(40)
+    fits = robust.largest_knots(robust.at(57) + 1)
+    assert fits == 57
+
+
+def run_cli(argv, tmp_path):
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", PYTHONPATH=str(ROOT))
+    return subprocess.run([sys.executable, "-m", "optimizer", *argv], capture_output=True, text=True,
+                          env=env, timeout=300, cwd=tmp_path)
+
+
+def test_a_solve_over_the_limit_is_refused_before_any_build(tmp_path):
+    out = tmp_path / "plans" / "ramp.npz"
+    done = run_cli(["solve", str(RAMP), "--knots", "120", "--memory-limit", "600M", "--out", str(out)], tmp_path)
+    assert done.returncode == 2, done.stderr
+    err = [line for line in done.stderr.splitlines() if line.strip()]
+    assert len(err) == 1 and "Traceback" not in done.stderr
+    assert "for 120 knots" in err[0] and "more than the 600 MB set as the memory limit" in err[0], err
+    fits = int(err[0].split("--knots ")[1].split(")")[0])
+    assert 2 <= fits < 120
+    assert "building" not in done.stdout          # refused before any solver was built
+    assert not out.parent.exists()                # no plan, no log
+
+
+def test_task_memory_limit_is_read_and_checked(tmp_path, capsys):
+    from optimizer.cli import main
+
+    data = yaml.safe_load(RAMP.read_text())
+    data["robot"] = str((RAMP.parent / data["robot"]).resolve())
+    data["solver"] = dict(data.get("solver") or {}, memory_limit="lots")
+    bad = tmp_path / "bad.yaml"
+    bad.write_text(yaml.safe_dump(data))
+    assert main(["solve", str(bad), "--check-only", "--skip-checks"]) == 2
+    assert "field 'solver.memory_limit': expected a size with a unit" in capsys.readouterr().err
+    data["solver"]["memory_limit"] = "300M"   # read by brace, not handed to Ipopt (which would refuse it)
+    small = tmp_path / "small.yaml"
+    small.write_text(yaml.safe_dump(data))
+    assert main(["solve", str(small), "--check-only", "--skip-checks", "--knots", "100"]) == 2
+    assert "more than the 300 MB set as the memory limit" in capsys.readouterr().err
+    argv = ["solve", str(small), "--check-only", "--skip-checks", "--knots", "100", "--memory-limit", "64G"]
+    assert main(argv) == 0                    # the command line overrides the task
+    assert "64.0 GB set as the memory limit" in capsys.readouterr().out
