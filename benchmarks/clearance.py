@@ -18,7 +18,6 @@ import dataclasses
 import datetime
 import os
 import platform
-import re
 import subprocess
 import sys
 import time
@@ -32,6 +31,7 @@ from optimizer.problem.clearance import smallest_clearance  # noqa: E402
 from optimizer.planner import solve  # noqa: E402
 from optimizer.problem.task import load_task  # noqa: E402
 from optimizer.transcription.structure import structure_of  # noqa: E402
+from results_file import write_section as write_results_section
 
 TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
 
@@ -92,10 +92,7 @@ def section(args, table, elapsed, load_before, load_after) -> str:
 
 
 def write_section(path: Path, text: str) -> None:
-    old = path.read_text(encoding="utf-8") if path.exists() else "# Benchmark results\n"
-    pattern = re.compile(r"## Clearance\n.*?(?=\n## |\Z)", re.S)
-    new = pattern.sub(lambda _: text.rstrip("\n"), old) if pattern.search(old) else old.rstrip("\n") + "\n\n" + text
-    path.write_text(new if new.endswith("\n") else new + "\n", encoding="utf-8")
+    write_results_section(path, "Clearance", text)
 
 
 def load() -> str:

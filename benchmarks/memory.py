@@ -19,7 +19,6 @@ import argparse
 import datetime
 import os
 import platform
-import re
 import subprocess
 import sys
 import tempfile
@@ -32,6 +31,7 @@ ESTIMATE = """
 import sys
 from optimizer.problem.task import load_task
 from optimizer.footprint import estimate_memory
+from results_file import write_section as write_results_section
 task = load_task(sys.argv[1]).with_knots(int(sys.argv[2]))
 e = estimate_memory(task, sys.argv[3])
 print(e.total, sum(s.nodes_per_knot for s in e.stages))
@@ -106,10 +106,7 @@ def section(args, table, slopes, before, after) -> str:
 
 
 def write_section(path: Path, text: str) -> None:
-    old = path.read_text(encoding="utf-8") if path.exists() else "# Benchmark results\n"
-    pattern = re.compile(r"## Memory\n.*?(?=\n## |\Z)", re.S)
-    new = pattern.sub(lambda _: text.rstrip("\n"), old) if pattern.search(old) else old.rstrip("\n") + "\n\n" + text
-    path.write_text(new if new.endswith("\n") else new + "\n", encoding="utf-8")
+    write_results_section(path, "Memory", text)
 
 
 def main(argv=None) -> int:

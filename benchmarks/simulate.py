@@ -20,7 +20,6 @@ import argparse
 import datetime
 import os
 import platform
-import re
 import sys
 import time
 from pathlib import Path
@@ -36,6 +35,7 @@ from optimizer.planner import solve  # noqa: E402
 from optimizer.problem.task import load_task  # noqa: E402
 from optimizer.simulation.inputs import simulation_inputs  # noqa: E402
 from optimizer.simulation.pushes import Simulator  # noqa: E402
+from results_file import write_section as write_results_section
 
 TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
 OBJECTIVES = ["robust", "torque"]
@@ -122,10 +122,7 @@ def section(args, nominal, pushes, elapsed, load_before, load_after) -> str:
 
 
 def write_section(path: Path, text: str) -> None:
-    old = path.read_text(encoding="utf-8") if path.exists() else "# Benchmark results\n"
-    pattern = re.compile(r"## Simulation\n.*?(?=\n## |\Z)", re.S)
-    new = pattern.sub(lambda _: text.rstrip("\n"), old) if pattern.search(old) else old.rstrip("\n") + "\n\n" + text
-    path.write_text(new if new.endswith("\n") else new + "\n", encoding="utf-8")
+    write_results_section(path, "Simulation", text)
 
 
 def main(argv=None) -> int:

@@ -28,12 +28,12 @@ import datetime
 import json
 import os
 import platform
-import re
 import resource
 import subprocess
 import sys
 import time
 from pathlib import Path
+from results_file import write_section as write_results_section
 
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 ROOT = Path(__file__).resolve().parent.parent
@@ -192,10 +192,7 @@ def fmt(value) -> str:
 
 
 def write_section(path: Path, text: str) -> None:
-    old = path.read_text(encoding="utf-8") if path.exists() else "# Benchmark results\n"
-    pattern = re.compile(r"## Solve\n.*?(?=\n## |\Z)", re.S)
-    new = pattern.sub(lambda _: text.rstrip("\n"), old) if pattern.search(old) else old.rstrip("\n") + "\n\n" + text
-    path.write_text(new if new.endswith("\n") else new + "\n", encoding="utf-8")
+    write_results_section(path, "Solve", text)
 
 
 def main(argv=None) -> int:

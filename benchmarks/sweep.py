@@ -17,7 +17,6 @@ import argparse
 import datetime
 import os
 import platform
-import re
 import sys
 import tempfile
 import time
@@ -31,6 +30,7 @@ sys.path.insert(0, str(ROOT))
 from optimizer.sweep.engines import LocalPool  # noqa: E402
 from optimizer.sweep.runner import run_sweep  # noqa: E402
 from optimizer.sweep.spec import load_sweep  # noqa: E402
+from results_file import write_section as write_results_section
 
 GRID = {"slope_deg": [10.0, 15.0, 20.0], "friction": [0.7, 0.85, 1.0]}
 CONFIGS = [(1, "none"), (1, "neighbour"), (2, "none"), (2, "neighbour")]
@@ -118,10 +118,7 @@ def section(knots: int, runs: list[dict], elapsed: float) -> str:
 
 
 def write_section(path: Path, text: str) -> None:
-    old = path.read_text(encoding="utf-8") if path.exists() else "# Benchmark results\n"
-    pattern = re.compile(r"## Sweep\n.*?(?=\n## |\Z)", re.S)
-    new = pattern.sub(lambda _: text.rstrip("\n"), old) if pattern.search(old) else old.rstrip("\n") + "\n\n" + text
-    path.write_text(new if new.endswith("\n") else new + "\n", encoding="utf-8")
+    write_results_section(path, "Sweep", text)
 
 
 def main(argv=None) -> int:

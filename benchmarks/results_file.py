@@ -1,0 +1,14 @@
+"""The shared results table of the benchmarks: ``benchmarks/RESULTS.md``, one ``## Heading`` section per script."""
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+
+def write_section(path: Path, heading: str, text: str) -> None:
+    """Replace the section ``## heading`` of ``path`` with ``text`` (which starts with that heading), or append it."""
+    path = Path(path)
+    old = path.read_text(encoding="utf-8") if path.exists() else "# Benchmark results\n"
+    pattern = re.compile(rf"## {re.escape(heading)}\n.*?(?=\n## |\Z)", re.S)
+    new = pattern.sub(lambda _: text.rstrip("\n"), old) if pattern.search(old) else old.rstrip("\n") + "\n\n" + text
+    path.write_text(new if new.endswith("\n") else new + "\n", encoding="utf-8")
