@@ -31,7 +31,7 @@ from optimizer.problem.clearance import smallest_clearance  # noqa: E402
 from optimizer.planner import solve  # noqa: E402
 from optimizer.problem.task import load_task  # noqa: E402
 from optimizer.transcription.structure import structure_of  # noqa: E402
-from results_file import write_section as write_results_section
+from results_file import publish
 
 TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
 
@@ -91,10 +91,6 @@ def section(args, table, elapsed, load_before, load_after) -> str:
         *table, ""])
 
 
-def write_section(path: Path, text: str) -> None:
-    write_results_section(path, "Clearance", text)
-
-
 def load() -> str:
     text = subprocess.run(["uptime"], capture_output=True, text=True).stdout
     return text.split("load average:")[-1].strip() if "load average" in text else "unknown"
@@ -110,9 +106,7 @@ def main(argv=None) -> int:
     before, started = load(), time.perf_counter()
     table = rows_for(args.tasks.split(","), args.objective, args.knots)
     text = section(args, table, time.perf_counter() - started, before, load())
-    print(text)
-    if args.write:
-        write_section(Path(args.write), text)
+    publish(text, args.write, "Clearance")
     return 0
 
 

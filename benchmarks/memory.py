@@ -31,7 +31,7 @@ ESTIMATE = """
 import sys
 from optimizer.problem.task import load_task
 from optimizer.footprint import estimate_memory
-from results_file import write_section as write_results_section
+from results_file import publish
 task = load_task(sys.argv[1]).with_knots(int(sys.argv[2]))
 e = estimate_memory(task, sys.argv[3])
 print(e.total, sum(s.nodes_per_knot for s in e.stages))
@@ -105,10 +105,6 @@ def section(args, table, slopes, before, after) -> str:
         *[f"- {line}" for line in slopes], ""])
 
 
-def write_section(path: Path, text: str) -> None:
-    write_results_section(path, "Memory", text)
-
-
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--knots", default="30,60,120")
@@ -118,9 +114,7 @@ def main(argv=None) -> int:
     before = load()
     table, slopes = rows(args.runs.split(","), [int(k) for k in args.knots.split(",")])
     text = section(args, table, slopes, before, load())
-    print(text)
-    if args.write:
-        write_section(Path(args.write), text)
+    publish(text, args.write, "Memory")
     return 0
 
 

@@ -12,3 +12,10 @@ def write_section(path: Path, heading: str, text: str) -> None:
     pattern = re.compile(rf"## {re.escape(heading)}\n.*?(?=\n## |\Z)", re.S)
     new = pattern.sub(lambda _: text.rstrip("\n"), old) if pattern.search(old) else old.rstrip("\n") + "\n\n" + text
     path.write_text(new if new.endswith("\n") else new + "\n", encoding="utf-8")
+
+
+def publish(text: str, path, heading: str) -> None:
+    """Print a script's section and, when ``path`` is given, write it into that results file."""
+    print(text)
+    if path:
+        write_section(Path(path), heading, text)

@@ -35,7 +35,7 @@ from optimizer.planner import solve  # noqa: E402
 from optimizer.problem.task import load_task  # noqa: E402
 from optimizer.simulation.inputs import simulation_inputs  # noqa: E402
 from optimizer.simulation.pushes import Simulator  # noqa: E402
-from results_file import write_section as write_results_section
+from results_file import publish
 
 TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
 OBJECTIVES = ["robust", "torque"]
@@ -121,10 +121,6 @@ def section(args, nominal, pushes, elapsed, load_before, load_after) -> str:
         "the weight.", "", *pushes, ""])
 
 
-def write_section(path: Path, text: str) -> None:
-    write_results_section(path, "Simulation", text)
-
-
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--knots", type=int, default=60)
@@ -135,9 +131,7 @@ def main(argv=None) -> int:
     started, load_before = time.perf_counter(), os.getloadavg()[0]
     nominal, pushes = rows(args.tasks.split(","), args.knots, Path(args.plans) if args.plans else None)
     text = section(args, nominal, pushes, time.perf_counter() - started, load_before, os.getloadavg()[0])
-    print(text)
-    if args.write:
-        write_section(Path(args.write), text)
+    publish(text, args.write, "Simulation")
     return 0
 
 

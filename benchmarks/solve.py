@@ -33,7 +33,7 @@ import subprocess
 import sys
 import time
 from pathlib import Path
-from results_file import write_section as write_results_section
+from results_file import publish
 
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 ROOT = Path(__file__).resolve().parent.parent
@@ -191,10 +191,6 @@ def fmt(value) -> str:
     return "-" if value is None else f"{value:.2f}"
 
 
-def write_section(path: Path, text: str) -> None:
-    write_results_section(path, "Solve", text)
-
-
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--tasks", default=",".join(TASKS))
@@ -237,9 +233,7 @@ def main(argv=None) -> int:
             print(json.dumps(comparison[-1]), flush=True)
     loads.append(load_text())
     text = section(args, results, growth, comparison, time.perf_counter() - started, loads)
-    print(text)
-    if args.write:
-        write_section(Path(args.write), text)
+    publish(text, args.write, "Solve")
     return 0
 
 

@@ -30,7 +30,7 @@ sys.path.insert(0, str(ROOT))
 from optimizer.sweep.engines import LocalPool  # noqa: E402
 from optimizer.sweep.runner import run_sweep  # noqa: E402
 from optimizer.sweep.spec import load_sweep  # noqa: E402
-from results_file import write_section as write_results_section
+from results_file import publish
 
 GRID = {"slope_deg": [10.0, 15.0, 20.0], "friction": [0.7, 0.85, 1.0]}
 CONFIGS = [(1, "none"), (1, "neighbour"), (2, "none"), (2, "neighbour")]
@@ -117,10 +117,6 @@ def section(knots: int, runs: list[dict], elapsed: float) -> str:
         *table(runs), "", *ratios(runs), ""])
 
 
-def write_section(path: Path, text: str) -> None:
-    write_results_section(path, "Sweep", text)
-
-
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--knots", type=int, default=10)
@@ -133,9 +129,7 @@ def main(argv=None) -> int:
             runs.append(one_run(Path(tmp), args.knots, workers, warm))
             print(table(runs)[-1], flush=True)
     text = section(args.knots, runs, time.perf_counter() - started)
-    print(text)
-    if args.write:
-        write_section(Path(args.write), text)
+    publish(text, args.write, "Sweep")
     return 0
 
 
