@@ -29,7 +29,7 @@ import pinocchio as pin
 
 from ..planfile import response_gains
 from .knot_response import knot_responses
-from .linear_margin import best_linear_margin, certify_gains
+from .linear_margin import plan_margin
 
 KNOT_TIME_TOL = 1e-9   # s: a sample this close to a knot's time takes the knot's values
 
@@ -77,7 +77,7 @@ def knot_gains(plan, point: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray
     force, torque, margin = [], [], []
     for k, response in knot_responses(plan, disturbance=point):
         rows = response.limit_rows()
-        linear = best_linear_margin(rows) if stored is None else certify_gains(rows, stored[k])
+        linear = plan_margin(rows, None if stored is None else stored[k])
         _, jc_j, _, je_j = response.split()
         active = np.flatnonzero(response.active)
         full = np.zeros((response.nc, 3, response.dim))

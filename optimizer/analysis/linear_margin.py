@@ -149,3 +149,12 @@ def best_linear_margin(rows: LimitRows, initial_gains=None) -> LinearMargin:
         return fallback
     candidate = certify_gains(rows, x[:-1].reshape((n_gain, d), order="F") / rho)
     return candidate if candidate.rho >= fallback.rho else fallback
+
+
+def plan_margin(rows: LimitRows, stored_gains=None) -> LinearMargin:
+    """The figure a plan's own certifying gains give at a knot, or the best linear one when it has none.
+
+    ``stored_gains`` (3 na, d) are the knot's entry of the plan's ``response_gains_<p>``
+    (:func:`optimizer.planfile.response_gains`), or None.
+    """
+    return best_linear_margin(rows) if stored_gains is None else certify_gains(rows, stored_gains)

@@ -15,9 +15,10 @@ from dataclasses import dataclass
 import numpy as np
 import pinocchio as pin
 
+from ..planfile import response_gains
 from ..problem.requirement import from_json, required_margins
 from .knot_response import PlanRobot, knot_responses
-from .linear_margin import best_linear_margin
+from .linear_margin import best_linear_margin, plan_margin
 
 # Below 5 % of body weight a plan rejects hardly any push: a warning level of
 # our own choosing (no standard states one), overridable per command.
@@ -157,9 +158,10 @@ def plan_requirements(meta: dict) -> list:
 
 
 def linear_bottleneck(plan, knot: int, point: int) -> str:
-    """The limit that sets the best linear-response margin of ``plan`` at ``knot``."""
+    """The limit that sets ``plan``'s certified margin at ``knot``: with its own gains when it carries them."""
     _, response = next(knot_responses(plan, [knot], point))
-    return best_linear_margin(response.limit_rows()).limiting
+    stored = response_gains(plan, point)
+    return plan_margin(response.limit_rows(), None if stored is None else stored[knot]).limiting
 
 
 def plan_shortfalls(plan, requirements, warn_below: float | None = None) -> list:
