@@ -24,7 +24,7 @@ from optimizer.analysis.plan_check import check_plan
 from optimizer.cli import main
 from optimizer.planfile import load_plan, save_plan
 from optimizer.planner import solve
-from optimizer.problem.task import load_task
+from optimizer.problem.task import load_task, task_from_mapping
 from optimizer.transcription.objectives import OBJECTIVES as REGISTERED_OBJECTIVES
 
 TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
@@ -315,6 +315,26 @@ def test_ramp_friction_floor_is_the_inclined_plane_condition():
         needed.append(max(abs(total @ t1), abs(total @ t2)) / (total @ n) / math.cos(math.pi / m))
     np.testing.assert_allclose(floors, needed, rtol=0.02)
     assert report.summary()["friction_floor_scale"] * mu == pytest.approx(max(needed), rel=0.02)
+
+
+def test_a_hold_plan_on_the_ramp_stops_being_feasible_at_the_inclined_plane_friction():
+    # Inclined plane (textbook): a body at rest on a slope theta needs mu >= tan(theta); per axis
+    # of the plan's inscribed m-facet pyramid that is mu >= tan(theta) / cos(pi / m). The demo
+    # ramp's plan moves, so its whole-plan floor is set by its accelerations (checked above
+    # against Newton); the same ramp, robot and start held still (no hand targets, regularizer
+    # objective: nothing asks it to move) must stop being feasible at the inclined plane's mu.
+    raw = copy.deepcopy(load_task("tasks/steep_ramp.yaml").raw)
+    raw.pop("hand_targets")
+    raw["name"] = "steep_ramp_hold"
+    task = task_from_mapping(raw, "tasks/steep_ramp_hold.yaml")
+    outcome = solve(task, "feasible", knots=6)
+    assert outcome.success, [(s.objective, s.status) for s in outcome.stages]
+    plan = outcome.plan
+    slope = math.radians(raw["stance"]["terrain"]["slope_deg"])
+    m, mu = plan.meta["friction_pyramid"]["facets"], plan.meta["friction"][0]
+    report = certify_plan(plan, check=False, change=ModelChange())
+    assert report.summary()["friction_floor_scale"] * mu == pytest.approx(math.tan(slope) / math.cos(math.pi / m),
+                                                                          rel=0.02)
 
 
 def test_lowering_friction_never_raises_a_margin():

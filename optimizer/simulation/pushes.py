@@ -26,7 +26,6 @@ import pinocchio as pin
 
 from ..analysis.certify import certify_response
 from ..analysis.knot_response import PlanRobot, knot_response, torque_limits
-from ..analysis.linear_margin import best_linear_margin
 from .reference import PlanReference, pd_gains
 from .rollout import Push, Rollout, SurvivalRules
 from .scene import ContactSettings, build_scene
@@ -228,7 +227,7 @@ class Simulator:
         cert, response = self.certified_direction(k)
         margin = float(self.plan.margin[k]) if self.disturbance == 0 else float(self.plan.margins[k, self.disturbance])
         u_dir = np.asarray(cert.weakest_u, float) / np.linalg.norm(cert.weakest_u)
-        limit = linear_limit_along(response, u_dir)
+        limit = linear_limit_along(response, u_dir, self.reference.response_gains(k))
         scale = max(margin, SMALLEST_SCALE * self.weight)
         start = self.push_at(k, 0.0, u_dir).start
         trials, last = 0, ""
@@ -285,15 +284,15 @@ def stance_joints(robot: PlanRobot, plan) -> np.ndarray:
     return np.abs(jc[rows, 6:]).max(axis=0, initial=0.0) > 1e-9
 
 
-def linear_limit_along(response, u_dir) -> float:
+def linear_limit_along(response, u_dir, gains) -> float:
     """Push size [N] along unit ``u_dir`` at which the informed response meets its first limit.
 
     Each limit row ``a_u . u + a_lambda . dlambda <= b`` with ``dlambda = K u``
+    (``gains`` K, shape (3 na, d): the response informed mode applies)
     reaches its room at ``b / ((a_u + K^T a_lambda) . u_dir)`` when that rate
     is positive (the same rows as the linear-gain margin, one-sided).
     """
     rows = response.limit_rows()
-    gains = best_linear_margin(rows).gains
     d = rows.dim
     rate = (rows.a_ub[:, :d] + rows.a_ub[:, d:] @ gains) @ u_dir
     with np.errstate(divide="ignore", invalid="ignore"):
