@@ -26,6 +26,7 @@ import pinocchio as pin
 
 from ..analysis.certify import certify_response
 from ..analysis.knot_response import PlanRobot, knot_response, torque_limits
+from ..errors import PlanFileError
 from .reference import PlanReference, pd_gains
 from .rollout import Push, Rollout, SurvivalRules
 from .scene import ContactSettings, build_scene
@@ -172,7 +173,7 @@ class Simulator:
         self.scene = build_scene(plan, surfaces, self.settings.contact, frames)
         angles = np.array([self.scene.joint_angles(q) for q in plan.q])
         self.reference = PlanReference(plan, angles, disturbance)
-        self.limits = torque_limits(plan.meta)
+        self.limits = actuator_limits(plan.meta)
         self._robot = PlanRobot(plan.meta, disturbance)
         stance = stance_joints(self._robot, plan)
         full_error = np.where(stance, self.settings.stance_full_error, self.settings.full_error)
@@ -275,6 +276,20 @@ class Simulator:
         mujoco.mj_setState(m, d, self._start_states[key], kind)
         mujoco.mj_forward(m, d)
         return self.rollout(mode).run(push.ends + s.settle, push, s.rules, watch_from=begin)
+
+
+def actuator_limits(meta: dict) -> tuple[np.ndarray, np.ndarray]:
+    """Torque limits (lower, upper), (nj,) each [N m], of the actuators the replay clips at.
+
+    A plan made with a ``torque_reserve`` r meets (and is certified against)
+    its ``torque_limits``, the actuators' limits times ``1 - r``; the reserve
+    is for the tracking controller, so the replay clips at the actuators' own.
+    """
+    lower, upper = torque_limits(meta)
+    reserve = float(meta.get("torque_reserve", 0.0))
+    if not 0.0 <= reserve < 1.0:
+        raise PlanFileError("plan", "meta.torque_reserve", "a fraction in [0, 1)", reserve)
+    return lower / (1.0 - reserve), upper / (1.0 - reserve)
 
 
 def stance_joints(robot: PlanRobot, plan) -> np.ndarray:
