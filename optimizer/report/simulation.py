@@ -75,7 +75,9 @@ def push_figure(documents) -> Figure:
     handles += [Line2D([], [], marker=markers[t], color=palette.MUTED, markeredgecolor=palette.INK,
                        linestyle="none", markersize=7, label=t) for t in tasks if t]
     handles += [Line2D([], [], color=palette.MUTED, label="survived = certified"),
-                Line2D([], [], color=palette.MUTED, linestyle=":", label="half the certified margin")]
+                Line2D([], [], color=palette.MUTED, linestyle=":", label="half the certified margin"),
+                Line2D([], [], marker="o", markersize=11, markerfacecolor="none", markeredgecolor=palette.DANGER,
+                       markeredgewidth=1.4, linestyle="none", label="fails without a push")]
     axes[1].legend(handles=handles, loc="upper left", bbox_to_anchor=(1.01, 1.0))
     return fig
 
