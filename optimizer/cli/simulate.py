@@ -79,6 +79,10 @@ def run(args) -> int:
     task = load_task(args.task) if args.task else None
     inputs = simulation_inputs(plan, build_model(args.plan, plan.meta["urdf"]), task)
     sim = Simulator(plan, inputs.surfaces, inputs.targets, inputs.hand_frame, settings, args.disturbance)
+    reserve = float(plan.meta.get("torque_reserve", 0.0))
+    if reserve > 0:
+        inputs.notes.append(f"torques: the plan keeps {100 * reserve:g} % of every limit for the controller; "
+                            "the replay clips at the full limits")
     nominal = sim.nominal()
     modes = ("informed", "blind") if args.mode == "both" else (args.mode,)
     pushes = []
