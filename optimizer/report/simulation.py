@@ -22,9 +22,6 @@ from ..files import atomic_output
 from . import palette
 
 SIZE = (10.0, 4.8)   # inches
-CAPTION = ("Largest push at the hand along the certified weakest direction that the simulated robot survives, "
-           "against the plan's certified margin at that knot. Solid line: survived = certified; dotted: half of it. "
-           "Arrow: survived the largest push tried; red ring: fails without any push.")
 MODES = ("informed", "blind")
 TITLES = {"informed": "informed: plan torques + response to the push + PD",
           "blind": "blind: plan torques + PD only"}
@@ -88,4 +85,4 @@ def write_push_figure(documents, path) -> None:
     with palette.figure_style():
         fig = push_figure(documents)
         with atomic_output(path, suffix=path.suffix) as tmp:
-            fig.savefig(tmp, format=path.suffix[1:] or "png", dpi=palette.FIGURE_DPI)
+            fig.savefig(tmp, format=path.suffix[1:].lower() or "png", dpi=palette.FIGURE_DPI)
