@@ -18,7 +18,7 @@ from optimizer.transcription.structure import structure_of
 
 STEPPING = ["landing_pick", "wall_brace"]
 OBJECTIVES = ["robust", "torque"]
-KNOTS = 12          # the smallest count that keeps two knots in every swing of both demos
+KNOTS = 10          # the smallest count that keeps two knots in every swing of both demos
 _SOLVED: dict = {}
 
 
@@ -124,7 +124,7 @@ def test_a_window_beyond_the_horizon_is_refused():
 
 
 def test_a_swing_between_two_knots_is_refused_at_that_knot_count():
-    task = load_task("tasks/landing_pick.yaml").with_knots(8)   # a step of 0.57 s: one knot in a 0.7 s swing
+    task = load_task("tasks/landing_pick.yaml").with_knots(6)   # a step of 0.8 s: one knot in a 0.9 s swing
     with pytest.raises(TaskError, match=r"stance\.schedule\.foot_\w+\[1\]\.window.*at least 2 knots"):
         structure_of(task)
 
