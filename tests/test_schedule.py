@@ -111,7 +111,7 @@ def landing_mapping():
 
 def test_overlapping_stance_intervals_are_refused_with_the_field():
     data, path = landing_mapping()
-    data["stance"]["schedule"]["foot_fl"][1]["window"] = [0.5, 4.0]   # starts before [0, 0.6] ends
+    data["stance"]["schedule"]["foot_fl"][1]["window"] = [0.4, 4.0]   # starts before [0, 0.5] ends
     with pytest.raises(TaskError, match=r"stance\.schedule\.foot_fl\[1\]\.window.*must not overlap"):
         task_from_mapping(data, path)
 
@@ -133,11 +133,11 @@ def test_a_window_with_every_foot_in_the_air_is_too_little_support():
     # Newton: no contact force means nothing balances gravity.
     data, path = landing_mapping()
     for frame in ("foot_rl", "foot_rr"):
-        data["stance"]["schedule"][frame] = [{"window": [0.0, 0.5]}, {"window": [1.5, 4.0]}]
-    data["stance"]["schedule"]["foot_fr"] = [{"window": [0.0, 0.5]}, {"window": [1.5, 4.0]}]
+        data["stance"]["schedule"][frame] = [{"window": [0.0, 0.4]}, {"window": [1.5, 4.0]}]
+    data["stance"]["schedule"]["foot_fr"] = [{"window": [0.0, 0.4]}, {"window": [1.5, 4.0]}]
     findings = [f for f in run_checks(task_from_mapping(data, path)) if f.check == "support"]
     assert findings and findings[0].impossible
-    assert "from 0.60 s to 1.30 s only no contact" in findings[0].what
+    assert "from 0.50 s to 1.40 s only no contact" in findings[0].what
 
 
 def test_a_swing_faster_than_the_legs_can_move_is_refused():
