@@ -8,6 +8,7 @@ import pinocchio as pin
 import pytest
 
 from certify_checks import check_plan_against_sampled_lps
+from optimizer.analysis.export import resample
 from optimizer.analysis.plan_check import check_plan
 from optimizer.analysis.presolve import run_checks
 from optimizer.errors import TaskError
@@ -151,3 +152,16 @@ def test_a_swing_faster_than_the_legs_can_move_is_refused():
     assert findings and findings[0].impossible
     assert "stance.schedule.foot_fl[1]" in findings[0].what
     assert findings[0].shortfall == pytest.approx(np.hypot(0.40, 0.12) / 17.2 - 0.01, rel=1e-3)
+
+
+def test_export_flags_every_sample_with_its_step_and_keeps_swing_forces_at_zero():
+    # Reference: the plan file's own contact_active (docs/plan-files.md) and the export rule
+    # (docs/export.md): a sample between knots k and k + 1 carries knot k's stance flags, and
+    # a contact out of stance pushes with nothing.
+    _, plan = stepping_plan("landing_pick", "robust")
+    trajectory = resample(plan, 50.0)
+    step = np.clip(np.searchsorted(plan.t, trajectory.t + 1e-9, side="right") - 1, 0, len(plan.t) - 1)
+    assert np.array_equal(trajectory.contact_active, plan.contact_active[step])
+    assert (~trajectory.contact_active).any()
+    assert np.all(trajectory.contact_forces[~trajectory.contact_active] == 0.0)
+    assert np.all(trajectory.gain_force[~trajectory.contact_active] == 0.0)
