@@ -5,7 +5,9 @@ import numpy as np
 import pytest
 from scipy.optimize import linprog
 
+from certify_checks import demo_standing, sampled_bounds, standing_plan
 from optimizer.analysis.certify import Settings, certify_response
+from optimizer.analysis.knot_response import knot_responses
 from optimizer.analysis.polytope import EmptyResidualSet, SupportLP, nearest_point, project
 from optimizer.analysis.response import KnotResponse
 
@@ -158,3 +160,23 @@ def test_nearest_point_on_points_a_million_units_away():
     pts = rng.uniform(-1e6, 1e6, size=(12, 3)) + np.array([3e6, 0.0, 0.0])
     x = nearest_point(pts)
     assert (pts @ x >= x @ x * (1 - 1e-6)).all()
+
+
+def test_figure_does_not_depend_on_the_order_of_the_limit_rows():
+    # The residual set does not depend on how its rows are listed, so neither may its figure.
+    # A 6-D wrench at the demo robot's hand, standing with the arm swept (Pinocchio statics);
+    # in some row orders the support LPs return other optimal vertices and Qhull's default
+    # merging fails on them. Reference: SciPy linprog (HiGHS) on the lifted LP written from
+    # the plan file alone (tests/certify_checks.py): its smallest sampled support value is an
+    # upper bound of the figure, its hull's inscribed radius a lower bound.
+    plan = standing_plan(**demo_standing(sweep=0.6, knots=3), kind="wrench")
+    (_, resp), = knot_responses(plan, [2])
+    rows = resp.limit_rows()
+    reference = project(SupportLP(rows.a_ub, rows.b_ub, rows.a_eq, rows.dim, 1e6), 1e-7)
+    lower, upper = sampled_bounds(plan, 2, 200)
+    assert reference.complete and lower - 1e-6 <= reference.rho <= upper + 1e-6
+    rng = np.random.default_rng(0)
+    for _ in range(16):
+        order = rng.permutation(rows.a_ub.shape[0])
+        proj = project(SupportLP(rows.a_ub[order], rows.b_ub[order], rows.a_eq, rows.dim, 1e6), 1e-7)
+        assert proj.complete and proj.rho == pytest.approx(reference.rho, rel=1e-6)
