@@ -9,7 +9,7 @@ import pytest
 
 from certify_checks import (MODELS, LiftedLP, check_plan_against_sampled_lps, demo_standing,
                             least_squares_margin, sampled_bounds, standing_plan)
-from optimizer.analysis.certify import Settings, certify_plan
+from optimizer.analysis.certify import KnotCertificate, PlanCertificate, Settings, certify_plan
 from optimizer.analysis.knot_response import knot_responses
 
 BOX_FEET = ["foot_fl", "foot_fr", "foot_hl", "foot_hr"]
@@ -202,3 +202,22 @@ def test_knot_responses_use_pinocchio_jacobians_and_plan_data(demo_plan):
         np.testing.assert_array_equal(resp.tau, demo_plan.tau[k])
         # pyramid rows: every planned force satisfies g . f <= 0 (inscribed 4-facet pyramid)
         assert (np.einsum("cmi,ci->cm", resp.facets, resp.forces) <= 1e-9).all()
+
+
+def _knot_with_bottleneck(k: int, names) -> KnotCertificate:
+    return KnotCertificate(knot=k, time=0.1 * k, rho=10.0, lower=10.0, upper=10.0, direction=np.eye(3)[0],
+                           bottleneck=list(names), planned=5.0, ratio=0.5, facets=6, vertices=8, lps=10,
+                           method="projection")
+
+
+def test_most_frequent_bottleneck_ties_go_to_the_earliest_knot_then_row():
+    # Every limit below is in the bottleneck at both knots: a tie, broken by the limit met
+    # first (knot 0, rows in limit-row order), whatever the order of string hashing.
+    names = [f"joint_{i} torque (upper)" for i in range(12)]
+    cert = PlanCertificate(knots=[_knot_with_bottleneck(0, names), _knot_with_bottleneck(1, names[::-1])],
+                           disturbance={}, settings=Settings())
+    assert cert.summary()["most_frequent_bottleneck"] == names[0]
+    assert cert.summary()["bottleneck_knots"] == 2
+    # a limit at more knots wins over the tie
+    cert.knots.append(_knot_with_bottleneck(2, [names[5]]))
+    assert cert.summary()["most_frequent_bottleneck"] == names[5]

@@ -357,8 +357,13 @@ class PlanCertificate:
         return min(self.knots, key=lambda c: c.rho)
 
     def bottleneck_counts(self) -> collections.Counter:
-        """How many knots each limit is part of the bottleneck at."""
-        return collections.Counter(name for c in self.knots for name in set(c.bottleneck))
+        """How many knots each limit is part of the bottleneck at.
+
+        Limits are counted in the order they are first met (knot by knot,
+        each knot's bottleneck in limit-row order), so ``most_common`` breaks
+        ties the same way on every run: the earlier knot, then the earlier row.
+        """
+        return collections.Counter(name for c in self.knots for name in dict.fromkeys(c.bottleneck))
 
     def problems(self) -> list:
         """Plain-language list of what failed (empty when the plan is certified)."""
