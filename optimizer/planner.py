@@ -319,12 +319,13 @@ class Planner:
                                         required_margins(task.requirements, task.times, len(task.disturbances)))
         self._listener = None if progress is None else _listener(progress, objective, transcription)
         supervisor.phase(f"solving the {objective} stage")
+        log_start = built.log.stat().st_size if built.log.exists() else 0
         try:
             result: SolverResult = built.solver.solve(np.clip(x0, lbx, ubx), p, lbx, ubx, transcription.lbg,
                                                       transcription.ubg)
         finally:
             self._listener = None
-            _append_log(built.log, log_path, objective)
+            _append_log(built.log, log_start, log_path, objective)
         outcome.stages.append(StageReport(objective, result.status, result.success, result.iterations,
                                           result.wall_time, built.unreported_build_time, result.max_violation,
                                           result.message, result.eval_time))
@@ -398,12 +399,20 @@ def _listener(progress, objective, transcription):
     return listen
 
 
-def _append_log(source: Path, target, title: str) -> None:
+def _append_log(source: Path, start: int, target, title: str) -> None:
+    """Append to ``target`` what this solve wrote to ``source`` (from byte ``start`` on).
+
+    A built solver's log file keeps growing with every solve it runs; only
+    the part after ``start`` belongs to this one.
+    """
     if target is None or not source.exists():
         return
+    with open(source, "rb") as log:
+        log.seek(start)
+        text = log.read().decode("utf-8", errors="replace")
     with open(target, "a", encoding="utf-8") as out:
         out.write(f"\n===== brace stage: {title} =====\n")
-        out.write(source.read_text(encoding="utf-8", errors="replace"))
+        out.write(text)
 
 
 def _initial_gains(task, arrays) -> dict:

@@ -99,3 +99,16 @@ def test_planners_in_threads_keep_their_own_builds(two_robot_files):
         first, second = pool.map(knee_velocity_bound, [plain, changed])
     assert second == pytest.approx(4.0, rel=1e-12)
     assert first == pytest.approx(plain.robot.velocity_limit[j], rel=1e-12)
+
+
+def test_each_solve_log_holds_that_solve_only(two_robot_files, tmp_path):
+    # A planner reuses its built solvers; Ipopt's own log ends every solve with one "EXIT:"
+    # line, so each solve's log must hold one stage header and one EXIT line.
+    plain, _ = two_robot_files
+    logs = [tmp_path / f"solve-{i}.log" for i in range(3)]
+    with Planner(knots=3) as planner:
+        for log in logs:
+            assert planner.seed(plain, log_path=log).success
+    for log in logs:
+        text = log.read_text(encoding="utf-8")
+        assert text.count("===== brace stage: feasible") == 1 and text.count("EXIT:") == 1, log.name
