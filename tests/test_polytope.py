@@ -180,3 +180,28 @@ def test_figure_does_not_depend_on_the_order_of_the_limit_rows():
         order = rng.permutation(rows.a_ub.shape[0])
         proj = project(SupportLP(rows.a_ub[order], rows.b_ub[order], rows.a_eq, rows.dim, 1e6), 1e-7)
         assert proj.complete and proj.rho == pytest.approx(reference.rho, rel=1e-6)
+
+
+def test_planned_margin_near_zero_is_judged_with_an_absolute_and_a_relative_tolerance():
+    # Fixed 3-joint arm with torque limits only and a full-rank tip Jacobian: dtau = -J^T F is
+    # forced, so the residual set is a parallelepiped and rho = min_i room_i / |[J^T]_i|
+    # (manipulator force polytope, see above). One joint is 1e-3 N m from its limit, so the
+    # exact margin is about 1e-3 N. A planned margin 0.5 uN above it is rounding (MARGIN_ATOL =
+    # 1e-6 N plus 1e-6 relative); 10 uN above it (1 % of the margin) is a margin the plan lacks.
+    jac = np.array([[0.9, 0.2, -0.1], [0.1, 0.8, 0.3], [-0.2, 0.1, 0.7]])
+    lower, upper = np.full(3, -10.0), np.full(3, 10.0)
+
+    def status(tau, planned):
+        expected = np.min(np.minimum(upper - tau, tau - lower) / np.linalg.norm(jac.T, axis=1))
+        cert, _ = certify_response(fixed_arm(jac, tau, lower, upper), planned=expected + planned(expected))
+        assert cert.exact and cert.rho == pytest.approx(expected, rel=1e-6)
+        return cert.status
+
+    near_zero = np.array([10.0 - 1e-3, 2.0, -1.0])
+    assert status(near_zero, lambda rho: 0.0) == "ok"
+    assert status(near_zero, lambda rho: 5e-7) == "ok"
+    assert status(near_zero, lambda rho: 1e-5) == "margin above exact"
+    # far from zero the relative part rules: 1e-5 relative above a figure of several N fails
+    far = np.array([5.0, 2.0, -1.0])
+    assert status(far, lambda rho: 5e-7 * rho) == "ok"
+    assert status(far, lambda rho: 1e-5 * rho) == "margin above exact"

@@ -25,7 +25,13 @@ from .response import KnotResponse
 DEFAULT_TOL = 1e-7
 DEFAULT_CAP = 1e6
 DEFAULT_MAX_LPS = 400
-MARGIN_RTOL = 1e-6
+MARGIN_RTOL = 1e-6   # a planned margin may exceed the figure by MARGIN_ATOL + MARGIN_RTOL |figure|
+MARGIN_ATOL = 1e-6   # [N]: the support LPs' and hulls' rounding, which a relative term alone misses near 0 N
+
+
+def margin_within(planned: float, figure: float) -> bool:
+    """``planned`` does not exceed ``figure`` [N] by more than the stated tolerance."""
+    return planned <= figure + MARGIN_ATOL + MARGIN_RTOL * abs(figure)
 
 
 @dataclass
@@ -163,10 +169,10 @@ class KnotCertificate:
 
     @property
     def margin_ok(self) -> bool:
-        """The planned margin is proven not to exceed the figure (relative tolerance 1e-6)."""
+        """The planned margin is proven not to exceed the figure (within :func:`margin_within`)."""
         if not math.isfinite(self.planned):
             return True
-        return self.planned <= self.rho + MARGIN_RTOL * max(abs(self.rho), 1e-9)
+        return margin_within(self.planned, self.rho)
 
     @property
     def status(self) -> str:
@@ -177,7 +183,7 @@ class KnotCertificate:
         if not self.margin_ok:
             if self.exact:
                 return "margin above exact"
-            above = self.planned > self.upper + MARGIN_RTOL * max(abs(self.upper), 1e-9)
+            above = not margin_within(self.planned, self.upper)
             return "margin above upper bound" if above else "margin not proven (between the bounds)"
         return "ok"
 
