@@ -11,6 +11,9 @@ from certify_checks import (MODELS, LiftedLP, check_plan_against_sampled_lps, de
                             least_squares_margin, sampled_bounds, standing_plan)
 from optimizer.analysis.certify import KnotCertificate, PlanCertificate, Settings, certify_plan
 from optimizer.analysis.knot_response import knot_responses
+from optimizer.report.page import certification_html, reading, table_html
+from optimizer.report.table import Entry, row, text_table, titles
+from optimizer.sweep.page import findings, results_table
 
 BOX_FEET = ["foot_fl", "foot_fr", "foot_hl", "foot_hr"]
 
@@ -221,3 +224,29 @@ def test_most_frequent_bottleneck_ties_go_to_the_earliest_knot_then_row():
     # a limit at more knots wins over the tie
     cert.knots.append(_knot_with_bottleneck(2, [names[5]]))
     assert cert.summary()["most_frequent_bottleneck"] == names[5]
+
+
+def test_tables_and_pages_head_the_figures_by_what_they_hold():
+    # A 6-D projection stopped after 14 LPs holds a bound pair (see above): every table, page
+    # and sweep page must call its figure a lower bound, never "exact"; an exact one, "exact".
+    plan = standing_plan(**demo_standing(), kind="wrench")
+    exact = Entry("exact", plan, certify_plan(plan, check=False))
+    bounded = Entry("bounded", plan, certify_plan(plan, check=False, settings=Settings(max_lps=14, samples=50)))
+    assert exact.figure == "exact" and bounded.figure == "lower bound"
+    for entries, word in (([exact], "exact"), ([bounded], "lower bound"), ([exact, bounded], "exact or lower bound")):
+        rows = [row(e) for e in entries]
+        assert f"{word} min [N]" in titles(rows) and f"{word} mean [N]" in titles(rows)
+        assert f"{word} min [N]" in text_table(rows)[0]
+        head = table_html(entries).split("</thead>")[0]
+        assert f"{word} min [N]" in head
+    lone = [bounded]
+    assert "exact" not in text_table([row(bounded)])[0] and "exact" not in table_html(lone).split("</thead>")[0]
+    assert "lower bound margin" in reading(lone)[0] and "exact" not in reading(lone)[0]
+    assert "(0 exact)" in certification_html(lone) and "checked exactly" not in certification_html(lone)
+    # the sweep page heads its columns by the stored records' figure
+    manifest = {"axes": [], "objectives": ["robust"]}
+    record = {"variant": "v0000", "objective": "robust", "status": "solved", "margin_min_exact_N": 1.0,
+              "margin_mean_exact_N": 2.0, "margin_figure": "lower bound", "low_margin_knots": 0}
+    assert "smallest lower bound [N]" in results_table(manifest, [record])
+    assert "smallest lower bound margin" in findings(manifest, [record])[0]
+    assert "smallest exact [N]" in results_table(manifest, [dict(record, margin_figure="exact")])

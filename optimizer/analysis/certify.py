@@ -29,6 +29,22 @@ MARGIN_RTOL = 1e-6   # a planned margin may exceed the figure by MARGIN_ATOL + M
 MARGIN_ATOL = 1e-6   # [N]: the support LPs' and hulls' rounding, which a relative term alone misses near 0 N
 
 
+def figure_name(exact: int, total: int) -> str:
+    """What ``total`` knots' certified figures are when ``exact`` of them are exact.
+
+    ``"exact"``, ``"lower bound"`` (the proven lower bound of a bound pair) or
+    ``"exact or lower bound"``: the word every table and page heads these
+    figures with.
+    """
+    return "exact" if exact == total else ("lower bound" if exact == 0 else "exact or lower bound")
+
+
+def common_figure(names) -> str:
+    """One heading for figures of several plans (names from :func:`figure_name`; empty: ``"exact"``)."""
+    kinds = set(names)
+    return kinds.pop() if len(kinds) == 1 else ("exact" if not kinds else "exact or lower bound")
+
+
 def margin_within(planned: float, figure: float) -> bool:
     """``planned`` does not exceed ``figure`` [N] by more than the stated tolerance."""
     return planned <= figure + MARGIN_ATOL + MARGIN_RTOL * abs(figure)
@@ -362,6 +378,11 @@ class PlanCertificate:
     def smallest(self) -> KnotCertificate:
         return min(self.knots, key=lambda c: c.rho)
 
+    @property
+    def figure(self) -> str:
+        """What the knots' ``rho`` are: see :func:`figure_name`."""
+        return figure_name(sum(c.exact for c in self.knots), len(self.knots))
+
     def bottleneck_counts(self) -> collections.Counter:
         """How many knots each limit is part of the bottleneck at.
 
@@ -397,7 +418,7 @@ class PlanCertificate:
             "bottleneck_knots": times, "planned_over_exact_min": _num(min(ratios)) if ratios else None,
             "planned_over_exact_max": _num(max(ratios)) if ratios else None,
             "margin_above_exact_knots": sum(not c.margin_ok for c in self.knots),
-            "exact_knots": sum(c.exact for c in self.knots),
+            "exact_knots": sum(c.exact for c in self.knots), "figure": self.figure,
             "smallest_rho_upper_N": _num(low.upper), "smallest_is_exact": low.exact,
             "physics_checked": self.checks is not None,
             **self._changed_summary(),
