@@ -22,13 +22,13 @@ from pathlib import Path
 import pytest
 import yaml
 
+from flat_ground import flat_stance
+
 ROOT = Path(__file__).resolve().parents[1]
-FEET = {"foot_fl": (0.25, 0.18), "foot_fr": (0.25, -0.18), "foot_rl": (-0.25, 0.18), "foot_rr": (-0.25, -0.18)}
 TASK = {
     "robot": str(ROOT / "models" / "stilt.yaml"),
     "horizon": {"duration": 2.0, "knots": 5},
-    "stance": {"contacts": {f: {"position": [x, y, 0.0], "normal": [0, 0, 1], "friction": 0.8}
-                            for f, (x, y) in FEET.items()}},
+    "stance": flat_stance(),
     "hand_targets": [{"position": [0.7, 0.1, 0.35], "window": [0.8, 1.0], "label": "pick"}],
     "objective": "robust",
 }

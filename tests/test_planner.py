@@ -15,11 +15,11 @@ import numpy as np
 import pytest
 import yaml
 
+from flat_ground import flat_stance
 from optimizer.planner import Planner
 from optimizer.problem.task import load_task
 
 ROOT = Path(__file__).resolve().parents[1]
-FEET = {"foot_fl": (0.25, 0.18), "foot_fr": (0.25, -0.18), "foot_rl": (-0.25, 0.18), "foot_rr": (-0.25, -0.18)}
 
 
 def write_task(folder: Path, robot_overrides: dict, name: str) -> Path:
@@ -29,8 +29,7 @@ def write_task(folder: Path, robot_overrides: dict, name: str) -> Path:
     robot["limits"] = robot_overrides
     (folder / f"{name}.yaml").write_text(yaml.safe_dump(robot), encoding="utf-8")
     task = {"robot": f"{name}.yaml", "horizon": {"duration": 1.0, "knots": 3},
-            "stance": {"contacts": {f: {"position": [x, y, 0.0], "normal": [0, 0, 1], "friction": 0.8}
-                                    for f, (x, y) in FEET.items()}},
+            "stance": flat_stance(),
             "objective": "feasible"}
     path = folder / f"task_{name}.yaml"
     path.write_text(yaml.safe_dump(task), encoding="utf-8")
