@@ -23,6 +23,8 @@ from .transcription.objectives import objective_named
 from .transcription.structure import structure_of
 
 PROBE_KNOTS = (6, 8)  # two small knot counts; the difference gives the nodes per knot
+_MEASURED: dict = {}  # the probes' transcription keys -> StageSize, measured once per process
+_MEASURED_MAX = 256
 
 
 @dataclass(frozen=True)
@@ -76,11 +78,26 @@ def stages_of(objective: str) -> list:
 
 
 def stage_size(task, objective: str, planner: Planner | None = None) -> StageSize:
-    """Measure one stage's NLP at :data:`PROBE_KNOTS` and split nodes into per-knot and fixed."""
+    """Measure one stage's NLP at :data:`PROBE_KNOTS` and split nodes into per-knot and fixed.
+
+    The sizes depend only on what the transcription reads besides its
+    parameters (:meth:`Planner.transcription_key` of both probes), so tasks
+    that differ in numbers alone are measured once per process.
+    """
     planner = planner or shared_planner()
+    probes = [task.with_knots(knots) for knots in PROBE_KNOTS]
+    key = tuple(planner.transcription_key(small, objective) for small in probes)
+    if key not in _MEASURED:
+        if len(_MEASURED) >= _MEASURED_MAX:
+            _MEASURED.clear()
+        _MEASURED[key] = _measure(probes, objective, planner)
+    return _MEASURED[key]
+
+
+def _measure(probes, objective: str, planner: Planner) -> StageSize:
+    """Expand each probe's NLP and count its nodes."""
     counts = []
-    for knots in PROBE_KNOTS:
-        small = task.with_knots(knots)
+    for small in probes:
         transcription = Transcription(small.robot, planner.symbolic_robot(small.robot), structure_of(small),
                                       objective_named(objective), torque_gains=planner.torque_gains)
         nlp = transcription.nlp

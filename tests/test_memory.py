@@ -17,7 +17,7 @@ import yaml
 from optimizer.footprint import estimate_memory, stage_size
 from optimizer.memory import available_memory, parse_size
 from optimizer.planner import shared_planner
-from optimizer.problem.task import load_task
+from optimizer.problem.task import load_task, task_from_mapping
 from optimizer.transcription.nlp import Transcription
 from optimizer.transcription.objectives import objective_named
 from optimizer.transcription.structure import structure_of
@@ -54,6 +54,23 @@ def test_nodes_grow_linearly_with_knots():
     nodes = ca.Function("nlp", [nlp["x"], nlp["p"]], [nlp["f"], nlp["g"]]).expand().n_nodes()
     predicted = size.nodes_fixed + 16 * size.nodes_per_knot
     assert abs(predicted - nodes) <= 0.02 * nodes, (predicted, nodes)
+
+
+def test_sizes_measured_once_serve_tasks_that_differ_in_numbers_only():
+    """A ramp with another slope, friction and hand targets reads the same transcription with other
+    parameters: its sizes come from the first ramp's measurement, and they still predict CasADi's own
+    node count of its 16-knot NLP (within 2 %, as above)."""
+    data = yaml.safe_load(RAMP.read_text())
+    data["stance"]["terrain"].update(slope_deg=18.0, friction=0.6)
+    data["hand_targets"][0]["position"] = [0.8, 0.1, 0.45]
+    other = task_from_mapping(data, RAMP)
+    first = stage_size(load_task(RAMP), "robust")
+    assert stage_size(other, "robust") is first       # measured once: the very same record
+    big = other.with_knots(16)
+    nlp = Transcription(big.robot, shared_planner().symbolic_robot(big.robot), structure_of(big),
+                        objective_named("robust")).nlp
+    nodes = ca.Function("nlp", [nlp["x"], nlp["p"]], [nlp["f"], nlp["g"]]).expand().n_nodes()
+    assert abs(first.nodes_fixed + 16 * first.nodes_per_knot - nodes) <= 0.02 * nodes
 
 
 def test_robust_needs_more_than_feasible_and_knots_cost_memory():
