@@ -119,3 +119,22 @@ def test_task_memory_limit_is_read_and_checked(tmp_path, capsys):
     argv = ["solve", str(small), "--check-only", "--skip-checks", "--knots", "100", "--memory-limit", "64G"]
     assert main(argv) == 0                    # the command line overrides the task
     assert "64.0 GB set as the memory limit" in capsys.readouterr().out
+
+
+def test_memory_the_process_holds_is_not_counted_twice_against_what_is_available(monkeypatch):
+    """/proc/meminfo's MemAvailable (and a cgroup's room) leave out what this process holds already
+    (Linux kernel documentation, proc(5)); the estimate counts it, so without a --memory-limit the
+    solve is refused only when what it adds exceeds what is available."""
+    import optimizer.cli.solve as solve_cli
+    from optimizer.errors import TooLargeForMemory
+    from optimizer.memory import Available
+
+    task = load_task(RAMP).with_knots(6)
+    estimate = estimate_memory(task, "feasible")
+    adds = estimate.total - estimate.baseline
+    assert estimate.baseline > 64 * 2**20 and adds > 0     # a Python process with NumPy, CasADi, Pinocchio
+    monkeypatch.setattr(solve_cli, "available_memory", lambda: Available(adds + 32 * 2**20, "available here"))
+    solve_cli.check_memory(task, "feasible", None)         # fits, although total > available
+    monkeypatch.setattr(solve_cli, "available_memory", lambda: Available(adds - 32 * 2**20, "available here"))
+    with pytest.raises(TooLargeForMemory, match="available here"):
+        solve_cli.check_memory(task, "feasible", None)
