@@ -37,6 +37,9 @@ REQUIREMENT_BACKOFF = 1e-6
 
 register_family("terrain clearance", "clearance: collision shapes kept away from the terrain (link vs surface)",
                 "move the hand targets or footholds away from the named surface, or lower clearance.distance")
+register_family("self clearance", "self-collision: shapes of the robot kept apart (shape vs shape)",
+                "move the hand targets away from the named shapes' links, or lower the pair's distance in the "
+                "robot file (collision.self_pairs)")
 
 
 def velocity_names(robot) -> list[str]:
@@ -88,6 +91,7 @@ class Transcription:
         self._contacts(V, P)
         self._hand_targets(V, P)
         self._clearance(V, P)
+        self._self_clearance(V, P)
         if objective.robust:
             self._robustness(V, P)
         objective.add_constraints(V, self.constraints, self.context, self.disturbance_count)
@@ -109,6 +113,8 @@ class Transcription:
         layout.add("a", r.nv, K, scale=10.0)
         layout.add("tau", r.nj, K, scale=self.context.torque_scale)
         layout.add("lam", 3 * s.nc, K, scale=per_contact)
+        if s.self_pairs:
+            layout.add("separation", 4 * len(s.self_pairs), len(s.clearance_knots))
         if self.objective.robust:
             for p, slot in enumerate(s.disturbances):
                 layout.add(f"G{p}", 3 * s.nc * slot.dim, K, scale=per_contact)
@@ -181,6 +187,19 @@ class Transcription:
             V["q"][:, knots.start:knots.stop], planes)
         self.constraints.add("terrain clearance", values, knots, 0.0, INF, unit="m",
                              who=list(self.structure.clearance_labels))
+
+    def _self_clearance(self, V, P):
+        """Every self-collision pair at least its distance apart, through its separating plane per knot."""
+        knots = self.structure.clearance_knots
+        if self.functions.self_clearance is None or not len(knots):
+            return
+        shapes, pairs = self.robot.collision.shapes, self.structure.self_pairs
+        planes = ca.reshape(V["separation"], 4, len(pairs) * len(knots))
+        values = self._map(self.functions.self_clearance, len(knots))(
+            V["q"][:, knots.start:knots.stop], planes, ca.repmat(P["self_distances"], 1, len(knots)))
+        who = [label for (a, b), label in zip(pairs, self.structure.self_labels)
+               for _ in range(len(shapes[a].points) + len(shapes[b].points) + 1)]
+        self.constraints.add("self clearance", values, knots, 0.0, INF, unit="m", who=who)
 
     def _rooms(self, tau, lam, P):
         """Room left at every limit, (rows, K), for symbolic or numeric ``tau``, ``lam`` and parameters."""
