@@ -183,6 +183,25 @@ def test_fixed_start_breaking_a_pair_is_rejected_before_the_solve(tmp_path):
     assert found[0].impossible and 0.1 < found[0].shortfall < 0.2
 
 
+def test_check_model_flags_a_pair_broken_when_standing(tmp_path, capsys):
+    # Standing, the gripper is 0.47 m from the front-left thigh (Coal, checked here on the same posture).
+    robot = load_robot(ROOT / "models" / "stilt.yaml")
+    data = robot.model.createData()
+    pin.framesForwardKinematics(robot.model, data, robot.standing_posture)
+    shapes = {s.link: s for s in robot.collision.shapes}
+    geometry = []
+    for link in ("gripper", "fl_thigh"):
+        placement = data.oMf[robot.model.getFrameId(link, pin.FrameType.BODY)]
+        geometry += shape_geometry(shapes[link].points, shapes[link].radius, placement)
+    apart = coal.distance(*geometry, coal.DistanceRequest(), coal.DistanceResult())
+    for asked, code in ((apart - 0.01, 0), (apart + 0.01, 1)):
+        path = robot_file(tmp_path, [{"between": "gripper", "and": "fl_thigh", "distance": float(asked)}])
+        assert main(["check-model", str(path)]) == code
+        out = capsys.readouterr().out
+        assert f"least room standing: gripper/capsule0 vs fl_thigh/capsule0 {apart * 100:.1f} cm apart" in out
+        assert ("standing posture brings gripper/capsule0 vs fl_thigh/capsule0" in out) == (code == 1)
+
+
 def test_pair_no_posture_can_keep_ends_with_a_diagnosis_naming_it(tmp_path):
     # The upper arm hangs from the shoulder, 0.1 m above the body's top (URDF): no posture keeps it
     # 0.3 m from the body. Solved anyway (no pre-solve), no plan comes out and the diagnosis names
