@@ -39,6 +39,7 @@ from optimizer.transcription.structure import structure_of  # noqa: E402
 from results_file import publish
 
 TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space", "drawer_pull"]
+HEADINGS = {"terrain": "Clearance", "self": "Self-collision"}   # the RESULTS.md section of each --rows
 
 
 def without_clearance(task):
@@ -90,35 +91,23 @@ def measure(task, reference, objective, knots, rows: str = "terrain") -> dict:
     return out
 
 
-def self_rows_for(names, objective, knots) -> list[str]:
-    table = ["| task | self rows / variables | iterations (seed+objective) with / without | solve [s] with / without | "
-             "ratio | build [s] with / without | smallest pair distance with / without [cm] | mean margin with / without [N] |",
+def rows_for(names, objective, knots, rows: str = "terrain") -> list[str]:
+    """The Markdown table: per task the ``rows`` kind's count and cost, solved with and without them."""
+    count, distance = (("self rows / variables", "smallest pair distance") if rows == "self"
+                       else ("clearance rows", "smallest clearance"))
+    drop = without_self_pairs if rows == "self" else without_clearance
+    table = [f"| task | {count} | iterations (seed+objective) with / without | solve [s] with / without | "
+             f"ratio | build [s] with / without | {distance} with / without [cm] | mean margin with / without [N] |",
              "| --- | ---: | --- | --- | ---: | --- | --- | --- |"]
     for name in names:
         task = load_task(ROOT / "tasks" / f"{name}.yaml")
-        on = measure(task, task, objective, knots, "self")
-        off = measure(without_self_pairs(task), task, objective, knots, "self")
+        on = measure(task, task, objective, knots, rows)
+        off = measure(drop(task), task, objective, knots, rows)
+        size = f"{on['rows']} / {on['variables']}" if rows == "self" else f"{on['rows']}"
         table.append(
-            f"| {name} | {on['rows']} / {on['variables']} | {on['iterations']} / {off['iterations']} | "
-            f"{on['solve']:.1f} / {off['solve']:.1f} | {on['solve'] / off['solve']:.2f} | "
-            f"{on['build']:.1f} / {off['build']:.1f} | {100 * on['clearance']:.1f} ({on['where']}) / "
-            f"{100 * off['clearance']:.1f} ({off['where']}) | {on['margin']:.1f} / {off['margin']:.1f} |")
-        print(table[-1], flush=True)
-    return table
-
-
-def rows_for(names, objective, knots) -> list[str]:
-    table = ["| task | clearance rows | iterations (seed+objective) with / without | solve [s] with / without | "
-             "ratio | build [s] with / without | smallest clearance with / without [cm] | mean margin with / without [N] |",
-             "| --- | ---: | --- | --- | ---: | --- | --- | --- |"]
-    for name in names:
-        task = load_task(ROOT / "tasks" / f"{name}.yaml")
-        on = measure(task, task, objective, knots)
-        off = measure(without_clearance(task), task, objective, knots)
-        table.append(
-            f"| {name} | {on['rows']} | {on['iterations']} / {off['iterations']} | {on['solve']:.1f} / {off['solve']:.1f} | "
+            f"| {name} | {size} | {on['iterations']} / {off['iterations']} | {on['solve']:.1f} / {off['solve']:.1f} | "
             f"{on['solve'] / off['solve']:.2f} | {on['build']:.1f} / {off['build']:.1f} | "
-            f"{100 * on['clearance']:.1f} / {100 * off['clearance']:.1f} ({off['where']}) | "
+            f"{100 * on['clearance']:.1f} ({on['where']}) / {100 * off['clearance']:.1f} ({off['where']}) | "
             f"{on['margin']:.1f} / {off['margin']:.1f} |")
         print(table[-1], flush=True)
     return table
@@ -134,28 +123,26 @@ def machine_line(args, elapsed, load_before, load_after) -> str:
             "read the times as ratios within one row, not as absolute figures.")
 
 
-def self_section(args, table, elapsed, load_before, load_after) -> str:
-    return "\n".join([
-        "## Self-collision", "", machine_line(args, elapsed, load_before, load_after), "",
-        f"Every demo task at {args.knots} knots, objective `{args.objective}`, solved with the demo robot's "
-        "self-collision pairs (forearm and gripper 2 cm from the body and the front thighs and shanks, "
-        "`models/stilt.yaml`) and without them, terrain clearance rows in both, one after the other. "
-        "\"self rows / variables\" counts the pairs' rows and separating-plane variables over all knots; "
-        "\"ratio\" divides the solve time with the pairs by the time without; the smallest pair distance "
-        "of the plan without the rows is measured with the same pairs (negative: overlapping shapes).", "",
-        *table, ""])
+def description(args) -> str:
+    """What the table compares, for ``args.rows``."""
+    if args.rows == "self":
+        return (f"Every demo task at {args.knots} knots, objective `{args.objective}`, solved with the demo robot's "
+                "self-collision pairs (forearm and gripper 2 cm from the body and the front thighs and shanks, "
+                "`models/stilt.yaml`) and without them, terrain clearance rows in both, one after the other. "
+                "\"self rows / variables\" counts the pairs' rows and separating-plane variables over all knots; "
+                "\"ratio\" divides the solve time with the pairs by the time without; the smallest pair distance "
+                "of the plan without the rows is measured with the same pairs (negative: overlapping shapes).")
+    return (f"Every demo task at {args.knots} knots, objective `{args.objective}`, solved as the task asks "
+            "(every collision shape at least 3 cm from every terrain surface) and with the clearance rows "
+            "removed, one after the other (the robot file's self-collision pairs kept in both). \"clearance rows\" "
+            "counts rows over all knots; \"ratio\" divides the solve time with clearance by the time without; "
+            "the smallest clearance of the plan without rows is measured with the same shapes (negative: a shape "
+            "inside a surface).")
 
 
 def section(args, table, elapsed, load_before, load_after) -> str:
-    return "\n".join([
-        "## Clearance", "", machine_line(args, elapsed, load_before, load_after), "",
-        f"Every demo task at {args.knots} knots, objective `{args.objective}`, solved as the task asks "
-        "(every collision shape at least 3 cm from every terrain surface) and with the clearance rows "
-        "removed, one after the other (the robot file's self-collision pairs kept in both). \"clearance rows\" "
-        "counts rows over all knots; \"ratio\" divides "
-        "the solve time with clearance by the time without; the smallest clearance of the plan without "
-        "rows is measured with the same shapes (negative: a shape inside a surface).", "",
-        *table, ""])
+    return "\n".join([f"## {HEADINGS[args.rows]}", "", machine_line(args, elapsed, load_before, load_after), "",
+                      description(args), "", *table, ""])
 
 
 def load() -> str:
@@ -173,14 +160,9 @@ def main(argv=None) -> int:
     parser.add_argument("--write", metavar="RESULTS.md")
     args = parser.parse_args(argv)
     before, started = load(), time.perf_counter()
-    if args.rows == "self":
-        table = self_rows_for(args.tasks.split(","), args.objective, args.knots)
-        text = self_section(args, table, time.perf_counter() - started, before, load())
-        publish(text, args.write, "Self-collision")
-        return 0
-    table = rows_for(args.tasks.split(","), args.objective, args.knots)
+    table = rows_for(args.tasks.split(","), args.objective, args.knots, args.rows)
     text = section(args, table, time.perf_counter() - started, before, load())
-    publish(text, args.write, "Clearance")
+    publish(text, args.write, HEADINGS[args.rows])
     return 0
 
 
