@@ -203,12 +203,12 @@ class KnotFunctions:
         return ca.Function("clearance", [q, planes], [values.T], ["q", "planes"], ["clearance"])
 
     def _self_clearance(self, shapes) -> ca.Function | None:
-        """(q, planes (4, pairs), distances (pairs,)) -> rows of every self pair [m], each >= 0 when it holds.
+        """(q, planes (4, pairs), distances (pairs,)) -> (distance rows [m], norm rows (pairs,)), >= 0 when they hold.
 
         Per pair ``(first, second)`` with separating plane ``(n, d)``
         (:mod:`optimizer.problem.clearance`): ``n . a_i - d - r_a - distance``
-        for the first shape's points, ``d - n . b_j - r_b`` for the second's,
-        then ``1 - n . n``; pairs one after the other.
+        for the first shape's points, then ``d - n . b_j - r_b`` for the
+        second's, pairs one after the other; and per pair ``1 - n . n``.
         """
         pairs = self.structure.self_pairs
         if not pairs:
@@ -226,9 +226,9 @@ class KnotFunctions:
             n, d = planes[:3, i], planes[3, i]
             rows.append(ca.mtimes(n.T, at[:, spans[a].start:spans[a].stop]).T - d - shapes[a].radius - distances[i])
             rows.append(d - ca.mtimes(n.T, at[:, spans[b].start:spans[b].stop]).T - shapes[b].radius)
-            rows.append(1.0 - ca.dot(n, n))
-        return ca.Function("self_clearance", [q, planes, distances], [ca.vertcat(*rows)],
-                           ["q", "planes", "distances"], ["rows"])
+        norms = 1.0 - ca.sum1(planes[:3, :] * planes[:3, :]).T
+        return ca.Function("self_clearance", [q, planes, distances], [ca.vertcat(*rows), norms],
+                           ["q", "planes", "distances"], ["rows", "norms"])
 
     def _hand(self, frame: str) -> ca.Function:
         """(q, position (3,), rotation (9,)) -> (position error [m] (3,), orientation error (3,)).

@@ -40,6 +40,8 @@ register_family("terrain clearance", "clearance: collision shapes kept away from
 register_family("self clearance", "self-collision: shapes of the robot kept apart (shape vs shape)",
                 "move the hand targets away from the named shapes' links, or lower the pair's distance in the "
                 "robot file (collision.self_pairs)")
+register_family("self clearance planes", "self-collision: a pair's separating-plane normal within the unit ball "
+                "(shape vs shape)", "solve with more iterations; if a pair also keeps too close, see self clearance")
 
 
 def velocity_names(robot) -> list[str]:
@@ -195,11 +197,12 @@ class Transcription:
             return
         shapes, pairs = self.robot.collision.shapes, self.structure.self_pairs
         planes = ca.reshape(V["separation"], 4, len(pairs) * len(knots))
-        values = self._map(self.functions.self_clearance, len(knots))(
+        values, norms = self._map(self.functions.self_clearance, len(knots))(
             V["q"][:, knots.start:knots.stop], planes, ca.repmat(P["self_distances"], 1, len(knots)))
         who = [label for (a, b), label in zip(pairs, self.structure.self_labels)
-               for _ in range(len(shapes[a].points) + len(shapes[b].points) + 1)]
+               for _ in range(len(shapes[a].points) + len(shapes[b].points))]
         self.constraints.add("self clearance", values, knots, 0.0, INF, unit="m", who=who)
+        self.constraints.add("self clearance planes", norms, knots, 0.0, INF, who=self.structure.self_labels)
 
     def _rooms(self, tau, lam, P):
         """Room left at every limit, (rows, K), for symbolic or numeric ``tau``, ``lam`` and parameters."""
@@ -262,6 +265,10 @@ class Transcription:
             L.set(lo, f"rho{p}", np.broadcast_to(floor, (K,))[None, :])
         if "floor" in L:
             L.set(lo, "floor", 0.0)
+        if "separation" in L:  # each separating plane's normal within the unit ball (its row) and box (here)
+            planes = L["separation"]
+            box = np.tile([1.0, 1.0, 1.0, INF], planes.rows // 4)[:, None]
+            L.set(lo, "separation", -box), L.set(hi, "separation", box)
         if initial_posture is not None:
             q_lo_k, q_hi_k = L.get(lo, "q"), L.get(hi, "q")
             q_lo_k[:, 0] = q_hi_k[:, 0] = initial_posture
