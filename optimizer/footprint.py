@@ -30,7 +30,13 @@ _MEASURED_MAX = 256
 
 @dataclass(frozen=True)
 class StageSize:
-    """Size of one stage's NLP: expanded nodes per knot and independent of knots."""
+    """Size of one stage's NLP: expanded nodes per knot and independent of knots.
+
+    ``nodes_fixed`` is the intercept of the line through the two probes; it may
+    be negative (rows at every knot but the first and the last, such as the
+    clearance rows, count K - 2 times), which keeps the line exact instead of
+    overestimating every larger knot count.
+    """
 
     objective: str
     nodes_per_knot: float
@@ -121,7 +127,7 @@ def _measure(knots, probes, objective: str, planner: Planner) -> StageSize:
         counts.append((expanded.n_nodes(), transcription.variables.size))
     (k0, k1), ((n0, x0), (n1, x1)) = knots, counts
     per_knot = (n1 - n0) / (k1 - k0)
-    return StageSize(objective, per_knot, max(n0 - k0 * per_knot, 0.0), (x1 - x0) / (k1 - k0))
+    return StageSize(objective, per_knot, n0 - k0 * per_knot, (x1 - x0) / (k1 - k0))
 
 
 def estimate_memory(task, objective: str | None = None, planner: Planner | None = None) -> MemoryEstimate:
