@@ -36,6 +36,7 @@ from .errors import SolveFailed
 from .planfile import Plan, response_gains_key
 from .problem.requirement import as_json as requirements_json
 from .problem.requirement import required_margins
+from .problem.reserve import reserves_meta
 from .robot.symbolic import SymbolicRobot
 from .solver.backend import SolverResult
 from .solver.registry import DEFAULT_BACKEND, backend_named
@@ -515,7 +516,7 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
                              "tangents": [np.asarray(c.tangents, float).tolist() for c in task.contacts]},
         "min_normal_force": float(task.min_normal_force),
         "torque_limits": {"lower": robot.torque_lower.tolist(), "upper": robot.torque_upper.tolist()},
-        **({"torque_reserve": float(task.torque_reserve)} if task.torque_reserve > 0 else {}),
+        **reserves_meta(task),
         "joint_velocity_limits": robot.velocity_limit.tolist(),
         "disturbances": [{"frame": d.frame, "kind": d.kind, "shape": np.asarray(d.shape, float).tolist()}
                          for d in task.disturbances],

@@ -23,6 +23,7 @@ import pytest
 
 from certify_checks import demo_standing, standing_plan
 from optimizer.cli import main
+from optimizer.errors import PlanFileError
 from optimizer.planfile import build_model, save_plan
 from optimizer.planner import solve
 from optimizer.problem.task import load_task
@@ -158,6 +159,21 @@ def test_the_crawl_space_keeps_its_torque_reserve_for_the_controller(robust_plan
     assert (plan.tau <= (1.0 - reserve) * robot.torque_upper + 1e-6).all()
     assert (plan.tau >= (1.0 - reserve) * robot.torque_lower - 1e-6).all()
     assert sim.nominal()["torque_clipped_s"] == {}
+
+
+def test_a_friction_reserve_plan_is_replayed_on_the_full_friction():
+    # A plan made with friction_reserve r stores (and is certified against) mu (1 - r); the scene
+    # must carry the terrain's own mu. Reference: the friction of every contact pair as MuJoCo
+    # compiled it (model.pair_friction).
+    plan = standing(1)
+    plan.meta["friction"] = [0.8 * 0.85] * len(plan.meta["contact_frames"])
+    plan.meta["friction_reserve"] = 0.15
+    scene = build_scene(plan, scene_surfaces(plan)[0])
+    assert scene.model.npair > 0
+    np.testing.assert_allclose(scene.model.pair_friction[:, :2], 0.8, rtol=1e-9)
+    plan.meta["friction_reserve"] = 1.0
+    with pytest.raises(PlanFileError, match="meta.friction_reserve"):
+        build_scene(plan, scene_surfaces(plan)[0])
 
 
 def test_cli_writes_the_nominal_report_and_refuses_bad_options(tmp_path, capsys):

@@ -106,6 +106,16 @@ def test_torque_reserve_scales_every_torque_limit_the_plan_meets(tmp_path):
     np.testing.assert_allclose(reserved.robot.torque_lower, 0.95 * plain.robot.torque_lower, rtol=1e-12)
 
 
+def test_friction_reserve_scales_every_contact_friction_the_plan_meets(tmp_path):
+    # Reference: the coefficients written in the task file (0.8 on every contact).
+    plain = load_task(write(tmp_path, BASE_TASK))
+    assert plain.friction_reserve == 0.0
+    reserved = load_task(write(tmp_path, variant(friction_reserve=0.15)))
+    assert reserved.friction_reserve == 0.15
+    np.testing.assert_allclose([c.friction for c in reserved.contacts], [0.8 * 0.85] * 4, rtol=1e-12)
+    np.testing.assert_allclose(reserved.robot.torque_upper, plain.robot.torque_upper, rtol=0)
+
+
 def test_relative_robot_path_resolves_against_the_task_folder(tmp_path):
     folder = tmp_path / "deep"
     folder.mkdir()
@@ -146,6 +156,8 @@ def test_orientation_as_rpy_is_a_rotation(tmp_path):
     ({"pyramid_facets": 2}, r"pyramid_facets.*a whole number >= 3"),
     ({"min_normal_force": -1.0}, r"min_normal_force.*a number >= 0"),
     ({"torque_reserve": 0.7}, r"torque_reserve.*a number <= 0.5"),
+    ({"friction_reserve": -0.1}, r"friction_reserve.*a number >= 0"),
+    ({"friction_reserve": 0.6}, r"friction_reserve.*a number <= 0.5"),
     ({"hand_targets__0__orientation": [[1, 0, 0], [0, 1, 0], [0, 0, -1]]}, r"orientation.*a rotation matrix"),
     ({"robot": "missing.yaml"}, r"field 'robot'.*an existing robot file"),
     ({"solver": {"max_iter": [1, 2]}}, r"solver.max_iter.*a number, text or true/false"),

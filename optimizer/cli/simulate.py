@@ -79,10 +79,7 @@ def run(args) -> int:
     task = load_task(args.task) if args.task else None
     inputs = simulation_inputs(plan, build_model(args.plan, plan.meta["urdf"]), task)
     sim = Simulator(plan, inputs.surfaces, inputs.targets, inputs.hand_frame, settings, args.disturbance)
-    reserve = float(plan.meta.get("torque_reserve", 0.0))
-    if reserve > 0:
-        inputs.notes.append(f"torques: the plan keeps {100 * reserve:g} % of every limit for the controller; "
-                            "the replay clips at the full limits")
+    inputs.notes.extend(reserve_notes(plan.meta))
     nominal = sim.nominal()
     modes = ("informed", "blind") if args.mode == "both" else (args.mode,)
     pushes = []
@@ -109,6 +106,22 @@ def run(args) -> int:
 
         write_push_figure([document], args.figure)
     return 0 if nominal["ok"] else 1
+
+
+def reserve_notes(meta: dict) -> list:
+    """Scene notes on the reserves a plan kept for the controller (the replay uses the full limits)."""
+    from ..problem.reserve import meta_reserve
+
+    notes = []
+    reserve = meta_reserve(meta, "torque_reserve")
+    if reserve > 0:
+        notes.append(f"torques: the plan keeps {100 * reserve:g} % of every limit for the controller; "
+                     "the replay clips at the full limits")
+    reserve = meta_reserve(meta, "friction_reserve")
+    if reserve > 0:
+        notes.append(f"friction: the plan keeps {100 * reserve:g} % of every coefficient for the controller; "
+                     "the scene uses the full coefficients")
+    return notes
 
 
 def _positive(value: float, option: str, most: float) -> float:

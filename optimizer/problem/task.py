@@ -29,6 +29,7 @@ from .friction import tangent_basis
 from .geometry import ground_planes
 from .push_shape import shape_from_directions, wrench_shape
 from .requirement import horizon_requirement, read_requirements
+from .reserve import planned_value, read_reserve
 from .schedule import DEFAULT_SWING_HEIGHT, Schedule, StanceInterval
 from .stance import foot_residuals, solve_stance
 from .terrain import build_terrain
@@ -40,8 +41,7 @@ MAX_KNOTS = 2000           # more knots than this is a typo, not a plan (the NLP
 MAX_FACETS = 64            # a pyramid finer than this adds rows without changing the answer
 TOP_LEVEL = {"name", "description", "robot", "horizon", "stance", "hand_targets", "disturbances",
              "objective", "pyramid_facets", "min_normal_force", "initial_posture", "solver", "require", "clearance",
-             "torque_reserve"}
-MAX_TORQUE_RESERVE = 0.5   # keeping more than half of every torque for feedback is a typo, not a plan
+             "torque_reserve", "friction_reserve"}
 
 
 @dataclass
@@ -158,6 +158,11 @@ class Task:
         controller (``torque_reserve``): ``robot`` already carries the
         limits times ``1 - torque_reserve``, which the plan meets and is
         certified against.
+    friction_reserve : float
+        Fraction of every friction coefficient kept for the tracking
+        controller (``friction_reserve``): each of ``contacts`` already
+        carries its surface's coefficient times ``1 - friction_reserve``,
+        which the plan meets and is certified against.
     """
 
     name: str
@@ -180,6 +185,7 @@ class Task:
     memory_limit: int | None = None
     schedule: Schedule = None
     torque_reserve: float = 0.0
+    friction_reserve: float = 0.0
 
     def __post_init__(self):
         if self.schedule is None:
@@ -231,10 +237,12 @@ def task_from_mapping(data: dict, path) -> Task:
     if top.has("description"):
         top.string("description")
     robot_path, robot = read_robot(top)
-    reserve = top.number("torque_reserve", 0.0, lo=0.0, hi=MAX_TORQUE_RESERVE)
-    robot = with_torque_scale(robot, 1.0 - reserve)
+    reserve = read_reserve(top, "torque_reserve")
+    robot = with_torque_scale(robot, planned_value(1.0, reserve))
     duration, knots = read_horizon(top.sub("horizon"))
     contacts, surfaces, schedule = read_stance(top.sub("stance"), robot, duration)
+    friction_reserve = read_reserve(top, "friction_reserve")
+    contacts = [dataclasses.replace(c, friction=planned_value(c.friction, friction_reserve)) for c in contacts]
     clearance = read_clearance(top, robot, schedule_contacts(contacts, schedule), surfaces)
     weight = robot.mass * float(np.linalg.norm(robot.gravity))
     hand_targets = read_hand_targets(top, robot, duration)
@@ -258,6 +266,7 @@ def task_from_mapping(data: dict, path) -> Task:
         raw=json_copy(data, path),
         clearance=clearance,
         torque_reserve=reserve,
+        friction_reserve=friction_reserve,
         requirements=read_requirements(top, weight=weight, duration=duration,
                                        hand_targets=hand_targets, disturbances=disturbances),
         schedule=schedule,

@@ -26,7 +26,7 @@ import pinocchio as pin
 
 from ..analysis.certify import certify_response
 from ..analysis.knot_response import PlanRobot, knot_response, torque_limits
-from ..errors import PlanFileError
+from ..problem.reserve import full_value
 from .reference import PlanReference, pd_gains
 from .rollout import Push, Rollout, SurvivalRules
 from .scene import ContactSettings, build_scene
@@ -286,10 +286,7 @@ def actuator_limits(meta: dict) -> tuple[np.ndarray, np.ndarray]:
     is for the tracking controller, so the replay clips at the actuators' own.
     """
     lower, upper = torque_limits(meta)
-    reserve = float(meta.get("torque_reserve", 0.0))
-    if not 0.0 <= reserve < 1.0:
-        raise PlanFileError("plan", "meta.torque_reserve", "a fraction in [0, 1)", reserve)
-    return lower / (1.0 - reserve), upper / (1.0 - reserve)
+    return full_value(meta, "torque_reserve", lower), full_value(meta, "torque_reserve", upper)
 
 
 def stance_joints(robot: PlanRobot, plan) -> np.ndarray:

@@ -10,7 +10,8 @@ joint (unactuated). Joint position limits become MuJoCo joint limits.
 Feet are small spheres touching the terrain at the contact frame's origin in
 the plan's first configuration (centre ``r`` along the contact normal); each
 foot collides only with the terrain (explicit contact pairs carrying the
-plan's friction of that contact). Nothing else collides: the plan does not
+full friction of that contact: the plan's coefficient, or, for a plan made
+with a ``friction_reserve`` r, that coefficient divided by ``1 - r``). Nothing else collides: the plan does not
 model link collisions either.
 
 Layouts: Pinocchio ``q = [x y z qx qy qz qw, joints]`` with the base twist in
@@ -28,6 +29,7 @@ import numpy as np
 import pinocchio as pin
 
 from ..errors import PlanFileError
+from ..problem.reserve import full_value
 
 HINGE_AXES = {"RX": (1, 0, 0), "RY": (0, 1, 0), "RZ": (0, 0, 1), "RUBX": (1, 0, 0), "RUBY": (0, 1, 0),
               "RUBZ": (0, 0, 1)}
@@ -261,7 +263,8 @@ def scene_xml(plan, surfaces, settings: ContactSettings, frames, where="plan") -
     _foot_geoms(bodies, model, plan, settings.foot_radius)
     contact = ET.SubElement(root, "contact")
     solref = _fmt([settings.time_constant, settings.damping_ratio])
-    for name, mu in zip(plan.meta["contact_frames"], plan.meta["friction"]):
+    for name, mu in zip(plan.meta["contact_frames"], full_value(plan.meta, "friction_reserve",
+                                                                np.asarray(plan.meta["friction"], float))):
         for geom in terrain:
             ET.SubElement(contact, "pair", geom1=f"foot:{name}", geom2=geom, condim="3",
                           friction=_fmt([mu, mu, 0.0, 0.0, 0.0]), solref=solref, solimp=_fmt(settings.impedance))
