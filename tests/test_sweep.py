@@ -25,6 +25,7 @@ import yaml
 from page_refs import PageRefs
 from optimizer.cli import main
 from optimizer.planfile import load_plan
+from optimizer.problem.task import load_task
 from optimizer.sweep import store
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -82,13 +83,15 @@ def test_local_pool_solves_every_variant_and_records_the_impossible_one(pool_run
         level = 0.05 * pin.computeTotalMass(model) * np.linalg.norm(plan.meta["gravity"])
         assert (int(row["low_margin_knots"]) > 0) == (float(row["margin_min_exact_N"]) < level)
         assert row["requirement_met"] in ("True", "true", "1")
-        # Coulomb's law, recomputed here from the plan file alone: |f_t| <= mu f_n at every foot and knot.
+        # Coulomb's law, recomputed here from the plan file alone: |f_t| <= mu f_n at every foot and knot,
+        # mu the planned coefficient: the swept surface's times 1 - the task's friction_reserve.
+        planned = (1.0 - load_task(RAMP).friction_reserve) * float(row["friction"])
         normals = np.array(plan.meta["contact_normals"])
         f_n = np.einsum("knj,nj->kn", plan.contact_forces, normals)
         f_t = np.linalg.norm(plan.contact_forces - f_n[..., None] * normals, axis=-1)
-        use = f_t / (float(row["friction"]) * f_n)
+        use = f_t / (planned * f_n)
         assert use.max() == pytest.approx(float(row["peak_friction_use"]), rel=1e-4) and use.max() <= 1.0
-        assert plan.meta["friction"] == [float(row["friction"])] * 4
+        assert plan.meta["friction"] == pytest.approx([planned] * 4, rel=1e-12)
         # The slope reached the plan: each foot's normal tilts by the ramp angle (cos = n . z).
         tilt = math.degrees(math.acos(normals[0, 2]))
         assert tilt == pytest.approx(float(row["slope_deg"]), abs=1e-9)
@@ -273,7 +276,6 @@ def test_seeded_samples_repeat_and_stay_in_range(tmp_path):
 
 
 def test_payload_at_the_hand_adds_its_weight_at_the_hand(tmp_path):
-    from optimizer.problem.task import load_task
     from optimizer.robot.derived import with_payload, with_torque_scale
 
     robot = load_task(RAMP).robot

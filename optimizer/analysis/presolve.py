@@ -241,7 +241,9 @@ def _friction_words(task, scale: float) -> str:
     mus = sorted({round(float(c.friction), 6) for c in task.contacts})
     if len(mus) == 1:
         need = scale * mus[0]
-        return f"friction mu >= {need:.2f} on the contacts, the task gives {mus[0]:.2f} ({need - mus[0]:.2f} short)"
+        given = (f"the task plans on {mus[0]:.2f} (its friction_reserve {task.friction_reserve:g} kept)"
+                 if task.friction_reserve > 0 else f"the task gives {mus[0]:.2f}")
+        return f"friction mu >= {need:.2f} on the contacts, {given} ({need - mus[0]:.2f} short)"
     parts = ", ".join(f"{c.frame} {c.friction:.2f} -> {scale * c.friction:.2f}" for c in task.contacts)
     return f"{scale:.2f} times the given friction ({parts})"
 
