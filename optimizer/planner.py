@@ -34,6 +34,7 @@ from .analysis.knot_response import knot_responses
 from .analysis.linear_margin import best_linear_margin, certify_gains
 from .errors import SolveFailed
 from .planfile import Plan, response_gains_key
+from .problem.point_weights import combined_margin
 from .problem.requirement import as_json as requirements_json
 from .problem.requirement import required_margins
 from .robot.symbolic import SymbolicRobot
@@ -41,7 +42,7 @@ from .solver.backend import SolverResult
 from .solver.registry import DEFAULT_BACKEND, backend_named
 from .transcription.guess import initial_guess
 from .transcription.nlp import INTEGRATOR, Transcription
-from .transcription.objectives import OBJECTIVES, objective_named
+from .transcription.objectives import OBJECTIVES, POINT_FLOOR, objective_named
 from .transcription.parameters import parameter_values
 from .transcription.structure import structure_of
 
@@ -421,6 +422,8 @@ def _initial_gains(task, arrays) -> dict:
             rho.append(r)
         out[f"G{p}"], out[f"rho{p}"] = np.array(gains).T, np.array(rho)[None, :]
         out[f"G_tau{p}"] = np.array(torque_gains).T
+    rho = np.vstack([out[f"rho{p}"] for p in range(len(task.disturbances))]).T
+    out[POINT_FLOOR] = combined_margin(rho, [d.objective_weight for d in task.disturbances], "smallest")[None, :]
     return out
 
 
@@ -498,8 +501,9 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
         "min_normal_force": float(task.min_normal_force),
         "torque_limits": {"lower": robot.torque_lower.tolist(), "upper": robot.torque_upper.tolist()},
         "joint_velocity_limits": robot.velocity_limit.tolist(),
-        "disturbances": [{"frame": d.frame, "kind": d.kind, "shape": np.asarray(d.shape, float).tolist()}
-                         for d in task.disturbances],
+        "disturbances": [{"frame": d.frame, "kind": d.kind, "shape": np.asarray(d.shape, float).tolist(),
+                          "objective_weight": float(d.objective_weight)} for d in task.disturbances],
+        "combine_points": task.combine_points,
         "objective": objective,
         "clearance": clearance_meta(task.clearance),
         "task": task.raw,

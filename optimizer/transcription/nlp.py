@@ -20,7 +20,7 @@ from ..problem.limits import FRICTION, NORMAL_FORCE, TORQUE
 from .constraints import ConstraintStack, register_family
 from .knot_functions import KnotFunctions
 from .layout import VectorLayout
-from .objectives import Context
+from .objectives import POINT_FLOOR, Context
 from .parameters import parameter_layout
 from .structure import Structure
 
@@ -74,7 +74,8 @@ class Transcription:
         self.torque_gains = torque_gains
         self.weight = robot.mass * float(np.linalg.norm(robot.gravity))
         self.context = Context(self.weight, float(np.mean(np.maximum(abs(robot.torque_lower), abs(robot.torque_upper)))),
-                               structure.knots)
+                               structure.knots, len(structure.disturbances) if objective.robust else 0,
+                               structure.combine_points)
         self.functions = KnotFunctions(symbolic, structure, self.weight, torque_gains, robot.joint_names,
                                        robot.collision.shapes)
         self.map_mode = map_mode
@@ -90,8 +91,8 @@ class Transcription:
         self._clearance(V, P)
         if objective.robust:
             self._robustness(V, P)
-        objective.add_constraints(V, self.constraints, self.context, self.disturbance_count)
-        cost = objective.cost(V, P, self.context, self.disturbance_count)
+        objective.add_constraints(V, P, self.constraints, self.context)
+        cost = objective.cost(V, P, self.context)
         self.nlp = {"x": x, "p": p, "f": cost, "g": self.constraints.expression()}
         self.lbg, self.ubg = self.constraints.bounds()
 
@@ -241,8 +242,9 @@ class Transcription:
         for p in range(self.disturbance_count):
             floor = 0.0 if required is None else np.asarray(required, float)[:, p] * (1.0 + REQUIREMENT_BACKOFF)
             L.set(lo, f"rho{p}", np.broadcast_to(floor, (K,))[None, :])
-        if "floor" in L:
-            L.set(lo, "floor", 0.0)
+        for name in ("floor", POINT_FLOOR):
+            if name in L:
+                L.set(lo, name, 0.0)
         if initial_posture is not None:
             q_lo_k, q_hi_k = L.get(lo, "q"), L.get(hi, "q")
             q_lo_k[:, 0] = q_hi_k[:, 0] = initial_posture
