@@ -57,3 +57,33 @@ def pytest_unconfigure(config):
     else:
         os.environ["TMPDIR"] = _ORIGINAL_TMPDIR
     shutil.rmtree(_SUITE_TMP, ignore_errors=True)
+
+
+TWO_POINT_KNOTS = 6
+
+
+@pytest.fixture(scope="session")
+def two_point_plans():
+    """The two-point demo task (``drawer_bump``: grip and body) planned with ``robust`` at 6 knots
+    from one feasibility seed, twice: ``"smallest"`` as the task says (both points weigh 1) and
+    ``"first only"`` (the body's objective weight 0, so the objective sees the grip alone).
+
+    Both plans use one built solver (the weights are parameters). Returns
+    ``{"task": task, "smallest": Plan, "first only": Plan}``.
+    """
+    import dataclasses
+
+    from optimizer import Planner, load_task
+
+    task = load_task(Path(__file__).resolve().parents[1] / "tasks" / "drawer_bump.yaml")
+    with Planner(knots=TWO_POINT_KNOTS) as planner:
+        seed = planner.seed(task)
+        assert seed.success
+        grip, body = seed.task.disturbances
+        first_only = dataclasses.replace(seed.task, disturbances=[grip, dataclasses.replace(body, objective_weight=0.0)])
+        plans = {"task": seed.task}
+        for name, variant in (("smallest", seed.task), ("first only", first_only)):
+            outcome = planner.solve_from_seed(dataclasses.replace(seed, task=variant), "robust")
+            assert outcome.success, outcome.stages[-1]
+            plans[name] = outcome.plan
+    return plans

@@ -65,7 +65,7 @@ def run(args) -> int:
         write_outputs([comparison], stage, status, args.frames, f"brace compare {args.task}")
     status.clear()
     print_summary([comparison], out)
-    good = all(e.ok and not e.certificate.problems() for e in comparison.entries)
+    good = all(e.ok and not e.problems() for e in comparison.entries)
     return 0 if good else 1
 
 

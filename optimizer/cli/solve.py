@@ -236,7 +236,6 @@ def _print_progress(stage, iteration, cost, violation, smallest_margin):
 def summary_lines(outcome: SolveOutcome, elapsed: float, out: Path, log_path: Path) -> list[str]:
     plan = outcome.plan
     robot = outcome.task.robot
-    k_min = int(np.argmin(plan.margin))
     use = np.maximum(plan.tau / np.where(plan.tau >= 0, robot.torque_upper, -robot.torque_lower), 0.0)
     k_use, j_use = np.unravel_index(np.argmax(use), use.shape)
     stages = ", ".join(f"{s.objective} {s.status} in {s.iterations} it / {s.solve_time:.1f} s"
@@ -246,11 +245,24 @@ def summary_lines(outcome: SolveOutcome, elapsed: float, out: Path, log_path: Pa
         f"  Ipopt log            {log_path}",
         f"  stages               {stages}",
         f"  total time           {elapsed:.1f} s",
-        f"  margin (certified)   min {plan.margin[k_min]:.2f} N at t = {plan.t[k_min]:.2f} s, "
-        f"mean {np.mean(plan.margin):.2f} N",
+        *margin_lines(plan),
         f"  peak torque use      {100 * use[k_use, j_use]:.0f} % ({robot.joint_names[j_use]} at t = {plan.t[k_use]:.2f} s)",
         f"  largest violation    {outcome.stages[-1].max_violation:.1e} (scaled NLP units)",
     ]
+
+
+def margin_lines(plan) -> list[str]:
+    """The certified margin's smallest and mean value: one line, or one per disturbance point."""
+    margins = plan.margin[:, None] if plan.margins is None else plan.margins
+    points = plan.meta["disturbances"]
+    lines = []
+    for p in range(margins.shape[1]):
+        column = margins[:, p]
+        k = int(np.argmin(column))
+        label = "  margin (certified)   " if p == 0 else " " * 23
+        where = f"point {p} ({points[p]['frame']}): " if margins.shape[1] > 1 else ""
+        lines.append(f"{label}{where}min {column[k]:.2f} N at t = {plan.t[k]:.2f} s, mean {np.mean(column):.2f} N")
+    return lines
 
 
 def _report_failure(outcome: SolveOutcome, out: Path, log_path: Path) -> None:
