@@ -202,7 +202,8 @@ class ProgressLine:
 
     def __call__(self, point: int, done: int, total: int, cert) -> None:
         if self.live:
-            self.stream.write(f"\rcertifying point {point}, knot {done}/{total}: exact {cert.rho:.4g} N   ")
+            self.stream.write(f"\rcertifying point {point}, knot {done}/{total}: "
+                              f"{'exact' if cert.exact else 'lower bound'} {cert.rho:.4g} N   ")
             self.stream.flush()
 
     def clear(self) -> None:

@@ -211,6 +211,7 @@ def _exact_figures(plan) -> dict:
     weakest = int(np.argmin([np.min(r) for r in rho]))
     return {"margin_min_exact_N": float(np.min(rho[0])), "margin_mean_exact_N": float(np.mean(rho[0])),
             "margin_min_exact_all_points_N": float(np.min(rho[weakest])), "weakest_point": weakest,
+            "margin_figure": certificate.points[0].figure,
             "low_margin_knots": sum(s.last - s.first + 1 for s in shortfalls if not s.required),
             "requirement_met": not unmet(shortfalls),
             "certify_time_s": time.perf_counter() - started}
