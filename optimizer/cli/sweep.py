@@ -18,6 +18,7 @@ import sys
 from pathlib import Path
 
 from ..errors import InputError
+from .cache import add_cache_option, apply_cache_option, compiler_note
 from .notices import SAFETY
 
 # Stopping: the supervisor passes Ctrl-C / SIGTERM on and waits this long [s] for the sweep to
@@ -35,9 +36,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--scheduler", metavar="ADDRESS", help="run on the Dask cluster at tcp://HOST:PORT")
     parser.add_argument("--report", metavar="DIR", help="only redraw the summary and figures of a results folder")
     parser.add_argument("--quiet", action="store_true", help="no progress line")
+    add_cache_option(parser)
 
 
 def run(args) -> int:
+    apply_cache_option(args)
     if args.report:
         if args.sweep or args.out:
             raise InputError(CLI, "--report", "a results folder alone (no sweep file, no --out)", args.sweep or args.out)
@@ -55,6 +58,9 @@ def run(args) -> int:
     print(f"brace sweep: '{sweep.name}', {count} variant{'s' if count != 1 else ''} x "
           f"{len(sweep.objectives)} objective(s) ({', '.join(sweep.objectives)}), on a {engine.describe()}; "
           f"results in {out}", flush=True)
+    note = compiler_note()
+    if note:
+        print(note, flush=True)
     line = ProgressLine(quiet=args.quiet)
     with _sigterm_interrupts():
         outcome = run_sweep(sweep, out, engine, report=line)
