@@ -82,29 +82,48 @@ def _set(functions, name, value):
         getattr(functions, head)[int(tail) if head == "robust" else tail] = value
 
 
-def compile_knot_functions(functions) -> str | None:
-    """Replace every knot function of ``functions`` by its compiled, cached library.
+class CompileFailure(Exception):
+    """No library could be made (no compiler, or it failed); the message says why."""
 
-    Returns None when done, or why nothing was replaced (no compiler, a
-    compiler error); the functions are then left as they were.
+
+def compiled_functions(originals: dict[str, ca.Function]) -> tuple[dict[str, ca.Function], list[str]]:
+    """Each function of ``originals`` from its compiled library: ``(functions by name, names compiled now)``.
+
+    Valid cached libraries are loaded; the others are generated and
+    compiled (under their entry locks, so a second process wanting the same
+    entries waits and then loads them). Raises :class:`CompileFailure`.
     """
     command = compiler()
     if shutil.which(command) is None:
-        return f"no C compiler '{command}' found (set {COMPILER_ENVIRONMENT} to one)"
-    originals = {name: _get(functions, name) for name in knot_function_names(functions)}
+        raise CompileFailure(f"no C compiler '{command}' found (set {COMPILER_ENVIRONMENT} to one)")
     paths = {name: entry_path(SECTION, library_key(f, command) + ".so") for name, f in originals.items()}
     missing = sorted({path for path in paths.values() if not valid_entry(path)})
+    built = []
     if missing:
         supervisor.phase("compiling the knot functions (once per robot and shape)")
         by_path = {path: originals[name] for name, path in paths.items()}
         with contextlib.ExitStack() as locks:
             for path in missing:  # sorted: two processes never wait on each other in a cycle
                 locks.enter_context(entry_lock(path))
-            todo = [path for path in missing if not valid_entry(path)]  # built meanwhile by another process
+            todo = [path for path in missing if not valid_entry(path)]  # another process may have built some
             failure = _build_libraries([(path, by_path[path]) for path in todo], command)
             if failure is not None:
-                return failure
-    loaded = {name: _load(originals[name], paths[name]) for name in originals}
+                raise CompileFailure(failure)
+            built = [name for name, path in paths.items() if path in todo]
+    return {name: _load(originals[name], paths[name]) for name in originals}, built
+
+
+def compile_knot_functions(functions) -> str | None:
+    """Replace every knot function of a :class:`KnotFunctions` by its compiled, cached library.
+
+    Returns None when done, or why nothing was replaced (no compiler, a
+    compiler error); the functions are then left as they were.
+    """
+    originals = {name: _get(functions, name) for name in knot_function_names(functions)}
+    try:
+        loaded, _ = compiled_functions(originals)
+    except CompileFailure as failure:
+        return str(failure)
     for name, value in loaded.items():
         _set(functions, name, value)
     return None
