@@ -48,7 +48,7 @@ from .transcription.structure import structure_of
 
 # How a planner evaluates the NLP (see Planner); compiled falls back to mapped without a C compiler.
 EVALUATIONS = ("compiled", "expanded", "mapped")
-DEFAULT_EVALUATION = "compiled"
+DEFAULT_EVALUATION = "expanded"
 _NOTICES: list[str] = []
 _SAID: set[str] = set()
 
@@ -170,8 +170,9 @@ class Planner:
     evaluation : str
         How the NLP is evaluated (:data:`EVALUATIONS`): ``compiled`` (the
         knot functions and their derivatives as compiled C, cached on disk,
-        mapped over the knots; the default), ``expanded`` (one scalar graph:
-        fast iterations, slow build, nothing on disk) or ``mapped`` (the knot
+        mapped over the knots: the fastest plan from a fresh process),
+        ``expanded`` (one scalar graph: fast iterations, slow build, nothing
+        on disk; the default) or ``mapped`` (the knot
         functions interpreted, mapped over the knots: fast build, slow
         iterations). ``compiled`` falls back to ``mapped`` when no C
         compiler works (:func:`take_notice` says so once).

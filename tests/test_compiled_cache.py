@@ -168,6 +168,17 @@ def test_without_a_compiler_the_planner_falls_back_and_says_so_once(ramp, own_ca
     assert not own_cache.exists() or not list(own_cache.rglob("*.so"))
 
 
+def test_brace_solve_without_a_compiler_says_so_once_and_writes_the_plan(ramp, own_cache, monkeypatch, tmp_path,
+                                                                          capsys):
+    monkeypatch.setenv(compiled.COMPILER_ENVIRONMENT, str(own_cache / "no-such-compiler"))
+    out = tmp_path / "plan.npz"
+    code = main(["solve", str(ROOT / "tasks" / "steep_ramp.yaml"), "--knots", str(KNOTS), "--objective", "feasible",
+                 "--quiet", "--skip-checks", "--evaluation", "compiled", "--out", str(out)])
+    printed = capsys.readouterr().out
+    assert code == 0 and out.exists()
+    assert printed.count("no-such-compiler") == 1
+
+
 def test_cache_command_shows_and_clears(own_cache, capsys):
     compiled.compiled_functions({"f": small_function()})
     assert main(["cache", "show", "--cache-dir", str(own_cache)]) == 0

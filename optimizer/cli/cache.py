@@ -28,6 +28,16 @@ def add_cache_option(parser: argparse.ArgumentParser) -> None:
                              "$XDG_CACHE_HOME/brace, else ~/.cache/brace)")
 
 
+def add_evaluation_option(parser: argparse.ArgumentParser) -> None:
+    from ..planner import DEFAULT_EVALUATION, EVALUATIONS
+
+    parser.add_argument("--evaluation", choices=EVALUATIONS, default=DEFAULT_EVALUATION,
+                        help="how the solver evaluates the problem: compiled (C code compiled once per robot and "
+                             "task shape, kept in the cache folder: the fastest plan from a fresh process), "
+                             "expanded (one graph: slow build, fast iterations) or mapped (fast build, slow "
+                             f"iterations); default {DEFAULT_EVALUATION}")
+
+
 def apply_cache_option(args) -> None:
     """Use ``--cache-dir`` when given (for this process and the workers it starts)."""
     if getattr(args, "cache_dir", None):

@@ -29,7 +29,7 @@ from ..memory import SIZE_TEXT, available_memory, format_size, parse_size
 from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
 from ..notices import SAFETY
-from .cache import add_cache_option, apply_cache_option, compiler_note
+from .cache import add_cache_option, add_evaluation_option, apply_cache_option, compiler_note
 from .shortfalls import shortfall_lines, use_colour
 
 if TYPE_CHECKING:
@@ -61,6 +61,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="flag knots whose certified margin is below this, N, where nothing is required "
                              f"(default {100 * DEFAULT_WARN_FRACTION:.0f} %% of the robot's weight)")
     add_cache_option(parser)
+    add_evaluation_option(parser)
 
 
 def run(args) -> int:
@@ -92,7 +93,7 @@ def _run(args) -> int:
         return 0
     from ..planner import solve, take_notice
 
-    note = compiler_note()
+    note = compiler_note() if args.evaluation == "compiled" else None
     if note:
         print(note)
     log_path = out.with_suffix(".ipopt.log")
@@ -100,7 +101,8 @@ def _run(args) -> int:
     print(f"brace solve: task '{task.name}', objective {objective}, {task.knots} knots over {task.duration:.2f} s, "
           f"robot '{task.robot.name}' ({task.robot.mass:.1f} kg)")
     started = time.perf_counter()
-    outcome = solve(task, objective, progress=None if args.quiet else _print_progress, log_path=log_path)
+    outcome = solve(task, objective, progress=None if args.quiet else _print_progress, log_path=log_path,
+                    evaluation=args.evaluation)
     elapsed = time.perf_counter() - started
     for text in take_notice() if note is None else []:
         print(f"note: {text}")
