@@ -16,6 +16,7 @@ from dataclasses import dataclass
 
 import casadi as ca
 
+from .errors import TaskError
 from .memory import format_size, resident_size
 from .planner import Planner, shared_planner
 from .transcription.nlp import Transcription
@@ -75,18 +76,33 @@ def stages_of(objective: str) -> list:
     return ["feasible"] if objective == "feasible" else ["feasible", objective]
 
 
+def probe_knots(task) -> tuple[int, int]:
+    """Two knot counts two apart, :data:`PROBE_KNOTS` or the smallest larger pair at which every swing
+    of the task's contact schedule keeps its knots (a TaskError when the task's own count does not)."""
+    structure_of(task)
+    for k in range(PROBE_KNOTS[0], task.knots + 1):
+        try:
+            structure_of(task.with_knots(k)), structure_of(task.with_knots(k + 2))
+        except TaskError:
+            continue
+        return k, k + 2
+    return PROBE_KNOTS
+
+
 def stage_size(task, objective: str, planner: Planner | None = None) -> StageSize:
-    """Measure one stage's NLP at :data:`PROBE_KNOTS` and split nodes into per-knot and fixed."""
+    """Measure one stage's NLP at two small knot counts (:func:`probe_knots`), split nodes into per-knot
+    and fixed."""
     planner = planner or shared_planner()
     counts = []
-    for knots in PROBE_KNOTS:
+    probes = probe_knots(task)
+    for knots in probes:
         small = task.with_knots(knots)
         transcription = Transcription(small.robot, planner.symbolic_robot(small.robot), structure_of(small),
                                       objective_named(objective), torque_gains=planner.torque_gains)
         nlp = transcription.nlp
         expanded = ca.Function("nlp", [nlp["x"], nlp["p"]], [nlp["f"], nlp["g"]]).expand()
         counts.append((expanded.n_nodes(), transcription.variables.size))
-    (k0, k1), ((n0, x0), (n1, x1)) = PROBE_KNOTS, counts
+    (k0, k1), ((n0, x0), (n1, x1)) = probes, counts
     per_knot = (n1 - n0) / (k1 - k0)
     return StageSize(objective, per_knot, max(n0 - k0 * per_knot, 0.0), (x1 - x0) / (k1 - k0))
 

@@ -454,8 +454,9 @@ def _initial_gains(task, arrays) -> dict:
             margin = best_linear_margin(response.limit_rows())
             r = max(margin.rho, 0.0) if np.isfinite(margin.rho) else 0.0
             _, jc_j, _, je_j = response.split()
-            gains.append((r * margin.gains).reshape(-1, order="F"))
-            torque_gains.append((-(jc_j.T @ (r * margin.gains) + r * je_j.T)).reshape(-1, order="F"))
+            full = response.all_gains(margin.gains)
+            gains.append((r * full).reshape(-1, order="F"))
+            torque_gains.append((-(jc_j.T @ (r * full) + r * je_j.T)).reshape(-1, order="F"))
             rho.append(r)
         out[f"G{p}"], out[f"rho{p}"] = np.array(gains).T, np.array(rho)[None, :]
         out[f"G_tau{p}"] = np.array(torque_gains).T
@@ -478,10 +479,11 @@ def certified_margins(task, plan: Plan, arrays) -> tuple[np.ndarray, list]:
             best = best_linear_margin(rows)
             if f"G{p}" in arrays and arrays[f"rho{p}"][0, k] > 1e-9:
                 d = response.dim
-                own = certify_gains(rows, arrays[f"G{p}"][:, k].reshape((-1, d), order="F") / arrays[f"rho{p}"][0, k])
+                own_gains = arrays[f"G{p}"][:, k].reshape((-1, d), order="F") / arrays[f"rho{p}"][0, k]
+                own = certify_gains(rows, response.active_gains(own_gains))
                 best = own if own.rho >= best.rho else best
             column.append(best.rho)
-            chosen.append(best.gains)
+            chosen.append(response.all_gains(best.gains))
         columns.append(column)
         gains.append(np.array(chosen))
     return np.array(columns).T, gains
@@ -507,13 +509,15 @@ def _finished_plan(task, objective, arrays, outcome, backend: str) -> Plan:
 
 def _plan_arrays(task, objective, arrays, margin, solver_meta) -> Plan:
     K, nc = task.knots, len(task.contacts)
-    footholds = np.array([c.foothold for c in task.contacts])
+    active = task.schedule.activity(task.times)
+    forces = arrays["lam"].T.reshape(K, nc, 3).copy()
+    forces[~active] = 0.0   # fixed at zero by their bounds; exact zeros, as the plan contract says
     return Plan(
         t=task.times.copy(), q=arrays["q"].T.copy(), v=arrays["v"].T.copy(), a=arrays["a"].T.copy(),
         tau=arrays["tau"].T.copy(),
-        contact_forces=arrays["lam"].T.reshape(K, nc, 3).copy(),
-        contact_active=np.ones((K, nc), dtype=bool),
-        contact_targets=np.repeat(footholds[None], K, axis=0),
+        contact_forces=forces,
+        contact_active=active,
+        contact_targets=task.schedule.targets(task.times),
         margin=np.asarray(margin, float), meta=plan_meta(task, objective, solver_meta))
 
 

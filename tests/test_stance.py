@@ -22,6 +22,7 @@ import pytest
 from scipy.spatial import Delaunay
 
 from optimizer.errors import InfeasibleTask
+from optimizer.problem.schedule import stance_at
 from optimizer.problem.stance import solve_stance, stance_checks, static_support_lp
 from optimizer.problem.task import HandTarget, load_task, make_contact
 from optimizer.problem.terrain import slope_normal
@@ -72,11 +73,12 @@ def demo_checks():
 def test_demo_stances_are_reachable_and_statically_held(demo_checks, name):
     task, checks = demo_checks[name]
     robot = task.robot
-    holds = np.array([c.foothold for c in task.contacts])
     assert [c.label for c in checks] == ["start"] + [h.label for h in task.hand_targets]
     for check, target in zip(checks, [None] + task.hand_targets):
-        feet = frame_positions(robot, check.q, [c.frame for c in task.contacts])
-        np.testing.assert_allclose(feet, holds, rtol=0, atol=1e-6)
+        # the feet in stance at the posture's time, on the footholds of that time (a stepping task moves them)
+        stance = stance_at(task, 0.0 if target is None else target.t_start)
+        feet = frame_positions(robot, check.q, [c.frame for c in stance])
+        np.testing.assert_allclose(feet, np.array([c.foothold for c in stance]), rtol=0, atol=1e-6)
         assert np.all(check.q[7:] >= robot.joint_lower - 1e-12) and np.all(check.q[7:] <= robot.joint_upper + 1e-12)
         if target is not None:
             hand = frame_positions(robot, check.q, [target.frame])[0]

@@ -51,13 +51,14 @@ def variant(**changes):
 
 
 def test_the_demo_tasks():
-    assert [p.stem for p in DEMOS] == ["crawl_space", "drawer_pull", "stair_landing", "steep_ramp", "trench"]
+    assert [p.stem for p in DEMOS] == ["crawl_space", "drawer_pull", "landing_pick", "stair_landing", "steep_ramp",
+                                       "trench", "wall_brace"]
 
 
 @pytest.mark.parametrize("path", DEMOS, ids=lambda p: p.stem)
 def test_demo_task_loads(path):
     task = load_task(path)
-    assert task.knots == 60 and 2.0 <= task.duration <= 3.0
+    assert task.knots == 60 and 2.0 <= task.duration <= 4.0
     assert [c.frame for c in task.contacts] == ["foot_fl", "foot_fr", "foot_rl", "foot_rr"]
     assert [(d.frame, d.kind) for d in task.disturbances] == [("grip_point", "force")]
     if path.stem == "drawer_pull":   # pushes expected along the pull axis, a fifth across it
@@ -65,7 +66,8 @@ def test_demo_task_loads(path):
         assert [h.label for h in task.hand_targets] == ["grip", "pulled"]
     else:
         np.testing.assert_array_equal(task.disturbances[0].shape, np.eye(3))
-        assert [h.label for h in task.hand_targets] == ["pick", "place"]
+        labels = {"landing_pick": ["pick"], "wall_brace": ["reach"]}.get(path.stem, ["pick", "place"])
+        assert [h.label for h in task.hand_targets] == labels
     for contact in task.contacts:
         basis = np.vstack([contact.tangents, contact.normal])
         np.testing.assert_allclose(basis @ basis.T, np.eye(3), atol=1e-12)

@@ -10,7 +10,10 @@ samples follow the plan's own integrator (``semi-implicit-euler``):
 - feed-forward torques, contact forces and response gains: straight lines
   between the knots' values (a choice for smooth commands; the plan's limits
   hold at knots, and between knots on every limit that is convex in them);
-- stance flags and footholds: those of knot ``k`` (held until the next knot).
+- stance flags and footholds: those of knot ``k`` (held until the next knot);
+  a contact flagged out of stance has zero force and zero force gains in
+  the sample (on the step into a touchdown the straight line would
+  otherwise start the force before the foot is down).
 
 At a knot's time every sample equals the plan's values exactly. Response
 gains are the plan's certifying gains (:func:`optimizer.planfile.response_gains`)
@@ -77,7 +80,7 @@ def knot_gains(plan, point: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray
     force, torque, margin = [], [], []
     for k, response in knot_responses(plan, disturbance=point):
         rows = response.limit_rows()
-        linear = plan_margin(rows, None if stored is None else stored[k])
+        linear = plan_margin(rows, None if stored is None else response.active_gains(stored[k]))
         _, jc_j, _, je_j = response.split()
         active = np.flatnonzero(response.active)
         full = np.zeros((response.nc, 3, response.dim))
@@ -123,10 +126,11 @@ def _sample(plan, model, s, force_gains, torque_gains, margins) -> dict:
     def line(x):
         return (1.0 - w) * x[k] + w * x[k + 1]
 
+    stance = np.asarray(plan.contact_active[k], bool)
     return dict(q=pin.integrate(model, plan.q[k], dt * plan.v[k + 1]), v=plan.v[k] + dt * plan.a[k], a=plan.a[k],
-                tau=line(plan.tau), contact_forces=line(plan.contact_forces), contact_active=plan.contact_active[k],
-                contact_targets=plan.contact_targets[k], gain_tau=line(torque_gains), gain_force=line(force_gains),
-                margin=margins[k])
+                tau=line(plan.tau), contact_forces=line(plan.contact_forces) * stance[:, None],
+                contact_active=stance, contact_targets=plan.contact_targets[k], gain_tau=line(torque_gains),
+                gain_force=line(force_gains) * stance[:, None, None], margin=margins[k])
 
 
 # ---------------------------------------------------------------- tables

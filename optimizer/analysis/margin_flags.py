@@ -161,7 +161,7 @@ def linear_bottleneck(plan, knot: int, point: int) -> str:
     """The limit that sets ``plan``'s certified margin at ``knot``: with its own gains when it carries them."""
     _, response = next(knot_responses(plan, [knot], point))
     stored = response_gains(plan, point)
-    return plan_margin(response.limit_rows(), None if stored is None else stored[knot]).limiting
+    return plan_margin(response.limit_rows(), None if stored is None else response.active_gains(stored[knot])).limiting
 
 
 def plan_shortfalls(plan, requirements, warn_below: float | None = None) -> list:

@@ -46,7 +46,8 @@ from ..errors import InfeasibleTask, TaskError
 from ..problem.clearance import smallest_clearance
 from ..problem.friction import pyramid_facets
 from ..problem.limits import FRICTION, TORQUE
-from ..problem.stance import stance_checks, static_support_lp
+from ..problem.schedule import contacts_at, stance_at, terrain_top
+from ..problem.stance import solve_stance, stance_checks, static_support_lp
 from ..solver.registry import DEFAULT_BACKEND, backend_named
 
 CONE_FACETS = 16          # facets of the pyramid circumscribing each Coulomb cone (proof of "cannot stand")
@@ -142,7 +143,8 @@ def _fmt(vec) -> str:
 
 
 def reach_findings(task) -> list[Finding]:
-    """Footholds too far apart, and hand targets beyond the chain reach from some foothold (proofs)."""
+    """Footholds too far apart (at the start), and hand targets beyond the chain reach from some foothold in
+    stance at the target's time (proofs)."""
     robot, contacts, out = task.robot, task.contacts, []
     for i, a in enumerate(contacts):
         for b in contacts[i + 1:]:
@@ -154,7 +156,7 @@ def reach_findings(task) -> list[Finding]:
                                    "move those footholds closer together", gap - chain, "m"))
     for i, target in enumerate(task.hand_targets):
         excess = [(float(np.linalg.norm(target.position - c.foothold)) - frames_chain_length(robot, c.frame, target.frame),
-                   c) for c in contacts]
+                   c) for c in stance_at(task, target.t_start)]
         missing, worst = max(excess, key=lambda e: e[0])
         if missing > 0.0:
             distance = float(np.linalg.norm(target.position - worst.foothold))
@@ -171,15 +173,17 @@ def reach_findings(task) -> list[Finding]:
 # ---------------------------------------------------------------- standing still
 
 
-def _force_balance_lp(task, facet_rows, scale: float, min_force: float, maximize_min_force: bool = False):
+def _force_balance_lp(task, facet_rows, scale: float, min_force: float, maximize_min_force: bool = False,
+                      contacts=None):
     """Contact forces (nc, 3) carrying the weight, N, world frame, or None.
 
+    ``contacts`` defaults to the task's (all of them, as at the final rest).
     ``facet_rows(contact, mu)`` gives rows ``g`` with ``g . f <= 0``; friction
     is scaled by ``scale``; every normal force is at least ``min_force`` N.
     With ``maximize_min_force`` the common lower bound on the normal forces is
     a variable and maximized; returns (forces, bound) then.
     """
-    contacts, robot = task.contacts, task.robot
+    contacts, robot = task.contacts if contacts is None else contacts, task.robot
     nc = len(contacts)
     nx = 3 * nc + (1 if maximize_min_force else 0)
     rows, rhs = [], []
@@ -268,6 +272,105 @@ def standing_findings(task) -> list[Finding]:
                     f"{_friction_words(task, scale)}",
                     f"raise pyramid_facets (8 keeps {math.cos(math.pi / 8):.2f} of mu) or give the surfaces more "
                     "friction", (scale - 1.0) * min(c.friction for c in task.contacts), "mu")]
+
+
+# ---------------------------------------------------------------- contact schedules
+
+
+def _window_words(t0: float, t1: float, stance) -> str:
+    names = ", ".join(c.frame for c in stance) or "no contact"
+    return f"from {t0:.2f} s to {t1:.2f} s only {names} {'is' if len(stance) == 1 else 'are'} in stance"
+
+
+def support_findings(task) -> list[Finding]:
+    """Every window of the contact schedule must leave contacts that can hold the robot still.
+
+    A design rule of schedules (a swing is never a jump or a fall): in each
+    window with one set of contacts in stance, (1) the weight must fit in the
+    sum of their Coulomb cones with the minimum normal force (posture-free
+    force balance, proof), and (2) the static support LP
+    (:func:`~optimizer.problem.stance.static_support_lp`: forces, moments,
+    friction, torque limits) at the stance-IK posture of the window's middle
+    must hold (an estimate at that posture, a warning), the body pulled over the
+    stance feet's centroid.
+    """
+    schedule = task.schedule
+    if not schedule.steps:
+        return []
+    out = []
+    for t0, t1, stance_ids in schedule.phases():
+        middle = 0.5 * (t0 + t1)
+        contacts = [c for i, c in enumerate(contacts_at(task, middle)) if i in stance_ids]
+        where = _window_words(t0, t1, contacts)
+        if not contacts or _force_balance_lp(task, _cone_rows, 1.0, task.min_normal_force, contacts=contacts) is None:
+            out.append(Finding("support", True, f"{where} ({task.schedule.field_name}): those contacts cannot carry "
+                               "the robot's weight at any posture", "keep more feet in stance in that window (move "
+                               "a lift-off later or a touchdown earlier)", t1 - t0, "s"))
+            continue
+        if len(stance_ids) == len(task.contacts):
+            continue
+        try:   # the base pulled over the stance feet's centroid: a posture that leans onto them
+            start = solve_stance(task.robot, contacts_at(task, middle), clearance=task.clearance)
+            base = start[:7].copy()
+            base[:2] = np.mean([c.foothold[:2] for c in contacts], axis=0)
+            q = solve_stance(task.robot, contacts, start, base_pose=base, clearance=task.clearance)
+        except InfeasibleTask:
+            continue
+        support = static_support_lp(task.robot, q, contacts, task.facets, task.min_normal_force)
+        if not support.feasible:
+            out.append(Finding("support", False, f"{where} ({task.schedule.field_name}): at the stance-IK posture "
+                               "those contacts cannot hold the robot still (" + (", ".join(map(str, support.tight[:3]))
+                               or "no balance at all") + "; an estimate, the body may still shift over them)",
+                               "keep more feet in stance in that window, or place them around the centre of mass"))
+    return out
+
+
+def leg_speed(robot, frame: str) -> float:
+    """Upper bound of a contact frame's speed relative to the body, m/s.
+
+    ``sum_i w_i r_i`` over the actuated joints between the root and the
+    frame, with ``w_i`` the joint's velocity limit and ``r_i`` the chain
+    length from its origin to the frame (:func:`chain_length`): the frame's
+    velocity relative to the root is ``sum_i w_i (axis_i x (p - o_i))``.
+    """
+    model = robot.model
+    total = 0.0
+    for joint in _joint_path(model, model.frames[robot.frame_id(frame)].parentJoint):
+        name = model.names[joint]
+        if name in robot.joint_names:
+            i = robot.joint_names.index(name)
+            total += float(robot.velocity_limit[i]) * chain_length(robot, joint, frame)
+    return total
+
+
+def swing_time_findings(task) -> list[Finding]:
+    """Swings too short for the leg's joint velocity limits (proof under the stated bound).
+
+    The foot rises from its lift-off foothold to at least the mid-swing
+    height and comes down to its touchdown foothold: its path is at least
+    ``max(|goal - start|, (h - z_start) + (h - z_goal))`` long, ``h`` the
+    mid-swing height. Relative to the body it moves at most
+    :func:`leg_speed`; the bound takes the body as still while the foot
+    swings (the other feet hold it on their footholds).
+    """
+    schedule, out = task.schedule, []
+    surfaces = task.clearance.surfaces if task.clearance else []
+    for c, intervals in enumerate(schedule.intervals):
+        speed = leg_speed(task.robot, task.contacts[c].frame)
+        for i in range(1, len(intervals)):
+            before, after = intervals[i - 1], intervals[i]
+            height = terrain_top(surfaces, before.foothold, after.foothold) + schedule.swing_height
+            path = max(float(np.linalg.norm(after.foothold - before.foothold)),
+                       (height - before.foothold[2]) + (height - after.foothold[2]))
+            needed, given = path / speed, after.t_start - before.t_end
+            if needed > given:
+                frame = task.contacts[c].frame
+                out.append(Finding("swing time", True, f"{schedule.field_name}.{frame}[{i}]: the swing of {frame} "
+                                   f"from {before.t_end:.3f} s to {after.t_start:.3f} s lasts {given:.3f} s; its path "
+                                   f"is at least {path:.2f} m and the leg moves the foot at most {speed:.1f} m/s "
+                                   f"(joint velocity limits), so it needs {needed:.3f} s", "start that stance later",
+                                   needed - given, "s"))
+    return out
 
 
 # ---------------------------------------------------------------- estimates at stance postures
@@ -403,7 +506,9 @@ def clearance_findings(task) -> list[Finding]:
 
 def run_checks(task) -> list[Finding]:
     """Every pre-solve finding of ``task``: proofs first; estimates only when nothing is proven."""
-    proofs = reach_findings(task) + standing_findings(task) + clearance_findings(task)
+    proofs = reach_findings(task) + standing_findings(task) + clearance_findings(task) + swing_time_findings(task)
+    support = support_findings(task)
+    proofs += [f for f in support if f.impossible]
     if proofs:
         return proofs
     try:
@@ -411,7 +516,8 @@ def run_checks(task) -> list[Finding]:
     except InfeasibleTask as exc:
         return [Finding("stance", False, f"the stance IK found no start posture ({exc}); the solver may still find one",
                         "move the footholds closer to the standing posture or set initial_posture hints")]
-    return statics_findings(task, checks[0].q) + hand_findings(task, checks) + timing_findings(task, checks)
+    return (support + statics_findings(task, checks[0].q) + hand_findings(task, checks)
+            + timing_findings(task, checks))
 
 
 def require_possible(task) -> list[Finding]:

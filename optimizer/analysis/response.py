@@ -102,6 +102,16 @@ class KnotResponse:
     def contact_name(self, c: int) -> str:
         return self.contact_names[c] if self.contact_names else f"contact {c}"
 
+    def active_gains(self, gains) -> np.ndarray:
+        """Rows of the active contacts of all-contact gains (3 nc, d) -> (3 na, d)."""
+        return np.asarray(gains, float)[np.repeat(np.asarray(self.active, bool), 3)]
+
+    def all_gains(self, gains) -> np.ndarray:
+        """Active-contact gains (3 na, d) -> (3 nc, d), zero rows for the contacts not in stance."""
+        out = np.zeros((3 * self.nc, self.dim))
+        out[np.repeat(np.asarray(self.active, bool), 3)] = np.asarray(gains, float).reshape(-1, self.dim)
+        return out
+
     def limit_rows(self) -> "LimitRows":
         """The response problem as linear rows in ``x = (u, dlambda_active)``."""
         return build_limit_rows(self)

@@ -28,6 +28,7 @@ from ..errors import InfeasibleTask
 from .clearance import clearance_rows
 from .friction import pyramid_facets
 from .limits import FRICTION, TORQUE, KnotLimits, LimitName, LimitValues
+from .schedule import stance_at
 
 WORLD_ALIGNED = pin.ReferenceFrame.LOCAL_WORLD_ALIGNED
 
@@ -458,7 +459,7 @@ def stance_checks(task, base_weight: float = 0.1) -> list[StanceCheck]:
         robot, task.contacts, clearance=task.clearance)
     postures = [("start", start, None)]
     for i, target in enumerate(task.hand_targets):
-        q = solve_stance(robot, task.contacts, start, target, nominal=start, base_pose=start[:7],
+        q = solve_stance(robot, stance_at(task, target.t_start), start, target, nominal=start, base_pose=start[:7],
                          base_weight=base_weight, clearance=task.clearance)
         postures.append((target.label or f"target {i}", q, target))
     return [_check(task, label, q, target) for label, q, target in postures]
@@ -468,5 +469,6 @@ def _check(task, label, q, target) -> StanceCheck:
     robot = task.robot
     hand = np.nan if target is None else float(np.linalg.norm(frame_position(robot, q, target.frame) - target.position))
     room = float(np.min(np.minimum(q[7:] - robot.joint_lower, robot.joint_upper - q[7:])))
-    support = static_support_lp(robot, q, task.contacts, task.facets, task.min_normal_force)
-    return StanceCheck(label, q, float(foot_residuals(robot, q, task.contacts).max()), hand, room, support)
+    contacts = stance_at(task, 0.0 if target is None else target.t_start)
+    support = static_support_lp(robot, q, contacts, task.facets, task.min_normal_force)
+    return StanceCheck(label, q, float(foot_residuals(robot, q, contacts).max()), hand, room, support)

@@ -28,6 +28,7 @@ from .friction import tangent_basis
 from .geometry import ground_planes
 from .push_shape import shape_from_directions, wrench_shape
 from .requirement import horizon_requirement, read_requirements
+from .schedule import DEFAULT_SWING_HEIGHT, Schedule, StanceInterval
 from .stance import foot_residuals, solve_stance
 from .terrain import build_terrain
 
@@ -145,6 +146,10 @@ class Task:
     memory_limit : int or None
         Bytes a solve may use (``solver.memory_limit``); None: what the
         machine has available.
+    schedule : Schedule
+        Stance intervals per contact (``stance.schedule``); one interval over
+        the whole horizon for every contact the schedule does not name. The
+        ``foothold`` of each entry of ``contacts`` is that of its first interval.
     """
 
     name: str
@@ -165,6 +170,12 @@ class Task:
     requirements: list = field(default_factory=list)
     clearance: ClearanceSpec = None
     memory_limit: int | None = None
+    schedule: Schedule = None
+
+    def __post_init__(self):
+        if self.schedule is None:
+            self.schedule = Schedule([[StanceInterval(0.0, self.duration, c.foothold.copy(), c.surface)]
+                                      for c in self.contacts], path=self.path, frames=[c.frame for c in self.contacts])
 
     def with_knots(self, knots: int) -> "Task":
         """A copy with ``knots`` knots (>= 2); the robot object is shared."""
@@ -212,8 +223,8 @@ def task_from_mapping(data: dict, path) -> Task:
         top.string("description")
     robot_path, robot = read_robot(top)
     duration, knots = read_horizon(top.sub("horizon"))
-    contacts, surfaces = read_stance(top.sub("stance"), robot)
-    clearance = read_clearance(top, robot, contacts, surfaces)
+    contacts, surfaces, schedule = read_stance(top.sub("stance"), robot, duration)
+    clearance = read_clearance(top, robot, schedule_contacts(contacts, schedule), surfaces)
     weight = robot.mass * float(np.linalg.norm(robot.gravity))
     hand_targets = read_hand_targets(top, robot, duration)
     disturbances = read_disturbances(top, robot)
@@ -237,6 +248,7 @@ def task_from_mapping(data: dict, path) -> Task:
         clearance=clearance,
         requirements=read_requirements(top, weight=weight, duration=duration,
                                        hand_targets=hand_targets, disturbances=disturbances),
+        schedule=schedule,
     )
 
 
@@ -280,29 +292,110 @@ def unit_vector(fields: Fields, key: str, default=...) -> np.ndarray:
 # ---------------------------------------------------------------- stance
 
 
-def read_stance(stance: Fields, robot) -> tuple[list[ContactSpec], list]:
-    """Contacts from ``stance.contacts`` (explicit) or ``stance.terrain`` + ``stance.feet``, and the surfaces.
+def read_stance(stance: Fields, robot, duration: float) -> tuple[list[ContactSpec], list, Schedule]:
+    """Contacts from ``stance.contacts`` (explicit) or ``stance.terrain`` + ``stance.feet``, the surfaces,
+    and the contact schedule (``stance.schedule``).
 
     Surfaces (:class:`~optimizer.problem.geometry.Surface`) are the terrain's
     geometry, or for explicit contacts a ground plane through each distinct
     foothold plane that no other foothold lies below.
     """
-    stance.allow_only({"contacts", "terrain", "feet"})
+    stance.allow_only({"contacts", "terrain", "feet", "schedule"})
     explicit, placed = stance.has("contacts"), stance.has("terrain") or stance.has("feet")
     if explicit == placed:
         raise TaskError(stance.file, stance.path, "either 'contacts' or 'terrain' with 'feet'", sorted(stance.data))
+    terrain = None
     if explicit:
         contacts = read_explicit_contacts(stance.sub("contacts"))
         surfaces, names = ground_planes(contacts) if contacts else ([], {})
         for c in contacts:
             c.surface = names[c.frame]
     else:
-        contacts, surfaces = read_placed_feet(stance)
+        terrain = build_terrain(stance.sub("terrain"))
+        contacts, surfaces = read_placed_feet(stance, terrain)
     if not contacts:
         stance.fail("contacts" if explicit else "feet", "at least one contact", "none")
     for c in contacts:
         check_frame(stance, ("contacts." if explicit else "feet.") + c.frame, robot, c.frame)
-    return contacts, surfaces
+    return contacts, surfaces, read_schedule(stance, contacts, terrain, duration)
+
+
+def read_schedule(stance: Fields, contacts, terrain, duration: float) -> Schedule:
+    """``stance.schedule``: ``{swing_height: m, <frame>: [{window: [t0, t1] s, xy | position}, ...]}``.
+
+    Each entry is a stance interval; a foothold is ``xy`` on the terrain (with
+    an optional ``surface``) or an explicit ``position`` (explicit contacts);
+    without either the contact stays where its previous interval was (the
+    first interval: its foothold from ``feet``/``contacts``). Intervals must
+    lie in the horizon, the first start at 0 and the last end at the end
+    (rest at both ends), follow each other without overlap, and keep the
+    contact's normal and friction (the plan stores one per contact).
+    """
+    intervals = [[StanceInterval(0.0, duration, c.foothold.copy(), c.surface)] for c in contacts]
+    schedule = Schedule(intervals, path=stance.file, field_name=stance.at("schedule"),
+                        frames=[c.frame for c in contacts])
+    if not stance.has("schedule"):
+        return schedule
+    section = stance.sub("schedule")
+    frames = {c.frame: i for i, c in enumerate(contacts)}
+    section.allow_only(set(frames) | {"swing_height"})
+    schedule.swing_height = section.number("swing_height", DEFAULT_SWING_HEIGHT, lo=0.0, hi=1.0)
+    for key in section.data:
+        require_text_key(section, key)
+        if key != "swing_height":
+            c = frames[key]
+            intervals[c] = read_intervals(section, key, contacts[c], terrain, duration)
+    return schedule
+
+
+def read_intervals(section: Fields, key: str, contact: ContactSpec, terrain, duration: float) -> list:
+    """The stance intervals of one contact (see :func:`read_schedule`)."""
+    items = section.raw(key)
+    if not isinstance(items, list) or not items:
+        section.fail(key, "a non-empty list of stance intervals {window: [start, end] s, xy or position}", items)
+    out, foothold, surface = [], contact.foothold.copy(), contact.surface
+    for i, item in enumerate(items):
+        entry = Fields(item, section.file, section.at(f"{key}[{i}]"), TaskError)
+        entry.allow_only({"window", "xy", "surface", "position"})
+        t0, t1 = (float(x) for x in entry.vector("window", 2))
+        if not 0.0 <= t0 < t1 <= duration:
+            entry.fail("window", f"a window [start, end] within the horizon [0, {duration}] s, start < end", [t0, t1])
+        if out and t0 <= out[-1].t_end:
+            entry.fail("window", f"a window starting after the previous interval of {key} ends "
+                       f"({out[-1].t_end} s): stance intervals must not overlap", [t0, t1])
+        if entry.has("xy") or entry.has("position"):
+            foothold, surface = read_interval_foothold(entry, contact, terrain)
+        out.append(StanceInterval(t0, t1, foothold.copy(), surface))
+    if out[0].t_start > 0.0 or out[-1].t_end < duration:
+        section.fail(key, f"intervals covering the start (0 s) and the end ({duration} s): the plan starts and "
+                     "ends at rest on every contact", [[iv.t_start, iv.t_end] for iv in out])
+    return out
+
+
+def read_interval_foothold(entry: Fields, contact: ContactSpec, terrain) -> tuple[np.ndarray, str]:
+    """Foothold (3,) m and surface name of one interval: ``xy`` on the terrain or an explicit ``position``."""
+    if terrain is None:
+        if entry.has("xy"):
+            entry.fail("xy", "'position': [x, y, z] m (the task gives explicit contacts, no terrain)", "xy")
+        return entry.vector("position", 3), contact.surface
+    if entry.has("position"):
+        entry.fail("position", "'xy': [x, y] m on the terrain (the task places feet on a terrain)", "position")
+    surface = entry.string("surface") if entry.has("surface") else None
+    where = terrain.place(entry.vector("xy", 2), surface, entry.at("xy"))
+    if not np.allclose(where.normal, contact.normal, atol=1e-6) or abs(where.friction - contact.friction) > 1e-9:
+        entry.fail("xy", f"a foothold with the normal and friction of {contact.frame}'s first one "
+                   f"({np.round(contact.normal, 3).tolist()}, mu {contact.friction})",
+                   f"surface {where.surface}: normal {np.round(where.normal, 3).tolist()}, mu {where.friction}")
+    return where.foothold, where.surface
+
+
+def schedule_contacts(contacts, schedule: Schedule) -> list[ContactSpec]:
+    """One ContactSpec per (contact, surface it stands on in some interval): the clearance exemptions."""
+    out = []
+    for c, intervals in zip(contacts, schedule.intervals):
+        for surface in dict.fromkeys(iv.surface for iv in intervals):
+            out.append(dataclasses.replace(c, surface=surface))
+    return out
 
 
 def read_clearance(top: Fields, robot, contacts, surfaces) -> ClearanceSpec:
@@ -334,9 +427,8 @@ def read_explicit_contacts(contacts: Fields) -> list[ContactSpec]:
     return out
 
 
-def read_placed_feet(stance: Fields) -> tuple[list[ContactSpec], list]:
-    """Feet ``{frame: [x, y]}`` or ``{frame: {xy: [x, y], surface: name}}`` placed on the terrain."""
-    terrain = build_terrain(stance.sub("terrain"))
+def read_placed_feet(stance: Fields, terrain) -> tuple[list[ContactSpec], list]:
+    """Feet ``{frame: [x, y]}`` or ``{frame: {xy: [x, y], surface: name}}`` placed on ``terrain``."""
     feet = stance.sub("feet")
     out = []
     for frame in feet.data:

@@ -10,23 +10,47 @@ come from the static support LP at each knot. The result is not feasible
 """
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pinocchio as pin
 
+from ..problem.schedule import contacts_at
 from ..problem.stance import solve_stance, static_support_lp
 
 
 def keyframes(task) -> list[tuple[float, np.ndarray]]:
-    """(time [s], configuration (nq,)) pairs: the start, then each hand target's window ends."""
-    robot = task.robot
+    """(time [s], configuration (nq,)) pairs: the start, every hand target's window ends, and every
+    lift-off, mid-swing and touchdown of the contact schedule.
+
+    Each keyframe is the stance IK from the previous one with every contact on
+    its foothold of that time (the one it lands on while swinging; at
+    mid-swing, that foothold's midpoint with the one it left, raised by the
+    swing height) and the hand on the target whose window holds the time.
+    """
+    robot, schedule = task.robot, task.schedule
+    times = {0.0}
+    for target in task.hand_targets:
+        times |= {target.t_start, target.t_end}
+    lifted = {}
+    for c, intervals in enumerate(schedule.intervals):
+        for before, after in zip(intervals[:-1], intervals[1:]):
+            middle = 0.5 * (before.t_end + after.t_start)
+            times |= {before.t_end, after.t_start, middle}
+            point = 0.5 * (before.foothold + after.foothold)
+            point[2] = max(before.foothold[2], after.foothold[2]) + schedule.swing_height
+            lifted[(c, middle)] = point
     q = task.initial_posture if task.initial_posture is not None else solve_stance(
         robot, task.contacts, clearance=task.clearance)
     frames = [(0.0, q)]
-    for target in sorted(task.hand_targets, key=lambda t: t.t_start):
-        q = solve_stance(robot, task.contacts, q_guess=q, hand_target=target, clearance=task.clearance)
-        frames.append((target.t_start, q))
-        if target.t_end > target.t_start:
-            frames.append((target.t_end, q))
+    for t in sorted(times - {0.0}):
+        contacts = contacts_at(task, t)
+        for c in range(len(contacts)):
+            if (c, t) in lifted:
+                contacts[c] = dataclasses.replace(contacts[c], foothold=lifted[(c, t)])
+        target = next((h for h in task.hand_targets if h.t_start <= t <= h.t_end), None)
+        q = solve_stance(robot, contacts, q_guess=q, hand_target=target, clearance=task.clearance)
+        frames.append((t, q))
     return frames
 
 
@@ -61,9 +85,11 @@ def initial_guess(task) -> dict[str, np.ndarray]:
     a = np.zeros((robot.nv, K))
     a[:, :-1] = (v[:, 1:] - v[:, :-1]) / h
     tau, lam = np.zeros((robot.nj, K)), np.zeros((3 * len(task.contacts), K))
+    active = task.schedule.activity(times)
     for k in range(K):
-        support = static_support_lp(robot, q[:, k], task.contacts, task.facets, task.min_normal_force)
+        stance = [c for c, on in zip(contacts_at(task, times[k]), active[k]) if on]
+        support = static_support_lp(robot, q[:, k], stance, task.facets, task.min_normal_force)
         if np.all(np.isfinite(support.forces)):
-            lam[:, k], tau[:, k] = support.forces.reshape(-1), support.tau
+            lam[np.repeat(active[k], 3), k], tau[:, k] = support.forces.reshape(-1), support.tau
     tau = np.clip(tau, robot.torque_lower[:, None], robot.torque_upper[:, None])
     return {"q": q, "v": v, "a": a, "tau": tau, "lam": lam}

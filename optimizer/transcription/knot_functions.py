@@ -48,6 +48,7 @@ class KnotFunctions:
         self.limits = KnotLimits(joints, tuple(structure.contact_frames), structure.facets)
         self.dynamics = self._dynamics()
         self.stance = self._stance()
+        self.foot_motion = self._foot_motion()
         self.friction = self._friction()
         self.rooms = self._rooms()
         self.step = self._step()
@@ -74,6 +75,13 @@ class KnotFunctions:
         positions, _ = self.contacts(q)
         return ca.Function("stance", [q, target], [ca.vec(positions - target)],
                            ["q", "footholds"], ["error"])
+
+    def _foot_motion(self) -> ca.Function:
+        """(q, v) -> contact positions (3, nc) [m] and velocities ``J_c v`` (3 nc,) [m/s], world frame."""
+        q, v = self._sym("q", self.nq), self._sym("v", self.nv)
+        positions, jac = self.contacts(q)
+        return ca.Function("foot_motion", [q, v], [positions, ca.mtimes(jac, v)], ["q", "v"],
+                           ["positions", "velocities"])
 
     def _friction(self) -> ca.Function:
         """(lam, facets, normals, f_min) -> rooms of the contacts' limits / (m g): facets (m nc,), normal forces (nc,).

@@ -38,6 +38,9 @@ LIMIT_BACKOFF = 1e-6
 # rho, so the margin certified from the solved gains meets it despite round-off.
 REQUIREMENT_BACKOFF = 1e-6
 
+register_family("swing", "swinging feet: touchdown at rest and the height at mid-swing",
+                "give the swing more time (a later touchdown), a lower stance.schedule.swing_height, or a "
+                "foothold nearer the body")
 register_family("terrain clearance", "clearance: collision shapes kept away from the terrain (link vs surface)",
                 "move the hand targets or footholds away from the named surface, or lower clearance.distance")
 
@@ -99,6 +102,7 @@ class Transcription:
         self._dynamics(V, P)
         self._contacts(V, P)
         self._hand_targets(V, P)
+        self._swings(V, P)
         self._clearance(V, P)
         if objective.robust:
             self._robustness(V, P)
@@ -150,28 +154,73 @@ class Transcription:
             quat = V["q"][3:7, 0]
             self.constraints.add("unit quaternion", ca.dot(quat, quat) - 1.0, [0], who=["base orientation"])
 
+    def _by_pattern(self, name, expr, knots, rows_of, lower=0.0, upper=0.0, unit="", who=()):
+        """Add ``expr`` (rows, len(knots)) once per stance pattern, keeping at each knot the rows
+        ``rows_of(pattern)`` of the contacts in stance there (all rows when every contact is).
+
+        One group per pattern; a pattern with swinging contacts is named after them.
+        """
+        knots = list(knots)
+        frames = self.structure.contact_frames
+        for pattern, members in self.structure.patterns(knots):
+            rows = rows_of(pattern)
+            if not rows or not members:
+                continue
+            columns = [knots.index(k) for k in members]
+            swinging = [f for f, on in zip(frames, pattern) if not on]
+            label = f"{name} ({', '.join(swinging)} swinging)" if swinging else name
+            part = expr[rows, columns] if len(rows) < expr.shape[0] or len(columns) < len(knots) else expr
+            self.constraints.add(label, part, members, lower, upper, unit=unit, family=name,
+                                 who=[who[r] for r in rows])
+
+    def _contact_rows(self, per_contact: int):
+        """``pattern -> rows`` for a block of ``per_contact`` rows per contact, contacts stacked."""
+        return lambda pattern: [per_contact * c + i for c, on in enumerate(pattern) if on for i in range(per_contact)]
+
+    def _limit_rows(self, pattern) -> list[int]:
+        """Limit rows (in :class:`KnotLimits` order) of joints and of the contacts in stance."""
+        frames = dict(zip(self.structure.contact_frames, pattern))
+        return [i for i, n in enumerate(self.functions.limits.names) if n.kind == TORQUE or frames.get(n.owner, True)]
+
     def _contacts(self, V, P):
-        K, f = self.structure.knots, self.functions
+        K, f, nc = self.structure.knots, self.functions, self.structure.nc
         # Knot 0 is skipped when the start is fixed (the posture meets it already) and the
         # last knot always: at rest, q[K-1] = integrate(q[K-2], 0) = q[K-2], so its
         # contact positions repeat knot K-2's and Ipopt would see dependent equalities.
         first = 1 if self.structure.fixed_start else 0
         knots = range(first, K - 1)
-        stance = self._map(f.stance, len(knots))(V["q"][:, first:K - 1], P["footholds"])
+        stance = self._map(f.stance, len(knots))(V["q"][:, first:K - 1], P["footholds"][:, first * nc:(K - 1) * nc])
         frames = self.structure.contact_frames
-        self.constraints.add("stance contacts", stance, knots, unit="m", who=[c for c in frames for _ in range(3)])
+        self._by_pattern("stance contacts", stance, knots, self._contact_rows(3), unit="m",
+                         who=[c for c in frames for _ in range(3)])
+        names = f.limits.names
         if self.objective.robust:
             scales = ca.repmat(f.room_scales(P["tau_lower"], P["tau_upper"]), 1, K)
-            self.constraints.add("limit rooms", (self._rooms(V["tau"], V["lam"], P) - V["rooms"]) / scales, range(K),
-                                 unit="limit or m g/nc", who=f.limits.names)
+            self._by_pattern("limit rooms", (self._rooms(V["tau"], V["lam"], P) - V["rooms"]) / scales, range(K),
+                             self._limit_rows, unit="limit or m g/nc", who=names)
             return  # the rooms' bounds carry the plain limits
         facet_rooms, normal_rooms = self._map(f.friction, K)(V["lam"], P["facets"], P["normals"],
                                                              P["min_normal_force"])
-        contact_limits = [n for n in f.limits.names if n.kind != TORQUE]
-        self.constraints.add("friction pyramid", facet_rooms, range(K), LIMIT_BACKOFF, INF, unit="m g",
-                             who=[n.owner for n in contact_limits if n.kind == FRICTION])
-        self.constraints.add("minimum normal force", normal_rooms, range(K), LIMIT_BACKOFF, INF, unit="m g",
-                             who=[n.owner for n in contact_limits if n.kind == NORMAL_FORCE])
+        contact_limits = [n for n in names if n.kind != TORQUE]
+        self._by_pattern("friction pyramid", facet_rooms, range(K), self._contact_rows(self.structure.facets),
+                         LIMIT_BACKOFF, INF, unit="m g", who=[n.owner for n in contact_limits if n.kind == FRICTION])
+        self._by_pattern("minimum normal force", normal_rooms, range(K), self._contact_rows(1), LIMIT_BACKOFF, INF,
+                         unit="m g", who=[n.owner for n in contact_limits if n.kind == NORMAL_FORCE])
+
+    def _swings(self, V, P):
+        """Per swing: the foot at rest at touchdown (``J_c v = 0``, 3 rows) and, at mid-swing, its height
+        (world z) at least the swing's parameter (terrain top under the path plus the swing height)."""
+        frames = self.structure.contact_frames
+        for i, swing in enumerate(self.structure.swings):
+            frame = frames[swing.contact]
+            rows = slice(3 * swing.contact, 3 * swing.contact + 3)
+            if swing.touch < self.structure.knots - 1:  # the last knot is at rest by its bounds
+                _, velocity = self.functions.foot_motion(V["q"][:, swing.touch], V["v"][:, swing.touch])
+                self.constraints.add(f"touchdown {frame}@{swing.touch}", velocity[rows], [swing.touch], unit="m/s",
+                                     family="swing", who=[f"{frame} touchdown velocity"] * 3)
+            positions, _ = self.functions.foot_motion(V["q"][:, swing.mid], V["v"][:, swing.mid])
+            self.constraints.add(f"mid-swing {frame}@{swing.mid}", positions[2, swing.contact] - P["swing_heights"][i],
+                                 [swing.mid], 0.0, INF, unit="m", family="swing", who=[f"{frame} mid-swing height"])
 
     def _hand_targets(self, V, P):
         for i, slot in enumerate(self.structure.targets):
@@ -211,8 +260,8 @@ class Transcription:
             per_direction = velocity_names(self.robot) if self.torque_gains == "variables" else velocity_names(self.robot)[:6]
             self.constraints.add("robust balance" + tag, balance, range(K), unit="m g", family="robust balance",
                                  who=per_direction * self.structure.disturbances[p].dim)
-            self.constraints.add("robust limits" + tag, cone, range(K), 0.0, INF, unit="limit or m g/nc",
-                                 family="robust limits", who=self.functions.limits.names)
+            self._by_pattern("robust limits" + tag, cone, range(K), self._limit_rows, 0.0, INF,
+                             unit="limit or m g/nc", who=self.functions.limits.names)
 
     def rooms_at(self, arrays, p) -> np.ndarray:
         """Room left at every limit, shape (rows, K), for physical ``tau`` and ``lam`` arrays."""
@@ -221,6 +270,31 @@ class Transcription:
         return np.array(self._rooms(arrays["tau"], arrays["lam"], P))
 
     # -- bounds ------------------------------------------------------------
+    def _swing_bounds(self, lo, hi) -> None:
+        """Swinging contacts: force and gains fixed at zero; their limit rooms fixed (no row uses them)."""
+        L, s = self.variables, self.structure
+        if not s.activity:
+            return
+        swing = ~np.array(s.activity, dtype=bool).T          # (nc, K)
+        force = np.repeat(swing, 3, axis=0)                  # (3 nc, K)
+        for name in ["lam"] + [f"G{p}" for p in range(self.disturbance_count)]:
+            rows = L[name].rows
+            mask = np.tile(force, (rows // force.shape[0], 1))
+            for bound in (lo, hi):
+                value = L.get(bound, name)
+                value[mask] = 0.0
+                L.set(bound, name, value)
+        if "rooms" in L:
+            names = self.functions.limits.names
+            index = {f: c for c, f in enumerate(s.contact_frames)}
+            mask = np.array([[n.kind != TORQUE and swing[index[n.owner], k] for k in range(s.knots)] for n in names])
+            scales = np.repeat(np.array(self.functions.room_scales(self.robot.torque_lower, self.robot.torque_upper)),
+                               s.knots, axis=1)
+            for bound in (lo, hi):
+                value = L.get(bound, "rooms")
+                value[mask] = scales[mask]
+                L.set(bound, "rooms", value)
+
     def bounds(self, initial_posture=None, required=None) -> tuple[np.ndarray, np.ndarray]:
         """Variable bounds ``(lbx, ubx)`` in the solver's scaled units.
 
@@ -255,6 +329,7 @@ class Transcription:
             L.set(lo, f"rho{p}", np.broadcast_to(floor, (K,))[None, :])
         if "floor" in L:
             L.set(lo, "floor", 0.0)
+        self._swing_bounds(lo, hi)
         if initial_posture is not None:
             q_lo_k, q_hi_k = L.get(lo, "q"), L.get(hi, "q")
             q_lo_k[:, 0] = q_hi_k[:, 0] = initial_posture

@@ -5,6 +5,7 @@ import numpy as np
 
 from ..problem.clearance import CLEARANCE_BACKOFF, world_points
 from ..problem.friction import pyramid_facets
+from ..problem.schedule import terrain_top
 from .layout import VectorLayout
 from .structure import Structure
 
@@ -12,7 +13,10 @@ from .structure import Structure
 def parameter_layout(structure: Structure, robot) -> VectorLayout:
     """Layout of the parameter vector for ``structure`` on ``robot``.
 
-    Blocks (physical units): ``step`` [s]; ``footholds`` (3, nc) [m];
+    Blocks (physical units): ``step`` [s]; ``footholds`` (3, nc K) [m], knot
+    k's footholds in columns ``k nc .. k nc + nc - 1`` (a swinging contact's
+    is the one it lands on; no row uses it); ``swing_heights`` (swings,) [m],
+    the height above z = 0 each swing's foot must reach at mid-swing;
     ``normals`` (3, nc); ``facets`` (3 m, nc), the pyramid rows of each contact
     stacked; ``min_normal_force`` [N]; ``tau_lower``/``tau_upper`` (nj,) [N m];
     ``target_position`` (3, n_slots) [m]; ``target_rotation`` (9, n_slots),
@@ -24,7 +28,8 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     """
     layout = VectorLayout()
     layout.add("step")
-    layout.add("footholds", 3, structure.nc)
+    layout.add("footholds", 3, structure.nc * structure.knots)
+    layout.add("swing_heights", len(structure.swings))
     layout.add("normals", 3, structure.nc)
     layout.add("facets", 3 * structure.facets, structure.nc)
     layout.add("min_normal_force")
@@ -50,7 +55,11 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
     robot = task.robot
     values = layout.zeros()
     layout.set(values, "step", task.duration / (task.knots - 1))
-    layout.set(values, "footholds", np.array([c.foothold for c in task.contacts]).T)
+    layout.set(values, "footholds", knot_footholds(task).reshape(-1, 3).T)
+    schedule, surfaces = task.schedule, task.clearance.surfaces if task.clearance else []
+    heights = [terrain_top(surfaces, *(iv.foothold for iv in schedule.ends(s))) + schedule.swing_height
+               for s in structure.swings]
+    layout.set(values, "swing_heights", np.array(heights))
     layout.set(values, "normals", np.array([c.normal for c in task.contacts]).T)
     rows = [pyramid_facets(c.normal, c.tangents, c.friction, structure.facets).reshape(-1) for c in task.contacts]
     layout.set(values, "facets", np.array(rows).T)
@@ -68,6 +77,12 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
     if structure.clearance_rows:
         layout.set(values, "clearance_planes", clearance_planes(task, structure, motion))
     return values
+
+
+def knot_footholds(task) -> np.ndarray:
+    """(K, nc, 3) footholds [m] per knot: the stance's, or while swinging the one the contact lands on."""
+    schedule = task.schedule
+    return np.array([[schedule.interval_at(c, t).foothold for c in range(len(task.contacts))] for t in task.times])
 
 
 def clearance_planes(task, structure: Structure, motion=None) -> np.ndarray:

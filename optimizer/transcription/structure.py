@@ -61,6 +61,12 @@ class Structure:
         of each row and knot is a parameter (:mod:`optimizer.problem.clearance`).
     clearance_labels : tuple of str
         Per clearance row ``"<link> vs <surface>"``, for reports.
+    activity : tuple of tuple of bool
+        (K, nc): contact in stance at the knot; empty means every contact at
+        every knot. Swinging contacts carry no force, gains or limit rows.
+    swings : tuple of Swing
+        Each swing's lift-off, touchdown and mid-swing knots
+        (:mod:`optimizer.problem.schedule`).
     """
 
     knots: int
@@ -71,6 +77,19 @@ class Structure:
     fixed_start: bool
     clearance_rows: tuple = ()
     clearance_labels: tuple = ()
+    activity: tuple = ()
+    swings: tuple = ()
+
+    def active(self, k: int) -> tuple:
+        """Contacts in stance at knot ``k`` (bools, length nc)."""
+        return self.activity[k] if self.activity else (True,) * self.nc
+
+    def patterns(self, knots) -> list[tuple[tuple, list]]:
+        """``knots`` grouped by stance pattern: ``[(pattern, [knots])]``, first appearance order."""
+        out: dict = {}
+        for k in knots:
+            out.setdefault(self.active(k), []).append(k)
+        return list(out.items())
 
     @property
     def clearance_knots(self) -> range:
@@ -99,7 +118,10 @@ def structure_of(task) -> Structure:
     # At rest q[K-1] equals q[K-2]: a target binding both would be a repeated equality.
     last = task.knots - 1
     slots = [s for s in slots if not (s.knot == last and (last - 1, s.frame) in taken)]
+    activity = task.schedule.activity(times)
     return Structure(
+        activity=tuple(tuple(bool(x) for x in row) for row in activity) if not activity.all() else (),
+        swings=tuple(task.schedule.swings(times)),
         knots=task.knots,
         contact_frames=tuple(c.frame for c in task.contacts),
         facets=task.facets,

@@ -1,0 +1,199 @@
+"""Contact schedules: when each contact is in stance, where, and how it swings between.
+
+A task may give, per contact, a list of stance intervals (``stance.schedule``
+in docs/task-files.md): time windows [s] with a foothold each. Between two
+intervals the contact swings: it carries no force, clears the terrain under
+its path by ``swing_height`` at mid-swing, and lands with zero velocity.
+Contacts the schedule does not name stay in stance over the whole horizon.
+
+Which knots are in stance is structure (it fixes the NLP's sparsity); the
+footholds and the heights to clear are numbers (parameters). The knots a
+window binds follow the knot times: knot ``k`` is in stance in an interval
+when ``t_start <= t_k <= t_end``.
+"""
+from __future__ import annotations
+
+import dataclasses
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..errors import TaskError
+
+DEFAULT_SWING_HEIGHT = 0.05   # m above the terrain under the swing path, at mid-swing
+MIN_SWING_KNOTS = 2           # the mid-swing knot, and one more to land softly from
+
+
+@dataclass
+class StanceInterval:
+    """One stance of a contact: ``[t_start, t_end]`` s on ``foothold`` (3,) m (world), on ``surface``."""
+
+    t_start: float
+    t_end: float
+    foothold: np.ndarray
+    surface: str = ""
+
+
+@dataclass(frozen=True)
+class Swing:
+    """A swing between two stance intervals at a given knot count.
+
+    ``contact`` index; ``lift`` the last stance knot before, ``touch`` the
+    first after; ``mid`` the mid-swing knot (nearest the swing's middle time,
+    never the last swing knot); ``landing`` the index of the interval it
+    lands in (footholds are numbers, not structure: see :meth:`Schedule.ends`).
+    """
+
+    contact: int
+    lift: int
+    touch: int
+    mid: int
+    landing: int
+
+    @property
+    def knots(self) -> range:
+        """The knots in the air."""
+        return range(self.lift + 1, self.touch)
+
+
+@dataclass
+class Schedule:
+    """Stance intervals of every contact (one interval over the horizon for unscheduled ones).
+
+    Attributes
+    ----------
+    intervals : list of list of StanceInterval
+        Per contact, in time order, non-overlapping, the first starting at 0
+        and the last ending at the horizon's end.
+    swing_height : float
+        m the swinging foot must be above the terrain under its path at mid-swing.
+    path : path-like
+        The task file (for error messages).
+    """
+
+    intervals: list
+    swing_height: float = DEFAULT_SWING_HEIGHT
+    path: object = None
+    field_name: str = "stance.schedule"
+    frames: list = field(default_factory=list)
+
+    @property
+    def steps(self) -> bool:
+        """True when some contact swings."""
+        return any(len(i) > 1 for i in self.intervals)
+
+    def activity(self, times) -> np.ndarray:
+        """(K, nc) bool: contact in stance at each knot time."""
+        out = np.zeros((len(times), len(self.intervals)), dtype=bool)
+        step = times[1] - times[0] if len(times) > 1 else 1.0
+        for c, intervals in enumerate(self.intervals):
+            for iv in intervals:
+                out[:, c] |= (times >= iv.t_start - 1e-9 * step) & (times <= iv.t_end + 1e-9 * step)
+        return out
+
+    def targets(self, times) -> np.ndarray:
+        """(K, nc, 3) footholds [m] of the stance interval at each knot; NaN while swinging."""
+        out = np.full((len(times), len(self.intervals), 3), np.nan)
+        active = self.activity(times)
+        for c, intervals in enumerate(self.intervals):
+            for k, t in enumerate(times):
+                if active[k, c]:
+                    out[k, c] = self.interval_at(c, t).foothold
+        return out
+
+    def interval_at(self, contact: int, t: float) -> StanceInterval:
+        """The interval of ``contact`` in stance at ``t``, else the next one to come (the last at the end)."""
+        intervals = self.intervals[contact]
+        for iv in intervals:
+            if t <= iv.t_end + 1e-12:
+                return iv
+        return intervals[-1]
+
+    def swings(self, times) -> list[Swing]:
+        """Every swing at these knot times; a TaskError when a swing holds fewer than MIN_SWING_KNOTS knots."""
+        active, out = self.activity(times), []
+        for c, intervals in enumerate(self.intervals):
+            for i in range(1, len(intervals)):
+                before, after = intervals[i - 1], intervals[i]
+                air = [k for k in range(len(times)) if before.t_end < times[k] < after.t_start and not active[k, c]]
+                if len(air) < MIN_SWING_KNOTS:
+                    step = times[1] - times[0]
+                    raise TaskError(self.path, f"{self.field_name}.{self.frames[c]}[{i}].window",
+                                    f"a swing holding at least {MIN_SWING_KNOTS} knots (knots every {step:.3f} s): "
+                                    f"start this stance later or use more knots",
+                                    f"{len(air)} knot(s) between {before.t_end} s and {after.t_start} s")
+                middle = 0.5 * (before.t_end + after.t_start)
+                mid = min(air[:-1], key=lambda k: abs(times[k] - middle))
+                out.append(Swing(c, air[0] - 1, air[-1] + 1, mid, i))
+        return out
+
+    def ends(self, swing: Swing) -> tuple[StanceInterval, StanceInterval]:
+        """The stance intervals a swing leaves and lands in."""
+        intervals = self.intervals[swing.contact]
+        return intervals[swing.landing - 1], intervals[swing.landing]
+
+    def phases(self) -> list[tuple[float, float, tuple]]:
+        """Time windows with one set of contacts in stance: ``(t0, t1, (contact indices in stance))``.
+
+        Windows where a contact swings are open at their ends (the stance
+        intervals hold the end times); stance sets are listed once per window.
+        """
+        events = sorted({iv.t_start for ivs in self.intervals for iv in ivs}
+                        | {iv.t_end for ivs in self.intervals for iv in ivs})
+        out = []
+        for t0, t1 in zip(events[:-1], events[1:]):
+            middle = 0.5 * (t0 + t1)
+            stance = tuple(c for c, ivs in enumerate(self.intervals)
+                           if any(iv.t_start <= middle <= iv.t_end for iv in ivs))
+            if out and out[-1][2] == stance:
+                out[-1] = (out[-1][0], t1, stance)
+            else:
+                out.append((t0, t1, stance))
+        return out
+
+
+def terrain_top(surfaces, start, goal) -> float:
+    """Highest terrain point under the straight horizontal path from ``start`` to ``goal`` (3,), m (z).
+
+    Planes that face up (normal z > 0.1) are linear along the path, so their
+    highest point is at an end; a box counts with its top when the path's
+    (x, y) segment crosses its footprint. Surfaces facing down (ceilings) and
+    walls are not under the path.
+    """
+    a, b = np.asarray(start, float)[:2], np.asarray(goal, float)[:2]
+    top = -np.inf
+    for s in surfaces:
+        if s.kind == "plane":
+            n = s.normal
+            if n[2] > 0.1:
+                top = max(top, *((s.offset - n[:2] @ p) / n[2] for p in (a, b)))
+        elif segment_crosses_box(a, b, s.lower[:2], s.upper[:2]):
+            top = max(top, float(s.upper[2]))
+    return float(top) if np.isfinite(top) else float(max(start[2], goal[2]))
+
+
+def segment_crosses_box(a, b, lower, upper) -> bool:
+    """Does the 2-D segment ``a``-``b`` meet the rectangle ``[lower, upper]``? (slab clipping)"""
+    t0, t1, d = 0.0, 1.0, b - a
+    for i in range(2):
+        if abs(d[i]) < 1e-12:
+            if not lower[i] <= a[i] <= upper[i]:
+                return False
+            continue
+        u, w = (lower[i] - a[i]) / d[i], (upper[i] - a[i]) / d[i]
+        t0, t1 = max(t0, min(u, w)), min(t1, max(u, w))
+        if t0 > t1:
+            return False
+    return True
+
+
+def contacts_at(task, t: float) -> list:
+    """The task's contacts (ContactSpec) with the footholds of their stance at ``t`` s (the next one while swinging)."""
+    return [dataclasses.replace(c, foothold=task.schedule.interval_at(i, t).foothold.copy())
+            for i, c in enumerate(task.contacts)]
+
+
+def stance_at(task, t: float) -> list:
+    """The contacts in stance at ``t`` s, with their footholds then."""
+    active = task.schedule.activity(np.array([t, t + 1.0]))[0]
+    return [c for c, on in zip(contacts_at(task, t), active) if on]

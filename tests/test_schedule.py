@@ -1,0 +1,167 @@
+"""Contact schedules: stepping demo tasks, swings, and the checks of a schedule before solving."""
+from __future__ import annotations
+
+import copy
+
+import numpy as np
+import pinocchio as pin
+import pytest
+
+from certify_checks import check_plan_against_sampled_lps
+from optimizer.analysis.export import resample
+from optimizer.analysis.plan_check import check_plan
+from optimizer.analysis.presolve import run_checks
+from optimizer.errors import TaskError
+from optimizer.files import read_yaml_mapping
+from optimizer.planner import Planner
+from optimizer.problem.task import load_task, task_from_mapping
+from optimizer.transcription.structure import structure_of
+
+STEPPING = ["landing_pick", "wall_brace"]
+OBJECTIVES = ["robust", "torque"]
+KNOTS = 10          # the smallest count that keeps two knots in every swing of both demos
+_SOLVED: dict = {}
+
+
+def stepping_plan(name: str, objective: str):
+    """(task, plan) of a stepping demo at KNOTS knots; one seed per task serves both objectives."""
+    if name not in _SOLVED:
+        task = load_task(f"tasks/{name}.yaml").with_knots(KNOTS)
+        with Planner() as planner:
+            seed = planner.seed(task)
+            _SOLVED[name] = task, {obj: planner.solve_from_seed(seed, obj) for obj in OBJECTIVES}
+    task, outcomes = _SOLVED[name]
+    outcome = outcomes[objective]
+    assert outcome.success, [(s.objective, s.status, s.message) for s in outcome.stages]
+    return task, outcome.plan
+
+
+def foot_kinematics(plan, k: int, frame: str):
+    """Position (3,) and linear velocity (3,) of ``frame`` at knot k, by Pinocchio from the plan file."""
+    model = pin.buildModelFromXML(plan.meta["urdf"], pin.JointModelFreeFlyer())
+    data = model.createData()
+    pin.forwardKinematics(model, data, plan.q[k], plan.v[k])
+    pin.updateFramePlacements(model, data)
+    fid = model.getFrameId(frame)
+    velocity = pin.getFrameVelocity(model, data, fid, pin.ReferenceFrame.LOCAL_WORLD_ALIGNED).linear
+    return np.array(data.oMf[fid].translation), np.array(velocity)
+
+
+@pytest.mark.parametrize("objective", OBJECTIVES)
+@pytest.mark.parametrize("name", STEPPING)
+def test_stepping_plan_passes_the_pinocchio_recheck(name, objective):
+    # Reference: Pinocchio (rnea, frame placements, integrate) in analysis/plan_check.py, which
+    # reads only the plan file: equations of motion, stance feet on their per-knot footholds,
+    # friction, zero force on swinging feet, limits, terrain clearance.
+    task, plan = stepping_plan(name, objective)
+    report = check_plan(plan)
+    assert report.passed, report
+    assert (~plan.contact_active).any(), "the demo must swing a foot"
+    assert np.all(np.isnan(plan.contact_targets[~plan.contact_active]))
+
+
+@pytest.mark.parametrize("objective", OBJECTIVES)
+@pytest.mark.parametrize("name", STEPPING)
+def test_swing_feet_carry_no_force_and_clear_the_terrain(name, objective):
+    # Reference: Pinocchio forward kinematics of the plan's own URDF (not the NLP's functions).
+    # The height to clear is read from the task file's numbers here: the top of what lies
+    # under the straight path between the two footholds (the landing block's top where the
+    # path crosses its front edge at x = 0.50 m; the floor, z = 0, beside the wall).
+    task, plan = stepping_plan(name, objective)
+    tops = {"landing_pick": 0.12, "wall_brace": 0.0}
+    swing_height = read_yaml_mapping(task.path, TaskError)["stance"]["schedule"]["swing_height"]
+    swings = structure_of(task).swings
+    assert swings
+    for swing in swings:
+        frame = plan.meta["contact_frames"][swing.contact]
+        # no force at any swing knot, exactly (the plan contract)
+        assert np.all(plan.contact_forces[list(swing.knots), swing.contact] == 0.0)
+        assert not plan.contact_active[list(swing.knots), swing.contact].any()
+        height = max(foot_kinematics(plan, k, frame)[0][2] for k in swing.knots)
+        assert height >= tops[name] + swing_height - 1e-6, (frame, height)
+        # touchdown: the foot arrives at rest (J v = 0) on its new foothold
+        position, velocity = foot_kinematics(plan, swing.touch, frame)
+        assert np.linalg.norm(velocity) < 1e-5
+        assert np.allclose(position, plan.contact_targets[swing.touch, swing.contact], atol=1e-5)
+        # lift-off: the last step before it moved the foot by nothing (stance at both ends)
+        before, _ = foot_kinematics(plan, swing.lift - 1, frame)
+        at, _ = foot_kinematics(plan, swing.lift, frame)
+        assert np.linalg.norm(at - before) < 1e-5
+
+
+@pytest.mark.parametrize("name", STEPPING)
+def test_stepping_margins_lie_between_independent_lp_bounds(name):
+    # Reference: SciPy HiGHS support LPs of the residual force set (tests/certify_checks.py),
+    # built from the plan file with only the contacts in stance at each knot: the exact
+    # figure lies between the inner and outer sampled bounds, and the planned (linear-gain)
+    # margin never exceeds it (margin soundness).
+    _, plan = stepping_plan(name, "robust")
+    swing_knot = int(np.flatnonzero((~plan.contact_active).any(axis=1))[0])
+    rows = check_plan_against_sampled_lps(plan, n_dirs=80, knots=[0, swing_knot])
+    for row in rows:
+        assert row["planned"] <= row["rho"] * (1 + 1e-6) + 1e-9, row
+
+
+# ---------------------------------------------------------------- validation before solving
+
+
+def landing_mapping():
+    path = "tasks/landing_pick.yaml"
+    return copy.deepcopy(read_yaml_mapping(path, TaskError)), path
+
+
+def test_overlapping_stance_intervals_are_refused_with_the_field():
+    data, path = landing_mapping()
+    data["stance"]["schedule"]["foot_fl"][1]["window"] = [0.4, 4.0]   # starts before [0, 0.5] ends
+    with pytest.raises(TaskError, match=r"stance\.schedule\.foot_fl\[1\]\.window.*must not overlap"):
+        task_from_mapping(data, path)
+
+
+def test_a_window_beyond_the_horizon_is_refused():
+    data, path = landing_mapping()
+    data["stance"]["schedule"]["foot_fr"][1]["window"] = [2.4, 4.5]
+    with pytest.raises(TaskError, match=r"stance\.schedule\.foot_fr\[1\]\.window.*within the horizon"):
+        task_from_mapping(data, path)
+
+
+def test_a_swing_between_two_knots_is_refused_at_that_knot_count():
+    task = load_task("tasks/landing_pick.yaml").with_knots(6)   # a step of 0.8 s: one knot in a 0.9 s swing
+    with pytest.raises(TaskError, match=r"stance\.schedule\.foot_\w+\[1\]\.window.*at least 2 knots"):
+        structure_of(task)
+
+
+def test_a_window_with_every_foot_in_the_air_is_too_little_support():
+    # Newton: no contact force means nothing balances gravity.
+    data, path = landing_mapping()
+    for frame in ("foot_rl", "foot_rr"):
+        data["stance"]["schedule"][frame] = [{"window": [0.0, 0.4]}, {"window": [1.5, 4.0]}]
+    data["stance"]["schedule"]["foot_fr"] = [{"window": [0.0, 0.4]}, {"window": [1.5, 4.0]}]
+    findings = [f for f in run_checks(task_from_mapping(data, path)) if f.check == "support"]
+    assert findings and findings[0].impossible
+    assert "from 0.50 s to 1.40 s only no contact" in findings[0].what
+
+
+def test_a_swing_faster_than_the_legs_can_move_is_refused():
+    # Bound: the foot travels at least |goal - start| = hypot(0.40, 0.12) m (onto the landing); the leg moves it at most
+    # sum_i w_i r_i (joint speed limits times chain lengths, from the robot file), i.e.
+    # 17.2 m/s on the demo robot, so a 0.01 s swing is too short.
+    data, path = landing_mapping()
+    data["stance"]["schedule"]["foot_fl"] = [{"window": [0.0, 0.6]},
+                                             {"window": [0.61, 4.0], "xy": [0.66, 0.19]}]
+    findings = [f for f in run_checks(task_from_mapping(data, path)) if f.check == "swing time"]
+    assert findings and findings[0].impossible
+    assert "stance.schedule.foot_fl[1]" in findings[0].what
+    assert findings[0].shortfall == pytest.approx(np.hypot(0.40, 0.12) / 17.2 - 0.01, rel=1e-3)
+
+
+def test_export_flags_every_sample_with_its_step_and_keeps_swing_forces_at_zero():
+    # Reference: the plan file's own contact_active (docs/plan-files.md) and the export rule
+    # (docs/export.md): a sample between knots k and k + 1 carries knot k's stance flags, and
+    # a contact out of stance pushes with nothing.
+    _, plan = stepping_plan("landing_pick", "robust")
+    trajectory = resample(plan, 50.0)
+    step = np.clip(np.searchsorted(plan.t, trajectory.t + 1e-9, side="right") - 1, 0, len(plan.t) - 1)
+    assert np.array_equal(trajectory.contact_active, plan.contact_active[step])
+    assert (~trajectory.contact_active).any()
+    assert np.all(trajectory.contact_forces[~trajectory.contact_active] == 0.0)
+    assert np.all(trajectory.gain_force[~trajectory.contact_active] == 0.0)
