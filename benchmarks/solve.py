@@ -22,7 +22,7 @@ cache that run left, as every later process finds it), ``expanded`` (one scalar 
 mapped over the knots, ``expand=False``: fast build, slower iterations). ``--compare K`` also solves
 ``robust``, ``robust-min`` and ``robust-sum`` from one seed per task at K knots and reports
 their certified margins. Prints Markdown; ``--write`` replaces the "## Solve" section of the
-results file. Record the machine's load with the figures: timings on a busy machine are slow.
+results file (``--section`` names another). Record the machine's load with the figures: timings on a busy machine are slow.
 """
 from __future__ import annotations
 
@@ -151,13 +151,14 @@ def load_text() -> str:
 def section(args, results, growth, comparison, elapsed, loads) -> str:
     cpu = platform.processor() or platform.machine()
     lines = [
-        "## Solve", "",
+        f"## {args.section}", "",
         f"Script: `python benchmarks/solve.py --tasks {args.tasks} --knots {args.knots} --objective "
         f"{args.objective} --evaluation {args.evaluation}"
         + (" --torque-gains variables" if args.torque_gains == "variables" else "")
         + (" --again" if args.again else "")
         + (f" --compare {args.compare}" if args.compare else "")
-        + (f" --compare-tasks {args.compare_tasks}" if args.compare and args.compare_tasks else "") + "` "
+        + (f" --compare-tasks {args.compare_tasks}" if args.compare and args.compare_tasks else "")
+        + (f" --section '{args.section}'" if args.section != "Solve" else "") + "` "
         f"({datetime.date.today().isoformat()}, {os.cpu_count()} cores, {cpu}, Python "
         f"{platform.python_version()}, `OPENBLAS_NUM_THREADS=1`, Ipopt + MUMPS through CasADi); "
         f"whole run {elapsed / 60:.1f} min.", "",
@@ -226,6 +227,7 @@ def main(argv=None) -> int:
     parser.add_argument("--compare", type=int, default=0, metavar="K")
     parser.add_argument("--compare-tasks", metavar="TASKS", help="tasks of --compare (default: --tasks)")
     parser.add_argument("--write", metavar="RESULTS.md")
+    parser.add_argument("--section", default="Solve", help="heading of the results section written (default Solve)")
     parser.add_argument("--torque-gains", default="eliminated", choices=["eliminated", "variables"],
                         help="joint-torque gains in closed form (default) or as decision variables (ablation)")
     parser.add_argument("--again", action="store_true",
@@ -259,7 +261,7 @@ def main(argv=None) -> int:
             print(json.dumps(comparison[-1]), flush=True)
     loads.append(load_text())
     text = section(args, results, growth, comparison, time.perf_counter() - started, loads)
-    publish(text, args.write, "Solve")
+    publish(text, args.write, args.section)
     return 0
 
 
