@@ -11,13 +11,14 @@ import shutil
 import sys
 
 from ..cache import ENVIRONMENT, cache_contents, cache_dir, clear_cache, set_cache_dir
+from ..errors import InputError
 from ..memory import format_size
 
 HELP = "show or clear the cache folder of compiled solver parts"
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("action", choices=["show", "clear"], help="show: where the cache is and what it holds; "
+    parser.add_argument("action", metavar="show|clear", help="show: where the cache is and what it holds; "
                         "clear: remove everything in it")
     add_cache_option(parser)
 
@@ -54,7 +55,12 @@ def compiler_note() -> str | None:
     return None
 
 
+ACTIONS = ("show", "clear")
+
+
 def run(args) -> int:
+    if args.action not in ACTIONS:
+        raise InputError("command line", "ACTION", " or ".join(ACTIONS), args.action)
     apply_cache_option(args)
     folder = cache_dir()
     entries = cache_contents()
