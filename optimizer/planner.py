@@ -42,7 +42,7 @@ from .solver.registry import DEFAULT_BACKEND, backend_named
 from .transcription.guess import initial_guess
 from .transcription.nlp import INTEGRATOR, Transcription
 from .transcription.objectives import OBJECTIVES, objective_named
-from .transcription.parameters import parameter_values
+from .transcription.parameters import parameter_values, separating_planes
 from .transcription.structure import structure_of
 
 
@@ -116,10 +116,13 @@ class SolveOutcome:
 
 
 def robot_key(robot) -> str:
-    """Digest of everything a built NLP reads from ``robot``: URDF text, limits, mass, gravity, joint names."""
+    """Digest of everything a built NLP reads from ``robot``: URDF text, limits, mass, gravity, joint names,
+    collision shapes (their points and radii are numbers of the clearance rows)."""
     digest = hashlib.sha1(robot.urdf_text.encode())
+    shapes = robot.collision.shapes
     for values in (robot.torque_lower, robot.torque_upper, robot.velocity_limit, robot.joint_lower,
-                   robot.joint_upper, robot.gravity, [robot.mass]):
+                   robot.joint_upper, robot.gravity, [robot.mass], *[s.joint_points for s in shapes],
+                   [s.radius for s in shapes], [s.joint for s in shapes]):
         digest.update(np.ascontiguousarray(values, dtype=float).tobytes())
     digest.update("\n".join(robot.joint_names).encode())
     return digest.hexdigest()
@@ -353,16 +356,19 @@ class Planner:
         p = parameter_values(task, transcription.structure, transcription.parameters, motion=start["q"])
         if "rooms" in layout and "rooms" not in start:
             layout.set(x0, "rooms", transcription.rooms_at(start, p))
+        if "separation" in layout and "separation" not in start:
+            layout.set(x0, "separation", separating_planes(task, transcription.structure, start["q"]))
         lbx, ubx = transcription.bounds(task.initial_posture,
                                         required_margins(task.requirements, task.times, len(task.disturbances)))
         self._listener = None if progress is None else _listener(progress, objective, transcription)
         supervisor.phase(f"solving the {objective} stage")
+        log_start = built.log.stat().st_size if built.log.exists() else 0
         try:
             result: SolverResult = built.solver.solve(np.clip(x0, lbx, ubx), p, lbx, ubx, transcription.lbg,
                                                       transcription.ubg)
         finally:
             self._listener = None
-            _append_log(built.log, log_path, objective)
+            _append_log(built.log, log_start, log_path, objective)
         outcome.stages.append(StageReport(objective, result.status, result.success, result.iterations,
                                           result.wall_time, built.unreported_build_time, result.max_violation,
                                           result.message, result.eval_time))
@@ -436,12 +442,20 @@ def _listener(progress, objective, transcription):
     return listen
 
 
-def _append_log(source: Path, target, title: str) -> None:
+def _append_log(source: Path, start: int, target, title: str) -> None:
+    """Append to ``target`` what this solve wrote to ``source`` (from byte ``start`` on).
+
+    A built solver's log file keeps growing with every solve it runs; only
+    the part after ``start`` belongs to this one.
+    """
     if target is None or not source.exists():
         return
+    with open(source, "rb") as log:
+        log.seek(start)
+        text = log.read().decode("utf-8", errors="replace")
     with open(target, "a", encoding="utf-8") as out:
         out.write(f"\n===== brace stage: {title} =====\n")
-        out.write(source.read_text(encoding="utf-8", errors="replace"))
+        out.write(text)
 
 
 def _initial_gains(task, arrays) -> dict:

@@ -107,14 +107,19 @@ class _Terminal(io.StringIO):
 
 def test_progress_line_on_a_terminal_and_silent_elsewhere():
     class Cert:
-        rho = 53.6
+        rho, exact = 53.6, True
+
+    class Bounded:
+        rho, exact = 41.2, False
 
     tty, pipe = _Terminal(), io.StringIO()
     for stream in (tty, pipe):
         line = ProgressLine(stream)
         line(3, 60, Cert())
+        line(4, 60, Bounded())
         line.clear()
     assert "\rcertifying knot 3/60: exact 53.6 N" in tty.getvalue()
+    assert "\rcertifying knot 4/60: lower bound 41.2 N" in tty.getvalue()   # named by what it is
     assert pipe.getvalue() == ""
 
 

@@ -192,7 +192,7 @@ class ProgressLine:
 
     def __call__(self, done: int, total: int, cert) -> None:
         if self.live:
-            self.stream.write(f"\rcertifying knot {done}/{total}: exact {cert.rho:.4g} N   ")
+            self.stream.write(f"\rcertifying knot {done}/{total}: {'exact' if cert.exact else 'lower bound'} {cert.rho:.4g} N   ")
             self.stream.flush()
 
     def clear(self) -> None:

@@ -1,7 +1,7 @@
 """``brace compare TASK``: plan a task with several objectives and compare the plans.
 
 The feasibility seed is solved once and each objective from it (the
-planner's shared seed); every plan is written and certified exactly, and DIR
+planner's shared seed); every plan is written and certified (exactly, or by a bound pair), and DIR
 receives the plan files (``<objective>.npz``), ``summary.csv``, the figures
 (PNG and SVG), the key-frame strip, the animation and ``report.html``; the
 table is also printed. An objective whose

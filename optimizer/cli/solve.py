@@ -206,7 +206,10 @@ CLOSE = 0.8  # warn when the estimate takes more than this share of the ceiling
 def check_memory(task, objective: str, limit: int | None) -> None:
     """Refuse, before building anything, a solve whose estimated memory exceeds the ceiling; warn when close.
 
-    The ceiling is ``limit`` when given, else the memory available now.
+    The ceiling is ``limit`` when given (the most the whole process may
+    hold), else the memory available now plus what the process holds already
+    (the available figure leaves out the process's own memory, which the
+    estimate counts).
     """
     from ..footprint import estimate_memory
 
@@ -216,7 +219,8 @@ def check_memory(task, objective: str, limit: int | None) -> None:
     if limit is not None:
         ceiling, what = limit, "set as the memory limit"
     elif available is not None:
-        ceiling, what = available.size, available.source
+        ceiling = available.size + estimate.baseline
+        what = f"(the {format_size(available.size)} {available.source} and the {format_size(estimate.baseline)} held)"
     else:
         print(f"brace solve: memory: {estimate.describe()} (the system does not say how much is available)")
         return
@@ -230,7 +234,7 @@ def check_memory(task, objective: str, limit: int | None) -> None:
     if estimate.total > CLOSE * ceiling:
         print(f"  warning: the estimate is {100 * estimate.total / ceiling:.0f} % of the {format_size(ceiling)} "
               f"{what}; the solve may run out of memory (fewer knots need less)")
-    if limit is not None and available is not None and estimate.total > available.size:
+    if limit is not None and available is not None and estimate.total - estimate.baseline > available.size:
         print(f"  warning: only {format_size(available.size)} is {available.source}, less than the estimate")
 
 

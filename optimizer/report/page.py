@@ -16,7 +16,7 @@ from .. import __version__
 from ..notices import MODEL_ONLY, SAFETY
 from . import palette
 from .figures import CAPTIONS, FIGURES
-from .table import COLUMNS, cell, entry_shortfalls, row
+from .table import COLUMNS, cell, entry_shortfalls, row, titles
 
 TITLE = "brace comparison"
 
@@ -133,7 +133,7 @@ def reading(entries) -> list[str]:
     best = ranked[0]
     low = best.smallest
     out.append(f"{_swatch(best.name)}<b>{_e(best.name)}</b> is the most robust over the whole motion: its smallest "
-               f"exact margin is <b>{_newtons(low.rho)}</b>, at t = {low.time:.2f} s.")
+               f"{best.figure} margin is <b>{_newtons(low.rho)}</b>, at t = {low.time:.2f} s.")
     for other in ranked[1:]:
         o = other.smallest
         if o.rho < 0.01 * low.rho:
@@ -146,7 +146,7 @@ def reading(entries) -> list[str]:
                    f"t = {o.time:.2f} s{ratio}.")
     by_mean = max(solved, key=lambda e: float(e.exact.mean()))
     out.append(f"On average over the knots, {_swatch(by_mean.name)}<b>{_e(by_mean.name)}</b> keeps the most margin "
-               f"({_newtons(float(by_mean.exact.mean()))} mean exact).")
+               f"({_newtons(float(by_mean.exact.mean()))} mean {by_mean.figure}).")
     for e in ranked:
         s = e.smallest
         names = ", ".join(s.bottleneck[:3]) + (f" and {len(s.bottleneck) - 3} more" if len(s.bottleneck) > 3 else "")
@@ -165,10 +165,11 @@ def reading(entries) -> list[str]:
 
 def table_html(entries) -> str:
     """The comparison table as an HTML table (same numbers as ``summary.csv``)."""
-    head = "".join(f'<th class="{"text" if not spec else "num"}">{_e(title)}</th>' for _, title, spec in COLUMNS)
+    rows = [row(e) for e in entries]
+    head = "".join(f'<th class="{"text" if not spec else "num"}">{_e(title)}</th>'
+                   for (_, _, spec), title in zip(COLUMNS, titles(rows)))
     body = []
-    for e in entries:
-        r = row(e)
+    for e, r in zip(entries, rows):
         cells = []
         for key, _, spec in COLUMNS:
             text = _e(cell(r[key], spec))
@@ -180,7 +181,7 @@ def table_html(entries) -> str:
 
 
 def certification_html(entries) -> str:
-    """Per plan: certified or not, smallest exact margin, planned/exact range, usual bottleneck."""
+    """Per plan: certified or not, smallest certified margin, planned/figure range, usual bottleneck."""
     items = []
     for e in entries:
         if not e.ok:
@@ -189,14 +190,14 @@ def certification_html(entries) -> str:
         verdict = ('<span class="certified">certified</span>' if s["certified"]
                    else '<span class="not-certified">NOT certified</span>')
         ratio = ("" if s["planned_over_exact_min"] is None else
-                 f"; planned / exact {s['planned_over_exact_min']:.3f} to {s['planned_over_exact_max']:.3f} "
+                 f"; planned / {s['figure']} {s['planned_over_exact_min']:.3f} to {s['planned_over_exact_max']:.3f} "
                  "(1 = the plan's own margin is tight)")
         usual = ("" if not s["most_frequent_bottleneck"] else
                  f"; most frequent bottleneck {_e(s['most_frequent_bottleneck'])} "
                  f"({s['bottleneck_knots']} of {s['knots']} knots)")
         problems = "".join(f"<li>{_e(p)}</li>" for p in s["problems"])
-        items.append(f"<li>{_swatch(e.name)}<b>{_e(e.name)}</b>: {verdict}, {s['knots']} knots checked exactly; "
-                     f"smallest {_number(s['smallest_rho_N'])} N at t = {_number(s['smallest_at_time_s'])} s"
+        items.append(f"<li>{_swatch(e.name)}<b>{_e(e.name)}</b>: {verdict}, {s['knots']} knots checked "
+                     f"({s['exact_knots']} exact); smallest {s['figure']} {_number(s['smallest_rho_N'])} N at t = {_number(s['smallest_at_time_s'])} s"
                      f"{ratio}{usual}.{'<ul>' + problems + '</ul>' if problems else ''}</li>")
     return f"<ul>{''.join(items)}</ul>" if items else "<p>No plan to certify.</p>"
 
@@ -230,7 +231,7 @@ def section_html(title: str, meta: dict, entries, folder: str, files: list[str])
                              "Key frames, one row per plan: start, each hand target, the end, and last the plan's "
                              "weakest moment. Links in the plan's colour; friction pyramids at the feet shaded "
                              "by friction use (light: little, dark: near slipping); magenta crosses: hand "
-                             "targets; red arrow: weakest direction, length proportional to the exact margin."))
+                             "targets; red arrow: weakest direction, length proportional to the certified margin."))
         parts.append(_figure(_path(folder, "motion.gif"), "animation",
                              "The plans side by side in real time (the printed page shows the first frame)."))
     parts.append("<h3>Certification</h3>" + certification_html(entries))

@@ -24,7 +24,8 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     ``posture`` (nq,), the nominal configuration of the regularizer;
     ``clearance_planes`` (4 rows, K): per clearance row and knot the plane
     ``(n, offset)`` with ``n . p >= offset`` (offset includes the shape's
-    radius and the required clearance) [m].
+    radius and the required clearance) [m]; ``self_distances`` (pairs,), the
+    distance each self-collision pair keeps, raised by the back-off [m].
     """
     layout = VectorLayout()
     layout.add("step")
@@ -41,6 +42,7 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
         layout.add(f"shape{p}", slot.dim * slot.dim)
     layout.add("posture", robot.nq)
     layout.add("clearance_planes", 4 * len(structure.clearance_rows), structure.knots)
+    layout.add("self_distances", len(structure.self_pairs))
     return layout
 
 
@@ -76,6 +78,8 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
     layout.set(values, "posture", robot.standing_posture if posture is None else posture)
     if structure.clearance_rows:
         layout.set(values, "clearance_planes", clearance_planes(task, structure, motion))
+    if structure.self_pairs:
+        layout.set(values, "self_distances", [p.distance + CLEARANCE_BACKOFF for p in task.clearance.self_pairs])
     return values
 
 
@@ -93,3 +97,15 @@ def clearance_planes(task, structure: Structure, motion=None) -> np.ndarray:
     columns = [task.clearance.planes_at(world_points(robot, motion[:, k], data), CLEARANCE_BACKOFF).reshape(-1, order="F")
                for k in range(K)]
     return np.array(columns).T
+
+
+def separating_planes(task, structure: Structure, motion) -> np.ndarray:
+    """Starting separating planes of every self pair at ``structure.clearance_knots`` of ``motion`` (nq, K).
+
+    Shape (4 pairs, knots): per knot the columns of
+    :meth:`~optimizer.problem.clearance.ClearanceSpec.separating_planes`, stacked.
+    """
+    robot, data = task.robot, task.robot.model.createData()
+    columns = [task.clearance.separating_planes(world_points(robot, motion[:, k], data), CLEARANCE_BACKOFF)
+               .reshape(-1, order="F") for k in structure.clearance_knots]
+    return np.array(columns).T.reshape(4 * len(structure.self_pairs), len(structure.clearance_knots))

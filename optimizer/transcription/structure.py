@@ -61,6 +61,12 @@ class Structure:
         of each row and knot is a parameter (:mod:`optimizer.problem.clearance`).
     clearance_labels : tuple of str
         Per clearance row ``"<link> vs <surface>"``, for reports.
+    self_pairs : tuple of (int, int)
+        Per self-collision pair its two shapes (indices into the robot's
+        shapes); each pair has a separating plane per clearance knot and its
+        distance is a parameter.
+    self_labels : tuple of str
+        Per self pair ``"<shape> vs <shape>"``, for reports.
     activity : tuple of tuple of bool
         (K, nc): contact in stance at the knot; empty means every contact at
         every knot. Swinging contacts carry no force, gains or limit rows.
@@ -77,6 +83,8 @@ class Structure:
     fixed_start: bool
     clearance_rows: tuple = ()
     clearance_labels: tuple = ()
+    self_pairs: tuple = ()
+    self_labels: tuple = ()
     activity: tuple = ()
     swings: tuple = ()
 
@@ -130,4 +138,6 @@ def structure_of(task) -> Structure:
         fixed_start=task.initial_posture is not None,
         clearance_rows=tuple((shape, point) for _, shape, point in task.clearance.rows),
         clearance_labels=tuple(" vs ".join(task.clearance.row_label(r)) for r in range(len(task.clearance.rows))),
+        self_pairs=tuple((p.first, p.second) for p in task.clearance.self_pairs),
+        self_labels=tuple(task.clearance.self_label(i) for i in range(len(task.clearance.self_pairs))),
     )
