@@ -62,7 +62,8 @@ def library_functions(function: ca.Function) -> list[ca.Function]:
 
 def knot_function_names(functions) -> list[str]:
     """Attribute paths of every knot function of a :class:`KnotFunctions` (``robust.0``, ``hand.grip``)."""
-    names = [n for n in ("dynamics", "stance", "foot_motion", "friction", "rooms", "step", "clearance")
+    names = [n for n in ("dynamics", "stance", "foot_motion", "friction", "rooms", "step", "clearance",
+                         "self_clearance")
              if getattr(functions, n, None) is not None]
     names += [f"robust.{i}" for i in range(len(functions.robust))]
     return names + [f"hand.{frame}" for frame in sorted(functions.hand)]
