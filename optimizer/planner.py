@@ -553,6 +553,7 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
                              "tangents": [np.asarray(c.tangents, float).tolist() for c in task.contacts]},
         "min_normal_force": float(task.min_normal_force),
         "torque_limits": {"lower": robot.torque_lower.tolist(), "upper": robot.torque_upper.tolist()},
+        **({"torque_reserve": float(task.torque_reserve)} if task.torque_reserve > 0 else {}),
         "joint_velocity_limits": robot.velocity_limit.tolist(),
         "disturbances": [{"frame": d.frame, "kind": d.kind, "shape": np.asarray(d.shape, float).tolist()}
                          for d in task.disturbances],
