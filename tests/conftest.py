@@ -7,6 +7,9 @@ folder and the folder of scratch space this test process itself still uses
 (its solvers stay cached until exit; that exit cleanup is checked by
 ``tests/test_temporary_files.py`` in a separate process). Anything else is
 litter made by brace (or by a library through brace) and fails the session.
+
+The session also gets a fresh cache folder of its own (``BRACE_CACHE_DIR``),
+removed at the end.
 """
 from __future__ import annotations
 
@@ -18,13 +21,19 @@ from pathlib import Path
 import pytest
 
 _ORIGINAL_TMPDIR = os.environ.get("TMPDIR")
+_ORIGINAL_CACHE = os.environ.get("BRACE_CACHE_DIR")
 _SUITE_TMP: Path | None = None
+_SUITE_CACHE: Path | None = None
 
 
 def pytest_configure(config):
-    global _SUITE_TMP
+    global _SUITE_TMP, _SUITE_CACHE
     if hasattr(config, "workerinput"):  # a pytest-xdist worker shares the controller's folder
         return
+    # One fresh cache folder of compiled knot functions for the whole session: tests share what
+    # earlier tests compiled, and never see a cache left by an earlier session or by the user.
+    _SUITE_CACHE = Path(tempfile.mkdtemp(prefix="suite-cache-"))
+    os.environ["BRACE_CACHE_DIR"] = str(_SUITE_CACHE)
     _SUITE_TMP = Path(tempfile.mkdtemp(prefix="suite-tmp-"))
     os.environ["TMPDIR"] = str(_SUITE_TMP)
     tempfile.tempdir = str(_SUITE_TMP)
@@ -51,6 +60,11 @@ def no_temporary_files_left():
 def pytest_unconfigure(config):
     if _SUITE_TMP is None:
         return
+    if _ORIGINAL_CACHE is None:
+        os.environ.pop("BRACE_CACHE_DIR", None)
+    else:
+        os.environ["BRACE_CACHE_DIR"] = _ORIGINAL_CACHE
+    shutil.rmtree(_SUITE_CACHE, ignore_errors=True)
     tempfile.tempdir = None
     if _ORIGINAL_TMPDIR is None:
         os.environ.pop("TMPDIR", None)

@@ -101,6 +101,16 @@ def test_defaults(tmp_path):
     assert (target.frame, target.t_start, target.t_end, target.orientation) == ("grip_point", 0.5, 0.8, None)
 
 
+def test_torque_reserve_scales_every_torque_limit_the_plan_meets(tmp_path):
+    # Reference: the limits of the robot file loaded on its own (its URDF efforts and overrides).
+    plain = load_task(write(tmp_path, BASE_TASK))
+    assert plain.torque_reserve == 0.0
+    reserved = load_task(write(tmp_path, variant(torque_reserve=0.05)))
+    assert reserved.torque_reserve == 0.05
+    np.testing.assert_allclose(reserved.robot.torque_upper, 0.95 * plain.robot.torque_upper, rtol=1e-12)
+    np.testing.assert_allclose(reserved.robot.torque_lower, 0.95 * plain.robot.torque_lower, rtol=1e-12)
+
+
 def test_relative_robot_path_resolves_against_the_task_folder(tmp_path):
     folder = tmp_path / "deep"
     folder.mkdir()
@@ -144,6 +154,7 @@ def test_orientation_as_rpy_is_a_rotation(tmp_path):
     ({"objective": "robustest"}, r"objective.*one of feasible, robust, robust-min, robust-sum, torque"),
     ({"pyramid_facets": 2}, r"pyramid_facets.*a whole number >= 3"),
     ({"min_normal_force": -1.0}, r"min_normal_force.*a number >= 0"),
+    ({"torque_reserve": 0.7}, r"torque_reserve.*a number <= 0.5"),
     ({"hand_targets__0__orientation": [[1, 0, 0], [0, 1, 0], [0, 0, -1]]}, r"orientation.*a rotation matrix"),
     ({"robot": "missing.yaml"}, r"field 'robot'.*an existing robot file"),
     ({"solver": {"max_iter": [1, 2]}}, r"solver.max_iter.*a number, text or true/false"),

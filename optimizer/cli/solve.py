@@ -29,6 +29,7 @@ from ..memory import SIZE_TEXT, available_memory, format_size, parse_size
 from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
 from ..notices import SAFETY
+from .cache import add_cache_option, add_evaluation_option, apply_cache_option, compiler_note
 from .shortfalls import shortfall_lines, use_colour
 
 if TYPE_CHECKING:
@@ -59,6 +60,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--warn-below", type=float, metavar="NEWTON",
                         help="flag knots whose certified margin is below this, N, where nothing is required "
                              f"(default {100 * DEFAULT_WARN_FRACTION:.0f} %% of the robot's weight)")
+    add_cache_option(parser)
+    add_evaluation_option(parser)
 
 
 def run(args) -> int:
@@ -70,6 +73,7 @@ def run(args) -> int:
 
 
 def _run(args) -> int:
+    apply_cache_option(args)
     supervisor.phase("loading the task")
     task = load_task(args.task)
     if args.knots is not None:
@@ -87,15 +91,21 @@ def _run(args) -> int:
     if args.check_only:
         print(f"brace solve: task '{task.name}' is valid" + ("" if args.skip_checks else "; pre-solve checks passed"))
         return 0
-    from ..planner import solve
+    from ..planner import solve, take_notice
 
+    note = compiler_note() if args.evaluation == "compiled" else None
+    if note:
+        print(note)
     log_path = out.with_suffix(".ipopt.log")
     write_log_header(log_path, f"Ipopt logs of brace solve {args.task} --objective {objective}\n")
     print(f"brace solve: task '{task.name}', objective {objective}, {task.knots} knots over {task.duration:.2f} s, "
           f"robot '{task.robot.name}' ({task.robot.mass:.1f} kg)")
     started = time.perf_counter()
-    outcome = solve(task, objective, progress=None if args.quiet else _print_progress, log_path=log_path)
+    outcome = solve(task, objective, progress=None if args.quiet else _print_progress, log_path=log_path,
+                    evaluation=args.evaluation)
     elapsed = time.perf_counter() - started
+    for text in take_notice() if note is None else []:
+        print(f"note: {text}")
     if not outcome.success:
         _report_failure(outcome, out, log_path)
         return 1

@@ -21,6 +21,7 @@ import pinocchio as pin
 from ..errors import InfeasibleTask, TaskError
 from ..files import read_yaml_mapping
 from ..memory import SIZE_TEXT, parse_size
+from ..robot.derived import with_torque_scale
 from ..robot.model import load_robot
 from ..schema import Fields
 from .clearance import DEFAULT_CLEARANCE, ClearanceSpec, clearance_spec
@@ -39,7 +40,9 @@ UNIT_TOLERANCE = 1e-3      # |n| may differ from 1 by this much before it counts
 MAX_KNOTS = 2000           # more knots than this is a typo, not a plan (the NLP grows linearly)
 MAX_FACETS = 64            # a pyramid finer than this adds rows without changing the answer
 TOP_LEVEL = {"name", "description", "robot", "horizon", "stance", "hand_targets", "disturbances",
-             "combine_points", "objective", "pyramid_facets", "min_normal_force", "initial_posture", "solver", "require", "clearance"}
+             "combine_points", "objective", "pyramid_facets", "min_normal_force", "initial_posture", "solver", "require",
+             "clearance", "torque_reserve"}
+MAX_TORQUE_RESERVE = 0.5   # keeping more than half of every torque for feedback is a typo, not a plan
 
 
 @dataclass
@@ -157,6 +160,11 @@ class Task:
         Stance intervals per contact (``stance.schedule``); one interval over
         the whole horizon for every contact the schedule does not name. The
         ``foothold`` of each entry of ``contacts`` is that of its first interval.
+    torque_reserve : float
+        Fraction of every joint's torque limit kept for the tracking
+        controller (``torque_reserve``): ``robot`` already carries the
+        limits times ``1 - torque_reserve``, which the plan meets and is
+        certified against.
     """
 
     name: str
@@ -179,6 +187,7 @@ class Task:
     memory_limit: int | None = None
     combine_points: str = DEFAULT_COMBINATION
     schedule: Schedule = None
+    torque_reserve: float = 0.0
 
     def __post_init__(self):
         if self.schedule is None:
@@ -230,6 +239,8 @@ def task_from_mapping(data: dict, path) -> Task:
     if top.has("description"):
         top.string("description")
     robot_path, robot = read_robot(top)
+    reserve = top.number("torque_reserve", 0.0, lo=0.0, hi=MAX_TORQUE_RESERVE)
+    robot = with_torque_scale(robot, 1.0 - reserve)
     duration, knots = read_horizon(top.sub("horizon"))
     contacts, surfaces, schedule = read_stance(top.sub("stance"), robot, duration)
     clearance = read_clearance(top, robot, schedule_contacts(contacts, schedule), surfaces)
@@ -255,6 +266,7 @@ def task_from_mapping(data: dict, path) -> Task:
         initial_posture=read_initial_posture(top, robot, contacts, clearance),
         raw=json_copy(data, path),
         clearance=clearance,
+        torque_reserve=reserve,
         requirements=read_requirements(top, weight=weight, duration=duration,
                                        hand_targets=hand_targets, disturbances=disturbances),
         schedule=schedule,

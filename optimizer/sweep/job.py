@@ -23,7 +23,7 @@ from ..analysis.failure import diagnose, report_lines
 from ..analysis.margin_flags import certificate_shortfalls, plan_requirements, unmet
 from ..analysis.presolve import run_checks
 from ..errors import InputError
-from ..planner import Planner
+from ..planner import DEFAULT_EVALUATION, Planner
 from .variant import build_task
 
 SOLVED, FAILED, TIMEOUT, ERROR = "solved", "failed", "timeout", "error"
@@ -38,7 +38,8 @@ class VariantJob:
     ``task_path`` the base task file it resolves paths against, ``model`` the
     model quantities, ``objectives`` those still to solve, ``time_limit`` [s]
     for all of them, ``warm`` the neighbour's solved arrays per stage (or
-    empty) and ``warm_from`` that neighbour's id.
+    empty), ``warm_from`` that neighbour's id and ``evaluation`` how the
+    worker's planner evaluates the NLP (:data:`optimizer.planner.EVALUATIONS`).
     """
 
     id: str
@@ -50,6 +51,7 @@ class VariantJob:
     time_limit: float
     warm: dict = field(default_factory=dict)
     warm_from: str = ""
+    evaluation: str = DEFAULT_EVALUATION
 
 
 @dataclass
@@ -83,15 +85,14 @@ def run_variant(job: VariantJob) -> VariantResult:
         return VariantResult(job.id, [_failure(job, base, o, ERROR, text, started) for o in job.objectives])
 
 
-_PLANNER = None
+_PLANNERS: dict[str, Planner] = {}
 
 
-def worker_planner():
+def worker_planner(evaluation: str = DEFAULT_EVALUATION):
     """This worker process's planner: its built solvers serve every variant of one shape."""
-    global _PLANNER
-    if _PLANNER is None:
-        _PLANNER = Planner()
-    return _PLANNER
+    if evaluation not in _PLANNERS:
+        _PLANNERS[evaluation] = Planner(evaluation=evaluation)
+    return _PLANNERS[evaluation]
 
 
 def _solve_variant(job: VariantJob, base: dict, started: float) -> VariantResult:
@@ -104,7 +105,7 @@ def _solve_variant(job: VariantJob, base: dict, started: float) -> VariantResult
     if proven:
         reason = "pre-solve: " + proven[0].text()
         return VariantResult(job.id, [_failure(job, base, o, FAILED, reason, started) for o in job.objectives])
-    planner = worker_planner()
+    planner = worker_planner(job.evaluation)
     seed = planner.seed(task, start=job.warm.get("feasible"))
     out = VariantResult(job.id, [])
     if not seed.success:

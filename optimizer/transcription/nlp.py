@@ -13,10 +13,13 @@ none when the start configuration is fixed).
 """
 from __future__ import annotations
 
+import time
+
 import casadi as ca
 import numpy as np
 
 from ..problem.limits import FRICTION, NORMAL_FORCE, TORQUE
+from .compiled import compile_knot_functions
 from .constraints import ConstraintStack, register_family
 from .knot_functions import KnotFunctions
 from .layout import VectorLayout
@@ -74,10 +77,15 @@ class Transcription:
         Layouts of x (scaled) and p (physical).
     constraints : ConstraintStack
         Named groups of g with their bounds.
+    compile_failure : str or None
+        With ``compiled=True``: None when the knot functions are compiled
+        libraries (:mod:`optimizer.transcription.compiled`), else why they
+        stayed uncompiled; ``compile_time`` [s] is what compiling (or
+        loading the cached libraries) took.
     """
 
     def __init__(self, robot, symbolic, structure: Structure, objective, map_mode: str = "serial",
-                 torque_gains: str = "eliminated"):
+                 torque_gains: str = "eliminated", compiled: bool = False):
         self.robot, self.structure, self.objective = robot, structure, objective
         self.torque_gains = torque_gains
         self.weight = robot.mass * float(np.linalg.norm(robot.gravity))
@@ -86,6 +94,10 @@ class Transcription:
                                structure.combine_points)
         self.functions = KnotFunctions(symbolic, structure, self.weight, torque_gains, robot.joint_names,
                                        robot.collision.shapes)
+        self.compiled = compiled
+        started = time.perf_counter()
+        self.compile_failure = compile_knot_functions(self.functions) if compiled else None
+        self.compile_time = time.perf_counter() - started  # [s] generating, compiling or loading the libraries
         self.map_mode = map_mode
         self.variables = self._variable_layout()
         self.parameters = parameter_layout(structure, robot)
