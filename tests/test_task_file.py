@@ -51,8 +51,8 @@ def variant(**changes):
 
 
 def test_the_demo_tasks():
-    assert [p.stem for p in DEMOS] == ["crawl_space", "drawer_pull", "landing_pick", "stair_landing", "steep_ramp",
-                                       "trench", "wall_brace"]
+    assert [p.stem for p in DEMOS] == ["crawl_space", "drawer_bump", "drawer_pull", "landing_pick", "stair_landing",
+                                       "steep_ramp", "trench", "wall_brace"]
 
 
 @pytest.mark.parametrize("path", DEMOS, ids=lambda p: p.stem)
@@ -60,8 +60,13 @@ def test_demo_task_loads(path):
     task = load_task(path)
     assert task.knots == 60 and 2.0 <= task.duration <= 4.0
     assert [c.frame for c in task.contacts] == ["foot_fl", "foot_fr", "foot_rl", "foot_rr"]
-    assert [(d.frame, d.kind) for d in task.disturbances] == [("grip_point", "force")]
-    if path.stem == "drawer_pull":   # pushes expected along the pull axis, a fifth across it
+    if path.stem == "drawer_bump":   # the grip as in drawer_pull, and the body bumped sideways
+        assert [(d.frame, d.kind) for d in task.disturbances] == [("grip_point", "force"), ("body", "force")]
+        assert task.combine_points == "smallest"
+        np.testing.assert_allclose(task.disturbances[1].shape, np.diag([0.3, 1.0, 0.3]), atol=1e-12)
+    else:
+        assert [(d.frame, d.kind) for d in task.disturbances] == [("grip_point", "force")]
+    if path.stem.startswith("drawer_"):   # pushes expected along the pull axis, a fifth across it
         np.testing.assert_allclose(task.disturbances[0].shape, np.diag([1.0, 0.2, 0.2]), atol=1e-12)
         assert [h.label for h in task.hand_targets] == ["grip", "pulled"]
     else:
@@ -152,6 +157,10 @@ def test_orientation_as_rpy_is_a_rotation(tmp_path):
     ({"disturbances": [{"kind": "wrench", "shape": [[1, 0, 0], [0, 1, 0], [0, 0, 1]]}]},
      r"disturbances\[0\].shape.*a 6x6 matrix"),
     ({"disturbances": [{"kind": "torque"}]}, r"disturbances\[0\].kind.*one of force, wrench"),
+    ({"disturbances": [{"objective_weight": -1}]}, r"disturbances\[0\].objective_weight.*a number >= 0"),
+    ({"disturbances": [{"objective_weight": 0}, {"frame": "body", "objective_weight": 0}]},
+     r"field 'disturbances'.*at least one point with objective_weight > 0"),
+    ({"combine_points": "largest"}, r"combine_points.*one of smallest, weighted-sum"),
     ({"objective": "robustest"}, r"objective.*one of feasible, robust, robust-min, robust-sum, torque"),
     ({"pyramid_facets": 2}, r"pyramid_facets.*a whole number >= 3"),
     ({"min_normal_force": -1.0}, r"min_normal_force.*a number >= 0"),

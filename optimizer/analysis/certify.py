@@ -395,7 +395,11 @@ class PlanCertificate:
     def problems(self) -> list:
         """Plain-language list of what failed (empty when the plan is certified)."""
         out = [] if self.checks is None else [r.reason() for r in self.checks.failures()]
-        out += [f"knot {c.knot}: {c.status}" for c in self.knots if c.status != "ok"]
+        return out + self.point_problems()
+
+    def point_problems(self) -> list:
+        """What failed at this disturbance point (the plan's physics checks apart)."""
+        out = [f"knot {c.knot}: {c.status}" for c in self.knots if c.status != "ok"]
         bad = self.infeasible_under_change()
         if bad:
             out.append(f"changed model ({self.change_text}): the plan is not feasible at all at knots "
@@ -448,6 +452,67 @@ class PlanCertificate:
             "summary": self.summary(), "knots": [c.to_json() for c in self.knots],
             "replay": None if self.replay is None else _replay_json(self.replay),
         }
+
+    def point_json(self) -> dict:
+        """This point's part of a :class:`PointsCertificate`'s JSON: disturbance, summary, knots, replay."""
+        return {"disturbance": self.disturbance, "summary": self.summary(),
+                "knots": [c.to_json() for c in self.knots],
+                "replay": None if self.replay is None else _replay_json(self.replay)}
+
+
+@dataclass
+class PointsCertificate:
+    """Certificates of several disturbance points of one plan, with one run of the physics checks.
+
+    ``points`` holds one :class:`PlanCertificate` per certified point, in
+    the order asked; each carries the shared ``checks``.
+    """
+
+    points: list
+    checks: CheckReport | None = None
+
+    def problems(self) -> list:
+        """What failed, checks once, then each point's (named when there are several)."""
+        out = [] if self.checks is None else [r.reason() for r in self.checks.failures()]
+        for cert in self.points:
+            d = cert.disturbance
+            prefix = f"point {d['index']} ({d['frame']}): " if len(self.points) > 1 else ""
+            out += [prefix + problem for problem in cert.point_problems()]
+        return out
+
+    def to_json(self) -> dict:
+        """``brace-certificate/2``: shared settings, checks and verdict, then one entry per point."""
+        first = self.points[0]
+        s = first.settings
+        return {
+            "format": "brace-certificate/2",
+            "settings": {"tol": s.tol, "cap_N": s.cap, "full": s.full, "samples": s.samples, "max_lps": s.max_lps},
+            "plan_checks": {"run": False} if self.checks is None else self.checks.to_json(),
+            "model_change": None if first.change is None else {**first.change.to_json(), "text": first.change_text},
+            "certified": not self.problems(), "problems": self.problems(),
+            "points": [cert.point_json() for cert in self.points],
+        }
+
+
+def certify_points(plan, knots=None, points=None, settings: Settings | None = None, replay: int = 0,
+                   seed: int = 0, progress=None, check: bool = True, tolerances: dict | None = None,
+                   change: ModelChange | None = None, friction_floor: bool = True) -> PointsCertificate:
+    """Check the plan's physics once, then certify every disturbance point in ``points`` (all by default).
+
+    Each point is certified as :func:`certify_plan` does (exact figures, or
+    bound pairs where the projection stops); the other parameters are its.
+    ``progress`` is called as ``progress(point, done, total, certificate)``.
+    """
+    checks = check_plan(plan, tolerances) if check else None
+    chosen = range(len(plan.meta["disturbances"])) if points is None else list(points)
+    certs = []
+    for p in chosen:
+        relay = None if progress is None else (lambda done, total, cert, p=p: progress(p, done, total, cert))
+        cert = certify_plan(plan, knots, p, settings, replay, seed, relay, check=False, change=change,
+                            friction_floor=friction_floor)
+        cert.checks = checks
+        certs.append(cert)
+    return PointsCertificate(certs, checks)
 
 
 def planned_margin(plan, k: int, disturbance: int) -> float:

@@ -103,9 +103,16 @@ def task_facts(meta: dict, entries) -> list[tuple[str, str]]:
         targets.append(f"{t.get('label') or 'target'} at ({', '.join(f'{x:.2f}' for x in t['position'])}) m, {when}")
     if targets:
         facts.append(("hand targets", "; ".join(targets)))
-    d = meta["disturbances"][0]
+    points = meta["disturbances"]
+    d = points[0]
     facts.append(("disturbance", f"a {d['kind']} of unknown direction at {d['frame']}; the margin is the smallest "
                                  "such push the robot could not reject within its torque limits and friction"))
+    if len(points) > 1:
+        others = ", ".join(f"point {i}: a {p['kind']} at {p['frame']}" for i, p in enumerate(points) if i)
+        facts.append(("more points", f"{others}; each has its own margin (robust objectives combine them: "
+                                     f"{meta.get('combine_points', 'smallest')}). Figures, key frames and the margin "
+                                     f"columns show point 0 ({d['frame']}); 'exact min per point' and the "
+                                     "certification below cover every point"))
     facts.append(("compared", ", ".join(e.name for e in entries)))
     return facts
 
@@ -195,10 +202,18 @@ def certification_html(entries) -> str:
         usual = ("" if not s["most_frequent_bottleneck"] else
                  f"; most frequent bottleneck {_e(s['most_frequent_bottleneck'])} "
                  f"({s['bottleneck_knots']} of {s['knots']} knots)")
-        problems = "".join(f"<li>{_e(p)}</li>" for p in s["problems"])
+        if e.others:
+            verdict = ('<span class="certified">certified</span>' if not e.problems()
+                       else '<span class="not-certified">NOT certified</span>')
+        problems = "".join(f"<li>{_e(p)}</li>" for p in e.problems())
+        where = f" at point 0 ({_e(e.certificate.disturbance['frame'])})" if e.others else ""
+        more = "".join(f"; point {c.disturbance['index']} ({_e(c.disturbance['frame'])}): smallest "
+                       f"{c.summary()['figure']} {_number(c.summary()['smallest_rho_N'])} N at t = "
+                       f"{_number(c.summary()['smallest_at_time_s'])} s" for c in e.others)
         items.append(f"<li>{_swatch(e.name)}<b>{_e(e.name)}</b>: {verdict}, {s['knots']} knots checked "
-                     f"({s['exact_knots']} exact); smallest {s['figure']} {_number(s['smallest_rho_N'])} N at t = {_number(s['smallest_at_time_s'])} s"
-                     f"{ratio}{usual}.{'<ul>' + problems + '</ul>' if problems else ''}</li>")
+                     f"({s['exact_knots']} exact); smallest {s['figure']} {_number(s['smallest_rho_N'])} N{where} at t = "
+                     f"{_number(s['smallest_at_time_s'])} s"
+                     f"{more}{ratio}{usual}.{'<ul>' + problems + '</ul>' if problems else ''}</li>")
     return f"<ul>{''.join(items)}</ul>" if items else "<p>No plan to certify.</p>"
 
 

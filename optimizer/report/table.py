@@ -35,6 +35,10 @@ class Entry:
         Why there is no plan (empty when there is one).
     source : str
         Plan file name, relative to the report (empty when none).
+    others : list of PlanCertificate
+        Exact certification of the plan's further disturbance points (1, 2,
+        ...); ``certificate`` is point 0's, which the figures and the margin
+        columns show.
     """
 
     name: str
@@ -42,11 +46,27 @@ class Entry:
     certificate: object = None
     failure: str = ""
     source: str = ""
+    others: list = field(default_factory=list)
     _use: LimitUse | None = field(default=None, repr=False)
 
     @property
     def ok(self) -> bool:
         return self.plan is not None and self.certificate is not None
+
+    @property
+    def points(self) -> list:
+        """Every certified disturbance point's certificate, point 0 first."""
+        return [self.certificate, *self.others] if self.certificate is not None else []
+
+    def problems(self) -> list:
+        """What keeps the plan from being certified, at any of its disturbance points."""
+        if self.certificate is None:
+            return []
+        out = self.certificate.problems()
+        for cert in self.others:
+            d = cert.disturbance
+            out += [f"point {d['index']} ({d['frame']}): {p}" for p in cert.point_problems()]
+        return out
 
     @property
     def use(self) -> LimitUse:
@@ -79,6 +99,7 @@ COLUMNS = (
     ("margin_exact_min_N", "{figure} min [N]", ".2f"),
     ("margin_exact_mean_N", "{figure} mean [N]", ".2f"),
     ("margin_figure", "certified figure", ""),
+    ("margin_exact_min_by_point_N", "{figure} min per point [N]", ""),
     ("smallest_at_s", "smallest at [s]", ".2f"),
     ("peak_torque_use_pct", "peak torque [%]", ".0f"),
     ("peak_torque_joint", "torque joint", ""),
@@ -89,6 +110,8 @@ COLUMNS = (
 )
 """(CSV key, column title with unit, number format) of every column, in order.
 
+The margin columns are disturbance point 0's (``meta.disturbances[0]``);
+the per-point column names every point with its smallest certified margin.
 ``{figure}`` in a title stands for what the certified columns hold
 (:func:`titles`); the CSV keys stay as they are, ``margin_figure`` says per row.
 """
@@ -114,10 +137,11 @@ def row(entry: Entry) -> dict:
     friction, _, contact = use.peak_friction()
     solver = plan.meta.get("solver") or {}
     out.update(
-        status="certified" if not entry.certificate.problems() else "NOT certified",
+        status="certified" if not entry.problems() else "NOT certified",
         margin_planned_min_N=float(np.min(plan.margin)), margin_planned_mean_N=float(np.mean(plan.margin)),
         margin_exact_min_N=float(np.min(exact)), margin_exact_mean_N=float(np.mean(exact)),
         margin_figure=entry.figure,
+        margin_exact_min_by_point_N=by_point(entry.points),
         smallest_at_s=float(low.time),
         peak_torque_use_pct=100.0 * torque, peak_torque_joint=use.joint_names[joint],
         peak_friction_use_pct=100.0 * friction if math.isfinite(friction) else None,
@@ -126,6 +150,11 @@ def row(entry: Entry) -> dict:
         solve_time_s=_float_or_none(solver.get("wall_time")),
     )
     return out
+
+
+def by_point(certificates) -> str:
+    """``"grip_point 115.50, body 140.63"``: each point's frame and smallest exact margin [N]."""
+    return ", ".join(f"{c.disturbance['frame']} {cell(c.smallest().rho, '.2f')}" for c in certificates)
 
 
 def _int_or_none(x):
@@ -176,7 +205,8 @@ def text_table(rows: list[dict]) -> list[str]:
 
 
 def entry_shortfalls(entry) -> list:
-    """Low-margin ranges and unmet requirements of a plan's certified figures (none without a plan)."""
+    """Low-margin ranges and unmet requirements of a plan's certified figures, every point (none without a plan)."""
     if entry.plan is None or entry.certificate is None:
         return []
-    return certificate_shortfalls(entry.certificate, entry.plan, plan_requirements(entry.plan.meta))
+    needed = plan_requirements(entry.plan.meta)
+    return [s for cert in entry.points for s in certificate_shortfalls(cert, entry.plan, needed)]

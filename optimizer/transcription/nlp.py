@@ -13,14 +13,17 @@ none when the start configuration is fixed).
 """
 from __future__ import annotations
 
+import time
+
 import casadi as ca
 import numpy as np
 
 from ..problem.limits import FRICTION, NORMAL_FORCE, TORQUE
+from .compiled import compile_knot_functions
 from .constraints import ConstraintStack, register_family
 from .knot_functions import KnotFunctions
 from .layout import VectorLayout
-from .objectives import Context
+from .objectives import POINT_FLOOR, Context
 from .parameters import parameter_layout
 from .structure import Structure
 
@@ -74,17 +77,27 @@ class Transcription:
         Layouts of x (scaled) and p (physical).
     constraints : ConstraintStack
         Named groups of g with their bounds.
+    compile_failure : str or None
+        With ``compiled=True``: None when the knot functions are compiled
+        libraries (:mod:`optimizer.transcription.compiled`), else why they
+        stayed uncompiled; ``compile_time`` [s] is what compiling (or
+        loading the cached libraries) took.
     """
 
     def __init__(self, robot, symbolic, structure: Structure, objective, map_mode: str = "serial",
-                 torque_gains: str = "eliminated"):
+                 torque_gains: str = "eliminated", compiled: bool = False):
         self.robot, self.structure, self.objective = robot, structure, objective
         self.torque_gains = torque_gains
         self.weight = robot.mass * float(np.linalg.norm(robot.gravity))
         self.context = Context(self.weight, float(np.mean(np.maximum(abs(robot.torque_lower), abs(robot.torque_upper)))),
-                               structure.knots)
+                               structure.knots, len(structure.disturbances) if objective.robust else 0,
+                               structure.combine_points)
         self.functions = KnotFunctions(symbolic, structure, self.weight, torque_gains, robot.joint_names,
                                        robot.collision.shapes)
+        self.compiled = compiled
+        started = time.perf_counter()
+        self.compile_failure = compile_knot_functions(self.functions) if compiled else None
+        self.compile_time = time.perf_counter() - started  # [s] generating, compiling or loading the libraries
         self.map_mode = map_mode
         self.variables = self._variable_layout()
         self.parameters = parameter_layout(structure, robot)
@@ -100,8 +113,8 @@ class Transcription:
         self._self_clearance(V, P)
         if objective.robust:
             self._robustness(V, P)
-        objective.add_constraints(V, self.constraints, self.context, self.disturbance_count)
-        cost = objective.cost(V, P, self.context, self.disturbance_count)
+        objective.add_constraints(V, P, self.constraints, self.context)
+        cost = objective.cost(V, P, self.context)
         self.nlp = {"x": x, "p": p, "f": cost, "g": self.constraints.expression()}
         self.lbg, self.ubg = self.constraints.bounds()
 
@@ -337,8 +350,9 @@ class Transcription:
         for p in range(self.disturbance_count):
             floor = 0.0 if required is None else np.asarray(required, float)[:, p] * (1.0 + REQUIREMENT_BACKOFF)
             L.set(lo, f"rho{p}", np.broadcast_to(floor, (K,))[None, :])
-        if "floor" in L:
-            L.set(lo, "floor", 0.0)
+        for name in ("floor", POINT_FLOOR):
+            if name in L:
+                L.set(lo, name, 0.0)
         self._swing_bounds(lo, hi)
         if "separation" in L:  # each separating plane's normal within the unit ball (its row) and box (here)
             planes = L["separation"]

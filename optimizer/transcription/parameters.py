@@ -5,6 +5,7 @@ import numpy as np
 
 from ..problem.clearance import CLEARANCE_BACKOFF, world_points
 from ..problem.friction import pyramid_facets
+from ..problem.point_weights import normalized_weights
 from ..problem.schedule import terrain_top
 from .layout import VectorLayout
 from .structure import Structure
@@ -21,6 +22,7 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     stacked; ``min_normal_force`` [N]; ``tau_lower``/``tau_upper`` (nj,) [N m];
     ``target_position`` (3, n_slots) [m]; ``target_rotation`` (9, n_slots),
     column-major rotation matrices; ``shape<p>`` (d*d,) per disturbance;
+    ``point_weights`` (P,), the points' normalized objective weights;
     ``posture`` (nq,), the nominal configuration of the regularizer;
     ``clearance_planes`` (4 rows, K): per clearance row and knot the plane
     ``(n, offset)`` with ``n . p >= offset`` (offset includes the shape's
@@ -40,6 +42,7 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     layout.add("target_rotation", 9, len(structure.targets))
     for p, slot in enumerate(structure.disturbances):
         layout.add(f"shape{p}", slot.dim * slot.dim)
+    layout.add("point_weights", len(structure.disturbances))
     layout.add("posture", robot.nq)
     layout.add("clearance_planes", 4 * len(structure.clearance_rows), structure.knots)
     layout.add("self_distances", len(structure.self_pairs))
@@ -75,12 +78,18 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
         layout.set(values, "target_rotation", np.array([r.reshape(-1, order="F") for r in rotations]).T)
     for p, spec in enumerate(task.disturbances):
         layout.set(values, f"shape{p}", np.asarray(spec.shape, dtype=float).reshape(-1, order="F"))
+    layout.set(values, "point_weights", point_weights(task, structure))
     layout.set(values, "posture", robot.standing_posture if posture is None else posture)
     if structure.clearance_rows:
         layout.set(values, "clearance_planes", clearance_planes(task, structure, motion))
     if structure.self_pairs:
         layout.set(values, "self_distances", [p.distance + CLEARANCE_BACKOFF for p in task.clearance.self_pairs])
     return values
+
+
+def point_weights(task, structure: Structure) -> np.ndarray:
+    """The disturbance points' objective weights, normalized for ``structure.combine_points``, shape (P,)."""
+    return normalized_weights([d.objective_weight for d in task.disturbances], structure.combine_points)
 
 
 def knot_footholds(task) -> np.ndarray:
