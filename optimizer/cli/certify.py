@@ -59,7 +59,8 @@ def add_arguments(parser) -> None:
                         help=f"tolerance of one physics check, repeatable (defaults: {defaults})")
     changed = parser.add_argument_group("changed model (the plan fixed; reported beside the planned figures)")
     changed.add_argument("--friction-scale", type=float, default=None, metavar="S",
-                         help="multiply every contact's planned friction coefficient (the plan's, after any reserve) by S (> 0)")
+                         help="multiply every contact's planned friction coefficient "
+                              "(the plan's, after any reserve) by S (> 0)")
     changed.add_argument("--torque-scale", type=float, default=None, metavar="S",
                          help="multiply every torque limit by S (> 0)")
     changed.add_argument("--payload", type=float, default=None, metavar="KG",
