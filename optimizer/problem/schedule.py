@@ -21,6 +21,7 @@ import numpy as np
 from ..errors import TaskError
 
 DEFAULT_SWING_HEIGHT = 0.05   # m above the terrain under the swing path, at mid-swing
+EDGE_TOUCH = 1e-3             # m: a swing path ending this close to a block's outline does not cross it
 MIN_SWING_KNOTS = 2           # the mid-swing knot, and one more to land softly from
 
 
@@ -188,8 +189,9 @@ def terrain_top(surfaces, start, goal) -> float:
 
     Planes that face up (normal z > 0.1) are linear along the path, so their
     highest point is at an end; a box counts with its top when the path's
-    (x, y) segment crosses its footprint. Surfaces facing down (ceilings) and
-    walls are not under the path.
+    (x, y) segment crosses its footprint by more than ``EDGE_TOUCH`` (a swing
+    onto or off a block's side face ends on its outline, not over it).
+    Surfaces facing down (ceilings) and walls are not under the path.
     """
     a, b = np.asarray(start, float)[:2], np.asarray(goal, float)[:2]
     top = -np.inf
@@ -198,7 +200,7 @@ def terrain_top(surfaces, start, goal) -> float:
             n = s.normal
             if n[2] > 0.1:
                 top = max(top, *((s.offset - n[:2] @ p) / n[2] for p in (a, b)))
-        elif segment_crosses_box(a, b, s.lower[:2], s.upper[:2]):
+        elif segment_crosses_box(a, b, s.lower[:2] + EDGE_TOUCH, s.upper[:2] - EDGE_TOUCH):
             top = max(top, float(s.upper[2]))
     return float(top) if np.isfinite(top) else float(max(start[2], goal[2]))
 
