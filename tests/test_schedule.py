@@ -180,6 +180,19 @@ def test_the_plan_check_notices_a_braced_force_outside_the_wall_pyramid(tmp_path
     assert {"friction", "normal-force"} <= failed, failed
 
 
+def test_a_foothold_off_the_wall_face_or_on_a_top_is_refused_with_the_field():
+    # The wall face spans x in [-0.5, 1.5] m and z in [0, 0.8] m (task file's block); feet keep
+    # edge_clearance (0.03 m by default) from its edges, the floor among them.
+    data = copy.deepcopy(read_yaml_mapping("tasks/wall_brace.yaml", TaskError))
+    entry = data["stance"]["schedule"]["foot_fl"][1]
+    entry["at"] = [0.40, 0.01]
+    with pytest.raises(TaskError, match=r"stance\.schedule\.foot_fl\[1\]\.at.*0\.03 m from its edges"):
+        task_from_mapping(data, "tasks/wall_brace.yaml")
+    entry["at"], entry["surface"] = [0.40, 0.20], "floor"
+    with pytest.raises(TaskError, match=r"stance\.schedule\.foot_fl\[1\]\.surface.*a block"):
+        task_from_mapping(data, "tasks/wall_brace.yaml")
+
+
 def test_support_before_solving_uses_the_wall_normal_of_an_interval():
     # Newton and Coulomb: a foot pressing on a vertical wall (normal -y, mu 0.7) alone cannot carry
     # the weight (vertical force at most 0.7 times a horizontal push nothing balances). With only
