@@ -181,10 +181,13 @@ def measure_normal_force(facts: PlanFacts) -> Worst:
 def measure_surfaces(facts: PlanFacts) -> Worst:
     """Distance [m] of a stance foothold from the nearest terrain face (``meta.clearance.surfaces``)
     whose outward normal is the contact's normal at that knot; infinite when no face has it.
-    Nothing to check in plans without terrain surfaces."""
+    Only plans whose task placed its feet on a terrain (``meta.task.stance.terrain``) are checked:
+    the planes of explicit contacts are drawn from the footholds themselves."""
     plan = facts.plan
+    stance = (facts.meta.get("task") or {}).get("stance") or {}
+    placed = isinstance(stance, dict) and isinstance(stance.get("terrain"), dict)
     surfaces = [Surface.from_dict(s) for s in (facts.meta.get("clearance") or {}).get("surfaces", [])]
-    if not surfaces:
+    if not placed or not surfaces:
         return worst_entry(np.zeros((plan.q.shape[0], 0)), [])
     normals = knot_surfaces(facts.meta, plan.q.shape[0]).normals
     gap = np.full(plan.contact_active.shape, -np.inf)
