@@ -2,6 +2,7 @@
 
     python benchmarks/simulate.py [--knots 60] [--tasks stair_landing,steep_ramp,...]
                                   [--plans DIR] [--write benchmarks/RESULTS.md]
+                                  [--figure docs/figures/simulation_pushes.png]
 
 For each demo task, the robust and the torque plan (solved here, or read from
 ``DIR/<task>_<objective>_<knots>.npz`` when present, and saved there when
@@ -11,8 +12,10 @@ margin and at the middle knot, the largest push along the certified weakest
 direction survived in ``informed`` and in ``blind`` mode, against the
 certified margin, the exact figure, and the size at which the plan's linear
 response meets a limit along that direction. Prints Markdown; ``--write``
-replaces the "## Simulation" section of the results file. Nothing here is
-tuned to agree with the certificate: the settings are the command's defaults.
+replaces the "## Simulation" section of the results file; ``--figure`` draws
+every survived push against its certified margin
+(:func:`optimizer.report.simulation.push_figure`). Nothing here is tuned to
+agree with the certificate: the settings are the command's defaults.
 """
 from __future__ import annotations
 
@@ -33,11 +36,12 @@ import numpy as np  # noqa: E402
 from optimizer.planfile import build_model, load_plan, save_plan  # noqa: E402
 from optimizer.planner import solve  # noqa: E402
 from optimizer.problem.task import load_task  # noqa: E402
+from optimizer.report.simulation import write_push_figure  # noqa: E402
 from optimizer.simulation.inputs import simulation_inputs  # noqa: E402
 from optimizer.simulation.pushes import Simulator  # noqa: E402
 from results_file import publish
 
-TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
+TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space", "drawer_pull"]
 OBJECTIVES = ["robust", "torque"]
 
 
@@ -70,17 +74,18 @@ def survived_text(p) -> str:
 
 def rows(names, knots, folder):
     nominal = ["| task | objective | feet, largest from foothold [mm] | hand targets, largest error [mm] | "
-               "base, largest error [mm] | contact losses | nominal within limits |",
-               "| --- | --- | ---: | ---: | ---: | ---: | --- |"]
+               "base, largest error [mm] | contact losses | torque clipped [s] | nominal within limits |",
+               "| --- | --- | ---: | ---: | ---: | ---: | --- | --- |"]
     pushes = ["| task | objective | knot | certified [N] | exact [N] | linear response limit [N] | "
               "informed: survived [N] (/certified) | blind: survived [N] (/certified) | informed ended by | "
               "blind ended by |",
               "| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: | --- | --- |"]
+    documents = []
     for name in names:
         for objective in OBJECTIVES:
             plan = plan_for(name, objective, knots, folder)
             if plan is None:
-                nominal.append(f"| {name} | {objective} | solve failed | | | | |")
+                nominal.append(f"| {name} | {objective} | solve failed | | | | | |")
                 continue
             inputs = simulation_inputs(plan, build_model("plan", plan.meta["urdf"]))
             sim = Simulator(plan, inputs.surfaces, inputs.targets, inputs.hand_frame)
@@ -88,16 +93,20 @@ def rows(names, knots, folder):
             feet = max(f["distance_m"] for f in n["feet"])
             targets = max((t["error_m"] for t in n["targets"]), default=float("nan"))
             losses = sum(f["contact_losses"] for f in n["feet"])
+            clipped = ", ".join(f"{j} {x:.2f}" for j, x in n["torque_clipped_s"].items()) or "none"
             nominal.append(f"| {name} | {objective} | {mm(feet)} | {mm(targets)} | {mm(n['base_error_m'])} | "
-                           f"{losses} | {'yes' if n['ok'] else 'no'} |")
+                           f"{losses} | {clipped} | {'yes' if n['ok'] else 'no'} |")
+            document = {"task": name, "objective": objective, "pushes": []}
+            documents.append(document)
             for k in sorted({int(np.argmin(plan.margin)), plan.t.shape[0] // 2}):
                 informed, blind = sim.largest_push(k, "informed"), sim.largest_push(k, "blind")
+                document["pushes"] += [informed.to_json(), blind.to_json()]
                 pushes.append(f"| {name} | {objective} | {k} | {newtons(informed.margin)} | "
                               f"{newtons(informed.exact)} | {newtons(informed.linear_limit)} | "
                               f"{survived_text(informed)} | {survived_text(blind)} | {informed.failure} | "
                               f"{blind.failure} |")
             print(f"{name} {objective} done", file=sys.stderr, flush=True)
-    return nominal, pushes
+    return nominal, pushes, documents
 
 
 def section(args, nominal, pushes, elapsed, load_before, load_after) -> str:
@@ -127,9 +136,12 @@ def main(argv=None) -> int:
     parser.add_argument("--tasks", default=",".join(TASKS))
     parser.add_argument("--plans", metavar="DIR", help="read plans from / save plans to this folder")
     parser.add_argument("--write", metavar="RESULTS.md")
+    parser.add_argument("--figure", metavar="PNG", help="draw the survived pushes against the margins here")
     args = parser.parse_args(argv)
     started, load_before = time.perf_counter(), os.getloadavg()[0]
-    nominal, pushes = rows(args.tasks.split(","), args.knots, Path(args.plans) if args.plans else None)
+    nominal, pushes, documents = rows(args.tasks.split(","), args.knots, Path(args.plans) if args.plans else None)
+    if args.figure:
+        write_push_figure(documents, args.figure)
     text = section(args, nominal, pushes, time.perf_counter() - started, load_before, os.getloadavg()[0])
     publish(text, args.write, "Simulation")
     return 0

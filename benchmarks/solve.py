@@ -1,7 +1,7 @@
 """Time and memory of planning, per demo task and knot count, each plan in a fresh process.
 
     python benchmarks/solve.py [--tasks steep_ramp,crawl_space] [--knots 30,60,120]
-                               [--objective robust] [--evaluation expanded,mapped]
+                               [--objective robust] [--evaluation compiled,expanded,mapped]
                                [--again] [--compare 60] [--torque-gains variables]
                                [--write benchmarks/RESULTS.md]
 
@@ -14,12 +14,15 @@ and derivatives (the rest is Ipopt's own work: factorizations, line search); per
 resident memory; per task the growth exponent of the whole-plan time against knots (least
 squares on log time against log knots).
 
-``--evaluation`` names how the NLP is evaluated: ``expanded`` (one scalar graph, CasADi
-``expand=True``: faster iterations, slow build) or ``mapped`` (the knot functions mapped over
-the knots, ``expand=False``: fast build, slower iterations). ``--compare K`` also solves
+``--evaluation`` names how the NLP is evaluated: ``compiled`` (the knot functions and their
+derivatives as compiled C from brace's cache folder, mapped over the knots; measured twice, each
+in a fresh process: first with an empty cache folder, which pays the compiler, then with the
+cache that run left, as every later process finds it), ``expanded`` (one scalar graph, CasADi
+``expand=True``: faster iterations, slow build) or ``mapped`` (the knot functions interpreted,
+mapped over the knots, ``expand=False``: fast build, slower iterations). ``--compare K`` also solves
 ``robust``, ``robust-min`` and ``robust-sum`` from one seed per task at K knots and reports
 their certified margins. Prints Markdown; ``--write`` replaces the "## Solve" section of the
-results file. Record the machine's load with the figures: timings on a busy machine are slow.
+results file (``--section`` names another). Record the machine's load with the figures: timings on a busy machine are slow.
 """
 from __future__ import annotations
 
@@ -29,8 +32,10 @@ import json
 import os
 import platform
 import resource
+import shutil
 import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 from results_file import publish
@@ -38,7 +43,9 @@ from results_file import publish
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 ROOT = Path(__file__).resolve().parent.parent
 TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
-EVALUATION = {"expanded": True, "mapped": False}
+
+
+COMPILED_LABELS = ["compiled, empty cache", "compiled, warm cache"]
 
 
 # -- child process: one measurement ---------------------------------------------------------
@@ -50,7 +57,7 @@ def child(task_name: str, knots: int, objective: str, evaluation: str, torque_ga
     imported = time.perf_counter() - started
     task = load_task(ROOT / "tasks" / f"{task_name}.yaml")
     runs = []
-    with Planner(knots=knots, expand=EVALUATION[evaluation], torque_gains=torque_gains) as planner:
+    with Planner(knots=knots, evaluation=evaluation, torque_gains=torque_gains) as planner:
         for _ in range(2 if again else 1):
             began = time.perf_counter()
             outcome = planner.solve(task, objective)
@@ -75,7 +82,7 @@ def compare_child(task_name: str, knots: int) -> dict:
     from optimizer.problem.task import load_task
     task = load_task(ROOT / "tasks" / f"{task_name}.yaml")
     out = {}
-    with Planner(knots=knots, expand=False) as planner:
+    with Planner(knots=knots, evaluation="compiled") as planner:
         outcomes = planner.solve_objectives(task, ["robust", "robust-min", "robust-sum"])
     for name, outcome in outcomes.items():
         stage = outcome.stages[-1]
@@ -86,9 +93,11 @@ def compare_child(task_name: str, knots: int) -> dict:
     return {"task": task_name, "knots": knots, "objectives": out}
 
 
-def in_child(*args: str) -> dict:
-    """Run this script with ``args`` in a fresh interpreter; its last output line is JSON."""
+def in_child(*args: str, cache: str | None = None) -> dict:
+    """Run this script with ``args`` in a fresh interpreter (``cache``: its cache folder); its last output line is JSON."""
     env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    if cache is not None:
+        env["BRACE_CACHE_DIR"] = cache
     done = subprocess.run([sys.executable, str(Path(__file__).resolve()), *args], capture_output=True,
                           text=True, env=env, cwd=ROOT)
     lines = [line for line in done.stdout.splitlines() if line.startswith("{")]
@@ -142,13 +151,14 @@ def load_text() -> str:
 def section(args, results, growth, comparison, elapsed, loads) -> str:
     cpu = platform.processor() or platform.machine()
     lines = [
-        "## Solve", "",
+        f"## {args.section}", "",
         f"Script: `python benchmarks/solve.py --tasks {args.tasks} --knots {args.knots} --objective "
         f"{args.objective} --evaluation {args.evaluation}"
         + (" --torque-gains variables" if args.torque_gains == "variables" else "")
         + (" --again" if args.again else "")
         + (f" --compare {args.compare}" if args.compare else "")
-        + (f" --compare-tasks {args.compare_tasks}" if args.compare and args.compare_tasks else "") + "` "
+        + (f" --compare-tasks {args.compare_tasks}" if args.compare and args.compare_tasks else "")
+        + (f" --section '{args.section}'" if args.section != "Solve" else "") + "` "
         f"({datetime.date.today().isoformat()}, {os.cpu_count()} cores, {cpu}, Python "
         f"{platform.python_version()}, `OPENBLAS_NUM_THREADS=1`, Ipopt + MUMPS through CasADi); "
         f"whole run {elapsed / 60:.1f} min.", "",
@@ -161,7 +171,9 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
         "(imports included for the first); \"build\" is solver creation; each stage gives "
         "iterations, solve time and the share of it spent evaluating the NLP (\"eval\"); "
         "\"robust / feasible\" divides the objective stage's solve time by the seed's; peak is the "
-        "process's peak resident memory.", "",
+        "process's peak resident memory. \"compiled, empty cache\" starts from an empty cache folder, "
+        "so its build includes generating and compiling the knot functions' C code; \"compiled, warm "
+        "cache\" is the next fresh process, which loads the libraries the first one left.", "",
         "| task | knots | evaluation | plan | whole [s] | build [s] | feasible stage | objective stage | "
         "robust / feasible | peak [GB] | margin min / mean [N] |",
         "| --- | ---: | --- | --- | ---: | ---: | --- | --- | ---: | ---: | --- |"]
@@ -191,15 +203,31 @@ def fmt(value) -> str:
     return "-" if value is None else f"{value:.2f}"
 
 
+def measured(task: str, knots: int, evaluation: str, args) -> list[dict]:
+    """One fresh-process measurement; for ``compiled`` two: an empty cache folder, then the one it left."""
+    child = ["--child", task, str(knots), args.objective, evaluation, args.torque_gains,
+             "again" if args.again else "once"]
+    if evaluation != "compiled":
+        return [in_child(*child)]
+    folder = tempfile.mkdtemp(prefix="brace-bench-cache-")
+    try:
+        empty, warm = in_child(*child, cache=folder), in_child(*child, cache=folder)
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+    empty["evaluation"], warm["evaluation"] = "compiled, empty cache", "compiled, warm cache"
+    return [empty, warm]
+
+
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--tasks", default=",".join(TASKS))
     parser.add_argument("--knots", default="30,60,120")
     parser.add_argument("--objective", default="robust")
-    parser.add_argument("--evaluation", default="expanded,mapped")
+    parser.add_argument("--evaluation", default="compiled,expanded,mapped")
     parser.add_argument("--compare", type=int, default=0, metavar="K")
     parser.add_argument("--compare-tasks", metavar="TASKS", help="tasks of --compare (default: --tasks)")
     parser.add_argument("--write", metavar="RESULTS.md")
+    parser.add_argument("--section", default="Solve", help="heading of the results section written (default Solve)")
     parser.add_argument("--torque-gains", default="eliminated", choices=["eliminated", "variables"],
                         help="joint-torque gains in closed form (default) or as decision variables (ablation)")
     parser.add_argument("--again", action="store_true",
@@ -221,19 +249,19 @@ def main(argv=None) -> int:
     for task in tasks:
         for evaluation in evaluations:
             for knots in (int(k) for k in args.knots.split(",")):
-                result = in_child("--child", task, str(knots), args.objective, evaluation, args.torque_gains,
-                                  "again" if args.again else "once")
-                results.append(result)
-                print("\n".join(run_rows(result)), flush=True)
-            growth.append((task, evaluation, growth_exponent(results, task, evaluation, "fresh"),
-                           growth_exponent(results, task, evaluation, "built")))
+                for result in measured(task, knots, evaluation, args):
+                    results.append(result)
+                    print("\n".join(run_rows(result)), flush=True)
+            for label in COMPILED_LABELS if evaluation == "compiled" else [evaluation]:
+                growth.append((task, label, growth_exponent(results, task, label, "fresh"),
+                               growth_exponent(results, task, label, "built")))
     if args.compare:
         for task in (args.compare_tasks or args.tasks).split(","):
             comparison.append(in_child("--compare-child", task, str(args.compare)))
             print(json.dumps(comparison[-1]), flush=True)
     loads.append(load_text())
     text = section(args, results, growth, comparison, time.perf_counter() - started, loads)
-    publish(text, args.write, "Solve")
+    publish(text, args.write, args.section)
     return 0
 
 

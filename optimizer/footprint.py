@@ -24,11 +24,19 @@ from .transcription.objectives import objective_named
 from .transcription.structure import structure_of
 
 PROBE_KNOTS = (6, 8)  # two small knot counts; the difference gives the nodes per knot
+_MEASURED: dict = {}  # the probes' transcription keys -> StageSize, measured once per process
+_MEASURED_MAX = 256
 
 
 @dataclass(frozen=True)
 class StageSize:
-    """Size of one stage's NLP: expanded nodes per knot and independent of knots."""
+    """Size of one stage's NLP: expanded nodes per knot and independent of knots.
+
+    ``nodes_fixed`` is the intercept of the line through the two probes; it may
+    be negative (rows at every knot but the first and the last, such as the
+    clearance rows, count K - 2 times), which keeps the line exact instead of
+    overestimating every larger knot count.
+    """
 
     objective: str
     nodes_per_knot: float
@@ -91,20 +99,35 @@ def probe_knots(task) -> tuple[int, int]:
 
 def stage_size(task, objective: str, planner: Planner | None = None) -> StageSize:
     """Measure one stage's NLP at two small knot counts (:func:`probe_knots`), split nodes into per-knot
-    and fixed."""
+    and fixed.
+
+    The sizes depend only on what the transcription reads besides its
+    parameters (:meth:`Planner.transcription_key` of both probes), so tasks
+    that differ in numbers alone are measured once per process.
+    """
     planner = planner or shared_planner()
+    knots = probe_knots(task)
+    probes = [task.with_knots(k) for k in knots]
+    key = tuple(planner.transcription_key(small, objective) for small in probes)
+    if key not in _MEASURED:
+        if len(_MEASURED) >= _MEASURED_MAX:
+            _MEASURED.clear()
+        _MEASURED[key] = _measure(knots, probes, objective, planner)
+    return _MEASURED[key]
+
+
+def _measure(knots, probes, objective: str, planner: Planner) -> StageSize:
+    """Expand each probe's NLP (at ``knots``) and count its nodes."""
     counts = []
-    probes = probe_knots(task)
-    for knots in probes:
-        small = task.with_knots(knots)
+    for small in probes:
         transcription = Transcription(small.robot, planner.symbolic_robot(small.robot), structure_of(small),
                                       objective_named(objective), torque_gains=planner.torque_gains)
         nlp = transcription.nlp
         expanded = ca.Function("nlp", [nlp["x"], nlp["p"]], [nlp["f"], nlp["g"]]).expand()
         counts.append((expanded.n_nodes(), transcription.variables.size))
-    (k0, k1), ((n0, x0), (n1, x1)) = probes, counts
+    (k0, k1), ((n0, x0), (n1, x1)) = knots, counts
     per_knot = (n1 - n0) / (k1 - k0)
-    return StageSize(objective, per_knot, max(n0 - k0 * per_knot, 0.0), (x1 - x0) / (k1 - k0))
+    return StageSize(objective, per_knot, n0 - k0 * per_knot, (x1 - x0) / (k1 - k0))
 
 
 def estimate_memory(task, objective: str | None = None, planner: Planner | None = None) -> MemoryEstimate:

@@ -63,25 +63,24 @@ def available_memory() -> Available | None:
     return min(found, key=lambda a: a.size)
 
 
-def resident_size() -> int:
-    """This process's resident memory now [bytes] (0 when the system does not say)."""
+def _proc_field(path: str, key: str) -> int | None:
+    """The ``key: N kB`` line of a /proc file, in bytes (None when the system does not say)."""
     try:
-        for line in Path("/proc/self/status").read_text().splitlines():
-            if line.startswith("VmRSS:"):
-                return int(line.split()[1]) * 1024
-    except (OSError, ValueError, IndexError):
-        pass
-    return 0
-
-
-def _meminfo_available() -> int | None:
-    try:
-        for line in Path("/proc/meminfo").read_text().splitlines():
-            if line.startswith("MemAvailable:"):
+        for line in Path(path).read_text().splitlines():
+            if line.startswith(key + ":"):
                 return int(line.split()[1]) * 1024
     except (OSError, ValueError, IndexError):
         pass
     return None
+
+
+def resident_size() -> int:
+    """This process's resident memory now [bytes] (0 when the system does not say)."""
+    return _proc_field("/proc/self/status", "VmRSS") or 0
+
+
+def _meminfo_available() -> int | None:
+    return _proc_field("/proc/meminfo", "MemAvailable")
 
 
 def _cgroup_room() -> int | None:

@@ -347,7 +347,8 @@ def _check_disturbances(f: Fields, model) -> int:
 
 
 def _check_clearance(f: Fields, model) -> None:
-    """``meta.clearance`` (optional): distance, surfaces, shapes on the URDF's links, pairs naming both."""
+    """``meta.clearance`` (optional): distance, surfaces, shapes on the URDF's links, pairs naming both,
+    optional self pairs naming two shapes and a distance."""
     import pinocchio as pin
 
     f.number("distance", lo=0.0)
@@ -379,6 +380,10 @@ def _check_clearance(f: Fields, model) -> None:
         if not isinstance(points, list) or not points or not all(
                 isinstance(p, int) and not isinstance(p, bool) and 0 <= p < shapes[shape] for p in points):
             s.fail("points", f"a non-empty list of point indices below {shapes[shape]}", points)
+    for i, entry in enumerate(_list(f, "self_pairs") if f.has("self_pairs") else []):
+        s = Fields(entry, f.file, f.at(f"self_pairs[{i}]"), f.error)
+        s.string("first", choices=sorted(shapes)), s.string("second", choices=sorted(shapes))
+        s.number("distance", lo=0.0)
 
 
 def _list(f: Fields, key: str) -> list:

@@ -34,6 +34,7 @@ from .analysis.knot_response import knot_responses
 from .analysis.linear_margin import best_linear_margin, certify_gains
 from .errors import SolveFailed
 from .planfile import Plan, response_gains_key
+from .problem.point_weights import combined_margin
 from .problem.requirement import as_json as requirements_json
 from .problem.requirement import required_margins
 from .robot.symbolic import SymbolicRobot
@@ -41,9 +42,30 @@ from .solver.backend import SolverResult
 from .solver.registry import DEFAULT_BACKEND, backend_named
 from .transcription.guess import initial_guess
 from .transcription.nlp import INTEGRATOR, Transcription
-from .transcription.objectives import OBJECTIVES, objective_named
-from .transcription.parameters import parameter_values
+from .transcription.objectives import OBJECTIVES, POINT_FLOOR, objective_named
+from .transcription.parameters import parameter_values, separating_planes
 from .transcription.structure import structure_of
+
+
+# How a planner evaluates the NLP (see Planner); compiled falls back to mapped without a C compiler.
+EVALUATIONS = ("compiled", "expanded", "mapped")
+DEFAULT_EVALUATION = "expanded"
+_NOTICES: list[str] = []
+_SAID: set[str] = set()
+
+
+def _notice(text: str) -> None:
+    """Keep ``text`` for :func:`take_notice`, once per process."""
+    if text not in _SAID:
+        _SAID.add(text)
+        _NOTICES.append(text)
+
+
+def take_notice() -> list[str]:
+    """What the planners of this process had to say (a compiler fallback), each only once; then forgotten."""
+    taken = list(_NOTICES)
+    _NOTICES.clear()
+    return taken
 
 
 @dataclass
@@ -95,10 +117,13 @@ class SolveOutcome:
 
 
 def robot_key(robot) -> str:
-    """Digest of everything a built NLP reads from ``robot``: URDF text, limits, mass, gravity, joint names."""
+    """Digest of everything a built NLP reads from ``robot``: URDF text, limits, mass, gravity, joint names,
+    collision shapes (their points and radii are numbers of the clearance rows)."""
     digest = hashlib.sha1(robot.urdf_text.encode())
+    shapes = robot.collision.shapes
     for values in (robot.torque_lower, robot.torque_upper, robot.velocity_limit, robot.joint_lower,
-                   robot.joint_upper, robot.gravity, [robot.mass]):
+                   robot.joint_upper, robot.gravity, [robot.mass], *[s.joint_points for s in shapes],
+                   [s.radius for s in shapes], [s.joint for s in shapes]):
         digest.update(np.ascontiguousarray(values, dtype=float).tobytes())
     digest.update("\n".join(robot.joint_names).encode())
     return digest.hexdigest()
@@ -146,8 +171,15 @@ class Planner:
         Name of the solver backend (:mod:`optimizer.solver.registry`).
     options : dict, optional
         Solver options over the task's ``solver`` options.
-    expand : bool
-        Evaluate the NLP as one scalar graph (faster iterations, slower build).
+    evaluation : str
+        How the NLP is evaluated (:data:`EVALUATIONS`): ``compiled`` (the
+        knot functions and their derivatives as compiled C, cached on disk,
+        mapped over the knots: the fastest plan from a fresh process),
+        ``expanded`` (one scalar graph: fast iterations, slow build, nothing
+        on disk; the default) or ``mapped`` (the knot
+        functions interpreted, mapped over the knots: fast build, slow
+        iterations). ``compiled`` falls back to ``mapped`` when no C
+        compiler works (:func:`take_notice` says so once).
     torque_gains : str
         ``"eliminated"`` (the closed form, default) or ``"variables"`` (joint
         torque gains as decision variables with the full balance; ablation).
@@ -157,13 +189,16 @@ class Planner:
     """
 
     def __init__(self, objective: str | None = None, knots: int | None = None, backend: str = DEFAULT_BACKEND,
-                 options: dict | None = None, *, expand: bool = True, torque_gains: str = "eliminated"):
+                 options: dict | None = None, *, evaluation: str = DEFAULT_EVALUATION,
+                 torque_gains: str = "eliminated"):
         if objective is not None:
             objective_named(objective)
+        if evaluation not in EVALUATIONS:
+            raise KeyError(f"unknown evaluation '{evaluation}'; known: {', '.join(EVALUATIONS)}")
         self.objective, self.knots = objective, knots
         self.backend = backend_named(backend)
         self.options = dict(options or {})
-        self.expand, self.torque_gains = expand, torque_gains
+        self.evaluation, self.torque_gains = evaluation, torque_gains
         self._symbolic: dict[str, SymbolicRobot] = {}
         self._transcriptions: dict[tuple, Transcription] = {}
         self._built: dict[tuple, BuiltNLP] = {}
@@ -207,13 +242,13 @@ class Planner:
         return dict(task.solver_options, **self.options)
 
     def transcription_key(self, task, objective: str) -> tuple:
-        """Everything a transcription reads that is not a parameter: robot, structure, objective, gain form."""
-        return (robot_key(task.robot), structure_of(task), objective, self.torque_gains)
+        """Everything a transcription reads that is not a parameter: robot, structure, objective, gain form, evaluation."""
+        return (robot_key(task.robot), structure_of(task), objective, self.torque_gains, self.evaluation)
 
     def build_key(self, task, objective: str) -> tuple:
         """:meth:`transcription_key` plus what the built solver reads: backend, expansion, options."""
         options = tuple(sorted((k, repr(v)) for k, v in self.solver_options(task).items()))
-        return self.transcription_key(task, objective) + (self.backend.name, self.expand, options)
+        return self.transcription_key(task, objective) + (self.backend.name, options)
 
     def symbolic_robot(self, robot) -> SymbolicRobot:
         """The robot's CasADi twin, built once per URDF text."""
@@ -228,9 +263,13 @@ class Planner:
         key = self.transcription_key(task, objective)
         with self._lock:
             if key not in self._transcriptions:
-                self._transcriptions[key] = Transcription(task.robot, self.symbolic_robot(task.robot),
-                                                          structure_of(task), objective_named(objective),
-                                                          torque_gains=self.torque_gains)
+                transcription = Transcription(task.robot, self.symbolic_robot(task.robot), structure_of(task),
+                                              objective_named(objective), torque_gains=self.torque_gains,
+                                              compiled=self.evaluation == "compiled")
+                if transcription.compile_failure is not None:
+                    _notice(f"knot functions not compiled: {transcription.compile_failure}; "
+                            "evaluating them uncompiled (slower iterations)")
+                self._transcriptions[key] = transcription
             return self._transcriptions[key]
 
     def built(self, task, objective: str) -> BuiltNLP:
@@ -241,9 +280,12 @@ class Planner:
                 supervisor.phase(f"building the {objective} solver")
                 transcription = self.transcription(task, objective)
                 log = self._folder / f"solver-{len(self._built)}.log"
-                solver = self.backend.build(transcription.nlp, self.solver_options(task), expand=self.expand,
+                solver = self.backend.build(transcription.nlp, self.solver_options(task),
+                                            expand=self.evaluation == "expanded",
                                             log_file=log, progress=self._relay)
-                self._built[key] = BuiltNLP(transcription, solver, log, solver.build_time)
+                paid = solver.build_time + transcription.compile_time
+                transcription.compile_time = 0.0  # counted once, with the first solver built on it
+                self._built[key] = BuiltNLP(transcription, solver, log, paid)
             return self._built[key]
 
     def _relay(self, iteration, x, f, g):
@@ -315,16 +357,19 @@ class Planner:
         p = parameter_values(task, transcription.structure, transcription.parameters, motion=start["q"])
         if "rooms" in layout and "rooms" not in start:
             layout.set(x0, "rooms", transcription.rooms_at(start, p))
+        if "separation" in layout and "separation" not in start:
+            layout.set(x0, "separation", separating_planes(task, transcription.structure, start["q"]))
         lbx, ubx = transcription.bounds(task.initial_posture,
                                         required_margins(task.requirements, task.times, len(task.disturbances)))
         self._listener = None if progress is None else _listener(progress, objective, transcription)
         supervisor.phase(f"solving the {objective} stage")
+        log_start = built.log.stat().st_size if built.log.exists() else 0
         try:
             result: SolverResult = built.solver.solve(np.clip(x0, lbx, ubx), p, lbx, ubx, transcription.lbg,
                                                       transcription.ubg)
         finally:
             self._listener = None
-            _append_log(built.log, log_path, objective)
+            _append_log(built.log, log_start, log_path, objective)
         outcome.stages.append(StageReport(objective, result.status, result.success, result.iterations,
                                           result.wall_time, built.unreported_build_time, result.max_violation,
                                           result.message, result.eval_time))
@@ -345,17 +390,17 @@ _SHARED: dict[tuple, Planner] = {}
 _SHARED_LOCK = threading.Lock()
 
 
-def shared_planner(expand: bool = True, torque_gains: str = "eliminated") -> Planner:
+def shared_planner(evaluation: str = DEFAULT_EVALUATION, torque_gains: str = "eliminated") -> Planner:
     """The planner :func:`solve` uses, one per setting (its files go when the interpreter exits)."""
     with _SHARED_LOCK:
-        key = (expand, torque_gains)
+        key = (evaluation, torque_gains)
         if key not in _SHARED:
-            _SHARED[key] = Planner(expand=expand, torque_gains=torque_gains)
+            _SHARED[key] = Planner(evaluation=evaluation, torque_gains=torque_gains)
         return _SHARED[key]
 
 
 def solve(task, objective: str | None = None, *, knots: int | None = None, progress=None,
-          log_path=None, expand: bool = True, torque_gains: str = "eliminated") -> SolveOutcome:
+          log_path=None, evaluation: str = DEFAULT_EVALUATION, torque_gains: str = "eliminated") -> SolveOutcome:
     """Plan ``task`` with ``objective`` (default: the task's own); a thin wrapper around :class:`Planner`.
 
     Parameters
@@ -371,7 +416,7 @@ def solve(task, objective: str | None = None, *, knots: int | None = None, progr
         stage has no margin variables.
     log_path : path, optional
         The solver's logs of every stage are appended to this file.
-    expand, torque_gains
+    evaluation, torque_gains
         As for :class:`Planner`.
 
     Returns
@@ -384,7 +429,7 @@ def solve(task, objective: str | None = None, *, knots: int | None = None, progr
         raise KeyError(f"unknown objective '{objective}'; known: {', '.join(OBJECTIVES)}")
     if knots is not None:
         task = task.with_knots(knots)
-    return shared_planner(expand, torque_gains).solve(task, objective, progress=progress, log_path=log_path)
+    return shared_planner(evaluation, torque_gains).solve(task, objective, progress=progress, log_path=log_path)
 
 
 def _listener(progress, objective, transcription):
@@ -398,12 +443,20 @@ def _listener(progress, objective, transcription):
     return listen
 
 
-def _append_log(source: Path, target, title: str) -> None:
+def _append_log(source: Path, start: int, target, title: str) -> None:
+    """Append to ``target`` what this solve wrote to ``source`` (from byte ``start`` on).
+
+    A built solver's log file keeps growing with every solve it runs; only
+    the part after ``start`` belongs to this one.
+    """
     if target is None or not source.exists():
         return
+    with open(source, "rb") as log:
+        log.seek(start)
+        text = log.read().decode("utf-8", errors="replace")
     with open(target, "a", encoding="utf-8") as out:
         out.write(f"\n===== brace stage: {title} =====\n")
-        out.write(source.read_text(encoding="utf-8", errors="replace"))
+        out.write(text)
 
 
 def _initial_gains(task, arrays) -> dict:
@@ -422,6 +475,8 @@ def _initial_gains(task, arrays) -> dict:
             rho.append(r)
         out[f"G{p}"], out[f"rho{p}"] = np.array(gains).T, np.array(rho)[None, :]
         out[f"G_tau{p}"] = np.array(torque_gains).T
+    rho = np.vstack([out[f"rho{p}"] for p in range(len(task.disturbances))]).T
+    out[POINT_FLOOR] = combined_margin(rho, [d.objective_weight for d in task.disturbances], "smallest")[None, :]
     return out
 
 
@@ -501,9 +556,11 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
                              "tangents": [np.asarray(c.tangents, float).tolist() for c in task.contacts]},
         "min_normal_force": float(task.min_normal_force),
         "torque_limits": {"lower": robot.torque_lower.tolist(), "upper": robot.torque_upper.tolist()},
+        **({"torque_reserve": float(task.torque_reserve)} if task.torque_reserve > 0 else {}),
         "joint_velocity_limits": robot.velocity_limit.tolist(),
-        "disturbances": [{"frame": d.frame, "kind": d.kind, "shape": np.asarray(d.shape, float).tolist()}
-                         for d in task.disturbances],
+        "disturbances": [{"frame": d.frame, "kind": d.kind, "shape": np.asarray(d.shape, float).tolist(),
+                          "objective_weight": float(d.objective_weight)} for d in task.disturbances],
+        "combine_points": task.combine_points,
         "objective": objective,
         "clearance": clearance_meta(task.clearance),
         "task": task.raw,

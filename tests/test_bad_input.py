@@ -153,6 +153,9 @@ CASES = {
                          r"field 'standing.base_height'.*a finite number"),
     "robot-limit-shape": (robot_case(data={"limits": {"torque": {"fl_knee": [5.0]}}}),
                           r"field 'limits.torque.fl_knee'.*a list of 2 numbers"),
+    "robot-self-pair-unknown": (robot_case(data={"collision": {**ROBOT["collision"], "self_pairs": [
+        {"between": "grippr", "and": "body"}]}}), r"field 'collision.self_pairs\[0\].between'.*a link with collision "
+        r"shapes or a shape name.*close names: gripper"),
     "robot-repeated-key": (robot_case(text="urdf: robot.urdf\nhand: grip_point\nhand: grip_point\n"),
                            r"robot.yaml: expected valid YAML, got .*'hand'.* given twice"),
     "robot-not-utf8": (robot_case(raw=b"name: st\xffilt\n"), r"robot.yaml: expected UTF-8 text.*undecodable byte at offset 8"),

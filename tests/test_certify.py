@@ -9,8 +9,11 @@ import pytest
 
 from certify_checks import (MODELS, LiftedLP, check_plan_against_sampled_lps, demo_standing,
                             least_squares_margin, sampled_bounds, standing_plan)
-from optimizer.analysis.certify import Settings, certify_plan
+from optimizer.analysis.certify import KnotCertificate, PlanCertificate, Settings, certify_plan
 from optimizer.analysis.knot_response import knot_responses
+from optimizer.report.page import certification_html, reading, table_html
+from optimizer.report.table import Entry, row, text_table, titles
+from optimizer.sweep.page import findings, results_table
 
 BOX_FEET = ["foot_fl", "foot_fr", "foot_hl", "foot_hr"]
 
@@ -202,3 +205,48 @@ def test_knot_responses_use_pinocchio_jacobians_and_plan_data(demo_plan):
         np.testing.assert_array_equal(resp.tau, demo_plan.tau[k])
         # pyramid rows: every planned force satisfies g . f <= 0 (inscribed 4-facet pyramid)
         assert (np.einsum("cmi,ci->cm", resp.facets, resp.forces) <= 1e-9).all()
+
+
+def _knot_with_bottleneck(k: int, names) -> KnotCertificate:
+    return KnotCertificate(knot=k, time=0.1 * k, rho=10.0, lower=10.0, upper=10.0, direction=np.eye(3)[0],
+                           bottleneck=list(names), planned=5.0, ratio=0.5, facets=6, vertices=8, lps=10,
+                           method="projection")
+
+
+def test_most_frequent_bottleneck_ties_go_to_the_earliest_knot_then_row():
+    # Every limit below is in the bottleneck at both knots: a tie, broken by the limit met
+    # first (knot 0, rows in limit-row order), whatever the order of string hashing.
+    names = [f"joint_{i} torque (upper)" for i in range(12)]
+    cert = PlanCertificate(knots=[_knot_with_bottleneck(0, names), _knot_with_bottleneck(1, names[::-1])],
+                           disturbance={}, settings=Settings())
+    assert cert.summary()["most_frequent_bottleneck"] == names[0]
+    assert cert.summary()["bottleneck_knots"] == 2
+    # a limit at more knots wins over the tie
+    cert.knots.append(_knot_with_bottleneck(2, [names[5]]))
+    assert cert.summary()["most_frequent_bottleneck"] == names[5]
+
+
+def test_tables_and_pages_head_the_figures_by_what_they_hold():
+    # A 6-D projection stopped after 14 LPs holds a bound pair (see above): every table, page
+    # and sweep page must call its figure a lower bound, never "exact"; an exact one, "exact".
+    plan = standing_plan(**demo_standing(), kind="wrench")
+    exact = Entry("exact", plan, certify_plan(plan, check=False))
+    bounded = Entry("bounded", plan, certify_plan(plan, check=False, settings=Settings(max_lps=14, samples=50)))
+    assert exact.figure == "exact" and bounded.figure == "lower bound"
+    for entries, word in (([exact], "exact"), ([bounded], "lower bound"), ([exact, bounded], "exact or lower bound")):
+        rows = [row(e) for e in entries]
+        assert f"{word} min [N]" in titles(rows) and f"{word} mean [N]" in titles(rows)
+        assert f"{word} min [N]" in text_table(rows)[0]
+        head = table_html(entries).split("</thead>")[0]
+        assert f"{word} min [N]" in head
+    lone = [bounded]
+    assert "exact" not in text_table([row(bounded)])[0] and "exact" not in table_html(lone).split("</thead>")[0]
+    assert "lower bound margin" in reading(lone)[0] and "exact" not in reading(lone)[0]
+    assert "(0 exact)" in certification_html(lone) and "checked exactly" not in certification_html(lone)
+    # the sweep page heads its columns by the stored records' figure
+    manifest = {"axes": [], "objectives": ["robust"]}
+    record = {"variant": "v0000", "objective": "robust", "status": "solved", "margin_min_exact_N": 1.0,
+              "margin_mean_exact_N": 2.0, "margin_figure": "lower bound", "low_margin_knots": 0}
+    assert "smallest lower bound [N]" in results_table(manifest, [record])
+    assert "smallest lower bound margin" in findings(manifest, [record])[0]
+    assert "smallest exact [N]" in results_table(manifest, [dict(record, margin_figure="exact")])

@@ -28,19 +28,22 @@ def test_table_summary_and_json(plan_path, tmp_path, capsys):
     assert "smallest exact margin:" in text and "most frequent bottleneck:" in text
     assert "result: certified" in text
     doc = json.loads(out.read_text())
-    assert doc["plan"] == str(plan_path) and doc["format"] == "brace-certificate/1"
-    knots = doc["knots"]
+    assert doc["plan"] == str(plan_path) and doc["format"] == "brace-certificate/2"
+    assert doc["certified"] is True and doc["problems"] == [] and len(doc["points"]) == 1
+    point = doc["points"][0]
+    assert point["disturbance"]["index"] == 0
+    knots = point["knots"]
     assert [k["knot"] for k in knots] == [0, 1, 2, 3]
     smallest = min(knots, key=lambda k: k["rho_exact_N"])
-    assert doc["summary"]["smallest_rho_N"] == smallest["rho_exact_N"]
-    assert doc["summary"]["smallest_at_knot"] == smallest["knot"]
+    assert point["summary"]["smallest_rho_N"] == smallest["rho_exact_N"]
+    assert point["summary"]["smallest_at_knot"] == smallest["knot"]
     for k in knots:
         assert math.isclose(np.linalg.norm(k["weakest_direction"]), 1.0, rel_tol=1e-9)
         assert k["planned_over_exact"] == pytest.approx(k["planned_margin_N"] / k["rho_exact_N"])
         assert k["bottleneck"] and k["facets"] >= 4 and k["status"] == "ok"
     # the most frequent bottleneck is counted over knots from the per-knot lists
-    name = doc["summary"]["most_frequent_bottleneck"]
-    assert doc["summary"]["bottleneck_knots"] == sum(name in k["bottleneck"] for k in knots)
+    name = point["summary"]["most_frequent_bottleneck"]
+    assert point["summary"]["bottleneck_knots"] == sum(name in k["bottleneck"] for k in knots)
 
 
 def test_knot_selection_full_projection_and_replay(plan_path, capsys):
@@ -107,14 +110,19 @@ class _Terminal(io.StringIO):
 
 def test_progress_line_on_a_terminal_and_silent_elsewhere():
     class Cert:
-        rho = 53.6
+        rho, exact = 53.6, True
+
+    class Bounded:
+        rho, exact = 41.2, False
 
     tty, pipe = _Terminal(), io.StringIO()
     for stream in (tty, pipe):
         line = ProgressLine(stream)
-        line(3, 60, Cert())
+        line(1, 3, 60, Cert())
+        line(0, 4, 60, Bounded())
         line.clear()
-    assert "\rcertifying knot 3/60: exact 53.6 N" in tty.getvalue()
+    assert "\rcertifying point 1, knot 3/60: exact 53.6 N" in tty.getvalue()
+    assert "\rcertifying point 0, knot 4/60: lower bound 41.2 N" in tty.getvalue()   # named by what it is
     assert pipe.getvalue() == ""
 
 

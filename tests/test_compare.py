@@ -21,7 +21,6 @@ import json
 import math
 import os
 import shutil
-from html.parser import HTMLParser
 from pathlib import Path
 
 import numpy as np
@@ -33,6 +32,7 @@ import optimizer.cli.compare as compare_cli
 import optimizer.planner as planner
 import test_solve_demo_tasks as demo
 from browser import Browser, find_browser
+from page_refs import PageRefs
 from optimizer.analysis import margin_flags
 from optimizer.analysis.certify import certify_plan
 from optimizer.cli import main
@@ -177,36 +177,10 @@ def test_table_numbers_equal_plan_files_and_certification(task, workspace):
         assert f"{float(r['margin_exact_min_N']):.2f}" in line and r["peak_torque_joint"] in line
 
 
-class References(HTMLParser):
-    """Every ``src`` and ``href`` of a page, and the text of its table cells by key."""
-
-    def __init__(self):
-        super().__init__()
-        self.images, self.links, self.cells, self._key = [], [], [], None
-
-    def handle_starttag(self, tag, attrs):
-        attrs = dict(attrs)
-        if tag == "img":
-            self.images.append(attrs["src"])
-        if tag == "a" and "href" in attrs:
-            self.links.append(attrs["href"])
-        if tag in ("script", "link") and (attrs.get("src") or "").startswith("http"):
-            self.links.append(attrs["src"])
-        self._key = attrs.get("data-key") if tag == "td" else self._key
-
-    def handle_data(self, data):
-        if self._key:
-            self.cells.append((self._key, data.strip()))
-
-    def handle_endtag(self, tag):
-        if tag == "td":
-            self._key = None
-
-
 @pytest.mark.parametrize("task", list(OBJECTIVES))
 def test_page_references_every_file_and_only_local_ones(task, workspace):
     _, out, _, _ = compared(task, workspace)
-    parser = References()
+    parser = PageRefs()
     parser.feed((out / PAGE).read_text(encoding="utf-8"))
     for ref in parser.images + parser.links:
         assert "://" not in ref and not ref.startswith("//"), f"non-local reference {ref}"
@@ -265,7 +239,7 @@ def test_report_from_plan_files_of_two_tasks(workspace, tmp_path):
     assert code in (0, 1), stderr
     page = (tmp_path / "both" / PAGE).read_text(encoding="utf-8")
     assert page.index("steep_ramp") < page.index("crawl_space")   # one section after the other
-    parser = References()
+    parser = PageRefs()
     parser.feed(page)
     for ref in parser.images + parser.links:
         assert (tmp_path / "both" / ref).is_file(), ref

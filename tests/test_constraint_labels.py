@@ -20,6 +20,7 @@ import pinocchio as pin
 import pytest
 import yaml
 
+from flat_ground import FEET, flat_stance
 from optimizer.analysis.failure import diagnose
 from optimizer.planner import Planner
 from optimizer.problem.task import load_task
@@ -27,7 +28,6 @@ from optimizer.transcription.nlp import velocity_names
 
 ROOT = Path(__file__).resolve().parents[1]
 LEGS = ("fl", "fr", "rl", "rr")
-FEET = {"foot_fl": (0.25, 0.18), "foot_fr": (0.25, -0.18), "foot_rl": (-0.25, 0.18), "foot_rr": (-0.25, -0.18)}
 
 
 def legs_only_urdf() -> str:
@@ -55,8 +55,7 @@ def twelve_joint_task(tmp_path_factory):
     robot = {"urdf": "quad12.urdf", "contacts": list(FEET), "hand": "push_point", "standing": standing}
     (folder / "quad12.yaml").write_text(yaml.safe_dump(robot), encoding="utf-8")
     task = {"robot": "quad12.yaml", "horizon": {"duration": 1.0, "knots": 3},
-            "stance": {"contacts": {f: {"position": [x, y, 0.0], "normal": [0, 0, 1], "friction": 0.8}
-                                    for f, (x, y) in FEET.items()}},
+            "stance": flat_stance(),
             "objective": "robust"}
     (folder / "task.yaml").write_text(yaml.safe_dump(task), encoding="utf-8")
     return load_task(folder / "task.yaml")

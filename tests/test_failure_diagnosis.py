@@ -21,6 +21,7 @@ import pinocchio as pin
 import pytest
 import yaml
 
+from flat_ground import FEET, flat_stance
 from optimizer.analysis.failure import constraint_values, diagnose, knot_ranges
 from optimizer.cli import main
 from optimizer.errors import PlanFileError
@@ -30,12 +31,10 @@ from optimizer.problem.task import load_task
 from optimizer.transcription.parameters import parameter_values
 
 ROOT = Path(__file__).resolve().parents[1]
-FEET = {"foot_fl": (0.25, 0.18), "foot_fr": (0.25, -0.18), "foot_rl": (-0.25, 0.18), "foot_rr": (-0.25, -0.18)}
 TASK = {
     "robot": str(ROOT / "models" / "stilt.yaml"),
     "horizon": {"duration": 2.0, "knots": 6},
-    "stance": {"contacts": {f: {"position": [x, y, 0.0], "normal": [0, 0, 1], "friction": 0.8}
-                            for f, (x, y) in FEET.items()}},
+    "stance": flat_stance(),
     "hand_targets": [{"position": [0.85, 0.3, 0.25], "time": 0.8, "label": "pick"}],
     "objective": "feasible",
     "solver": {"max_iter": 2},

@@ -26,18 +26,17 @@ import yaml
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
+from flat_ground import flat_stance
 from optimizer.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
 ROBOT = str(ROOT / "models" / "stilt.yaml")
-FEET = {"foot_fl": (0.25, 0.18), "foot_fr": (0.25, -0.18), "foot_rl": (-0.25, 0.18), "foot_rr": (-0.25, -0.18)}
 TARGETS = [{"label": "pick", "position": [0.6, 0.05, 0.4], "window": [0.8, 1.0]},
            {"label": "place", "position": [0.3, -0.3, 0.3], "time": 1.6}]
 BASES = {
     "flat": {
         "name": "fuzz_flat", "robot": ROBOT, "horizon": {"duration": 2.0, "knots": 8},
-        "stance": {"contacts": {f: {"position": [x, y, 0.0], "normal": [0.0, 0.0, 1.0], "friction": 0.8}
-                                for f, (x, y) in FEET.items()}},
+        "stance": flat_stance(),
         "hand_targets": TARGETS, "disturbances": [{"frame": "grip_point", "kind": "force"}],
         "objective": "robust", "pyramid_facets": 4, "min_normal_force": 5.0, "solver": {"max_iter": 5},
     },

@@ -22,13 +22,13 @@ from pathlib import Path
 import pytest
 import yaml
 
+from flat_ground import flat_stance
+
 ROOT = Path(__file__).resolve().parents[1]
-FEET = {"foot_fl": (0.25, 0.18), "foot_fr": (0.25, -0.18), "foot_rl": (-0.25, 0.18), "foot_rr": (-0.25, -0.18)}
 TASK = {
     "robot": str(ROOT / "models" / "stilt.yaml"),
     "horizon": {"duration": 2.0, "knots": 5},
-    "stance": {"contacts": {f: {"position": [x, y, 0.0], "normal": [0, 0, 1], "friction": 0.8}
-                            for f, (x, y) in FEET.items()}},
+    "stance": flat_stance(),
     "hand_targets": [{"position": [0.7, 0.1, 0.35], "window": [0.8, 1.0], "label": "pick"}],
     "objective": "robust",
 }
@@ -127,7 +127,9 @@ def test_certify_stops_and_writes_no_report(tmp_path):
     from optimizer.planfile import save_plan
 
     plan = tmp_path / "stand.npz"
-    save_plan(standing_plan(**demo_standing(sweep=0.6, knots=300)), plan)
+    # the margins do not matter here (the command is stopped before its first knot): zeros spare
+    # 300 least-squares margins, each building the robot model again
+    save_plan(standing_plan(**demo_standing(sweep=0.6, knots=300), margin=[0.0] * 300), plan)
     report = tmp_path / "report.json"
     process, scratch, marker = start(["certify", str(plan), "--full", "--json", str(report)], tmp_path)
     sent = send_when(process, "certify ", signal.SIGTERM)  # the head line comes right before the knots

@@ -17,7 +17,7 @@ import yaml
 from optimizer.footprint import estimate_memory, stage_size
 from optimizer.memory import available_memory, parse_size
 from optimizer.planner import shared_planner
-from optimizer.problem.task import load_task
+from optimizer.problem.task import load_task, task_from_mapping
 from optimizer.transcription.nlp import Transcription
 from optimizer.transcription.objectives import objective_named
 from optimizer.transcription.structure import structure_of
@@ -54,6 +54,23 @@ def test_nodes_grow_linearly_with_knots():
     nodes = ca.Function("nlp", [nlp["x"], nlp["p"]], [nlp["f"], nlp["g"]]).expand().n_nodes()
     predicted = size.nodes_fixed + 16 * size.nodes_per_knot
     assert abs(predicted - nodes) <= 0.02 * nodes, (predicted, nodes)
+
+
+def test_sizes_measured_once_serve_tasks_that_differ_in_numbers_only():
+    """A ramp with another slope, friction and hand targets reads the same transcription with other
+    parameters: its sizes come from the first ramp's measurement, and they still predict CasADi's own
+    node count of its 16-knot NLP (within 2 %, as above)."""
+    data = yaml.safe_load(RAMP.read_text())
+    data["stance"]["terrain"].update(slope_deg=18.0, friction=0.6)
+    data["hand_targets"][0]["position"] = [0.8, 0.1, 0.45]
+    other = task_from_mapping(data, RAMP)
+    first = stage_size(load_task(RAMP), "robust")
+    assert stage_size(other, "robust") is first       # measured once: the very same record
+    big = other.with_knots(16)
+    nlp = Transcription(big.robot, shared_planner().symbolic_robot(big.robot), structure_of(big),
+                        objective_named("robust")).nlp
+    nodes = ca.Function("nlp", [nlp["x"], nlp["p"]], [nlp["f"], nlp["g"]]).expand().n_nodes()
+    assert abs(first.nodes_fixed + 16 * first.nodes_per_knot - nodes) <= 0.02 * nodes
 
 
 def test_robust_needs_more_than_feasible_and_knots_cost_memory():
@@ -102,3 +119,22 @@ def test_task_memory_limit_is_read_and_checked(tmp_path, capsys):
     argv = ["solve", str(small), "--check-only", "--skip-checks", "--knots", "100", "--memory-limit", "64G"]
     assert main(argv) == 0                    # the command line overrides the task
     assert "64.0 GB set as the memory limit" in capsys.readouterr().out
+
+
+def test_memory_the_process_holds_is_not_counted_twice_against_what_is_available(monkeypatch):
+    """/proc/meminfo's MemAvailable (and a cgroup's room) leave out what this process holds already
+    (Linux kernel documentation, proc(5)); the estimate counts it, so without a --memory-limit the
+    solve is refused only when what it adds exceeds what is available."""
+    import optimizer.cli.solve as solve_cli
+    from optimizer.errors import TooLargeForMemory
+    from optimizer.memory import Available
+
+    task = load_task(RAMP).with_knots(6)
+    estimate = estimate_memory(task, "feasible")
+    adds = estimate.total - estimate.baseline
+    assert estimate.baseline > 64 * 2**20 and adds > 0     # a Python process with NumPy, CasADi, Pinocchio
+    monkeypatch.setattr(solve_cli, "available_memory", lambda: Available(adds + 32 * 2**20, "available here"))
+    solve_cli.check_memory(task, "feasible", None)         # fits, although total > available
+    monkeypatch.setattr(solve_cli, "available_memory", lambda: Available(adds - 32 * 2**20, "available here"))
+    with pytest.raises(TooLargeForMemory, match="available here"):
+        solve_cli.check_memory(task, "feasible", None)

@@ -76,8 +76,8 @@ def test_unit_scales_give_plain_certification_exactly(tmp_path, capsys):
                  "--json", str(tmp_path / "same.json")]) == 0
     text = capsys.readouterr().out
     assert "changed model: friction x1, torque limits x1" in text
-    plain = json.loads((tmp_path / "plain.json").read_text())["knots"]
-    same = json.loads((tmp_path / "same.json").read_text())["knots"]
+    plain = json.loads((tmp_path / "plain.json").read_text())["points"][0]["knots"]
+    same = json.loads((tmp_path / "same.json").read_text())["points"][0]["knots"]
     for a, b in zip(plain, same):
         assert b["rho_exact_N"] == a["rho_exact_N"]
         assert b["changed_model"]["rho_N"] == a["rho_exact_N"] and b["changed_model"]["feasible"]
@@ -97,7 +97,7 @@ def test_too_little_friction_makes_knots_infeasible_and_exits_1(tmp_path, capsys
                  "--friction-scale", f"{0.9 * floor:.6f}", "--json", str(tmp_path / "c.json")]) == 1
     text = capsys.readouterr().out
     assert "NOT feasible at all" in text and "not feasible at all at knots 0" in text
-    doc = json.loads((tmp_path / "c.json").read_text())
+    doc = json.loads((tmp_path / "c.json").read_text())["points"][0]
     assert doc["summary"]["changed_infeasible_knots"] == [0]
     assert doc["knots"][0]["changed_model"]["feasible"] is False
     assert doc["summary"]["friction_floor_scale"] == pytest.approx(floor, rel=1e-3)

@@ -129,7 +129,8 @@ def test_cli_reports_failed_checks_in_table_and_json_and_exits_1(standing, tmp_p
     assert "result: NOT certified" in text and "dynamics check failed at knot" in text
     assert any(line.split()[:1] == ["dynamics"] and "FAILED" in line for line in text.splitlines())
     doc = json.loads(out.read_text())
-    assert doc["plan_checks"]["passed"] is False and doc["summary"]["certified"] is False
+    assert doc["plan_checks"]["passed"] is False and doc["certified"] is False
+    assert doc["points"][0]["summary"]["certified"] is False
     dyn = [c for c in doc["plan_checks"]["checks"] if c["name"] == "dynamics"][0]
     assert dyn["passed"] is False and dyn["knot"] in (0, 1, 2, 3)
     # --no-check certifies the margins but warns that the physics was not checked

@@ -15,11 +15,11 @@ import numpy as np
 import pytest
 import yaml
 
+from flat_ground import flat_stance
 from optimizer.planner import Planner
 from optimizer.problem.task import load_task
 
 ROOT = Path(__file__).resolve().parents[1]
-FEET = {"foot_fl": (0.25, 0.18), "foot_fr": (0.25, -0.18), "foot_rl": (-0.25, 0.18), "foot_rr": (-0.25, -0.18)}
 
 
 def write_task(folder: Path, robot_overrides: dict, name: str) -> Path:
@@ -29,8 +29,7 @@ def write_task(folder: Path, robot_overrides: dict, name: str) -> Path:
     robot["limits"] = robot_overrides
     (folder / f"{name}.yaml").write_text(yaml.safe_dump(robot), encoding="utf-8")
     task = {"robot": f"{name}.yaml", "horizon": {"duration": 1.0, "knots": 3},
-            "stance": {"contacts": {f: {"position": [x, y, 0.0], "normal": [0, 0, 1], "friction": 0.8}
-                                    for f, (x, y) in FEET.items()}},
+            "stance": flat_stance(),
             "objective": "feasible"}
     path = folder / f"task_{name}.yaml"
     path.write_text(yaml.safe_dump(task), encoding="utf-8")
@@ -99,3 +98,16 @@ def test_planners_in_threads_keep_their_own_builds(two_robot_files):
         first, second = pool.map(knee_velocity_bound, [plain, changed])
     assert second == pytest.approx(4.0, rel=1e-12)
     assert first == pytest.approx(plain.robot.velocity_limit[j], rel=1e-12)
+
+
+def test_each_solve_log_holds_that_solve_only(two_robot_files, tmp_path):
+    # A planner reuses its built solvers; Ipopt's own log ends every solve with one "EXIT:"
+    # line, so each solve's log must hold one stage header and one EXIT line.
+    plain, _ = two_robot_files
+    logs = [tmp_path / f"solve-{i}.log" for i in range(3)]
+    with Planner(knots=3) as planner:
+        for log in logs:
+            assert planner.seed(plain, log_path=log).success
+    for log in logs:
+        text = log.read_text(encoding="utf-8")
+        assert text.count("===== brace stage: feasible") == 1 and text.count("EXIT:") == 1, log.name

@@ -5,7 +5,9 @@ import numpy as np
 import pytest
 from scipy.optimize import linprog
 
+from certify_checks import demo_standing, sampled_bounds, standing_plan
 from optimizer.analysis.certify import Settings, certify_response
+from optimizer.analysis.knot_response import knot_responses
 from optimizer.analysis.polytope import EmptyResidualSet, SupportLP, nearest_point, project
 from optimizer.analysis.response import KnotResponse
 
@@ -158,3 +160,48 @@ def test_nearest_point_on_points_a_million_units_away():
     pts = rng.uniform(-1e6, 1e6, size=(12, 3)) + np.array([3e6, 0.0, 0.0])
     x = nearest_point(pts)
     assert (pts @ x >= x @ x * (1 - 1e-6)).all()
+
+
+def test_figure_does_not_depend_on_the_order_of_the_limit_rows():
+    # The residual set does not depend on how its rows are listed, so neither may its figure.
+    # A 6-D wrench at the demo robot's hand, standing with the arm swept (Pinocchio statics);
+    # in some row orders the support LPs return other optimal vertices and Qhull's default
+    # merging fails on them. Reference: SciPy linprog (HiGHS) on the lifted LP written from
+    # the plan file alone (tests/certify_checks.py): its smallest sampled support value is an
+    # upper bound of the figure, its hull's inscribed radius a lower bound.
+    plan = standing_plan(**demo_standing(sweep=0.6, knots=3), kind="wrench")
+    (_, resp), = knot_responses(plan, [2])
+    rows = resp.limit_rows()
+    reference = project(SupportLP(rows.a_ub, rows.b_ub, rows.a_eq, rows.dim, 1e6), 1e-7)
+    lower, upper = sampled_bounds(plan, 2, 200)
+    assert reference.complete and lower - 1e-6 <= reference.rho <= upper + 1e-6
+    rng = np.random.default_rng(0)
+    for _ in range(16):
+        order = rng.permutation(rows.a_ub.shape[0])
+        proj = project(SupportLP(rows.a_ub[order], rows.b_ub[order], rows.a_eq, rows.dim, 1e6), 1e-7)
+        assert proj.complete and proj.rho == pytest.approx(reference.rho, rel=1e-6)
+
+
+def test_planned_margin_near_zero_is_judged_with_an_absolute_and_a_relative_tolerance():
+    # Fixed 3-joint arm with torque limits only and a full-rank tip Jacobian: dtau = -J^T F is
+    # forced, so the residual set is a parallelepiped and rho = min_i room_i / |[J^T]_i|
+    # (manipulator force polytope, see above). One joint is 1e-3 N m from its limit, so the
+    # exact margin is about 1e-3 N. A planned margin 0.5 uN above it is rounding (MARGIN_ATOL =
+    # 1e-6 N plus 1e-6 relative); 10 uN above it (1 % of the margin) is a margin the plan lacks.
+    jac = np.array([[0.9, 0.2, -0.1], [0.1, 0.8, 0.3], [-0.2, 0.1, 0.7]])
+    lower, upper = np.full(3, -10.0), np.full(3, 10.0)
+
+    def status(tau, planned):
+        expected = np.min(np.minimum(upper - tau, tau - lower) / np.linalg.norm(jac.T, axis=1))
+        cert, _ = certify_response(fixed_arm(jac, tau, lower, upper), planned=expected + planned(expected))
+        assert cert.exact and cert.rho == pytest.approx(expected, rel=1e-6)
+        return cert.status
+
+    near_zero = np.array([10.0 - 1e-3, 2.0, -1.0])
+    assert status(near_zero, lambda rho: 0.0) == "ok"
+    assert status(near_zero, lambda rho: 5e-7) == "ok"
+    assert status(near_zero, lambda rho: 1e-5) == "margin above exact"
+    # far from zero the relative part rules: 1e-5 relative above a figure of several N fails
+    far = np.array([5.0, 2.0, -1.0])
+    assert status(far, lambda rho: 5e-7 * rho) == "ok"
+    assert status(far, lambda rho: 1e-5 * rho) == "margin above exact"

@@ -19,6 +19,7 @@ import pinocchio as pin
 import pytest
 import yaml
 
+from flat_ground import FEET, flat_stance
 from optimizer.analysis.presolve import frames_chain_length, require_possible, run_checks, standing_findings
 from optimizer.cli import main
 from optimizer.errors import InfeasibleTask
@@ -27,11 +28,10 @@ from optimizer.problem.task import load_task
 ROOT = Path(__file__).resolve().parents[1]
 ROBOT = ROOT / "models" / "stilt.yaml"
 URDF = (ROOT / "models" / "stilt.urdf").read_text(encoding="utf-8")
-FEET = {"foot_fl": (0.25, 0.18), "foot_fr": (0.25, -0.18), "foot_rl": (-0.25, 0.18), "foot_rr": (-0.25, -0.18)}
 
 
 def flat_task(**extra) -> dict:
-    contacts = {f: {"position": [x, y, 0.0], "normal": [0, 0, 1], "friction": 0.8} for f, (x, y) in FEET.items()}
+    contacts = flat_stance()["contacts"]
     task = {"robot": str(ROBOT), "horizon": {"duration": 2.0, "knots": 8}, "stance": {"contacts": contacts},
             "hand_targets": [{"position": [0.6, 0.0, 0.4], "window": [0.8, 1.2], "label": "pick"}]}
     task.update(extra)

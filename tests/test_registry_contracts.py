@@ -235,3 +235,14 @@ def test_every_command_runs_as_a_module(tmp_path):
     run = subprocess.run([sys.executable, "-m", "optimizer", "--help"], capture_output=True, text=True,
                          cwd=ROOT, env={"PYTHONPATH": str(ROOT), "PATH": ""}, timeout=120)
     assert run.returncode == 0 and all(name in run.stdout for name in COMMANDS)
+
+
+def test_limit_row_names_are_listed_once_for_a_knot_layout():
+    # One layout (joints, contacts, facets), one list of names: read again, or from another
+    # knot with the same layout, it is the same object, and the scales follow it row by row.
+    limits, values, _ = limit_case(3)
+    again = KnotLimits(tuple(limits.joints), tuple(limits.contacts), limits.facets)
+    assert limits.names is limits.names and again.names is limits.names
+    assert len(np.asarray(limits.scales(values, NUMPY_OPS))) == limits.size == len(limits.names)
+    other = KnotLimits(limits.joints, limits.contacts[:1], limits.facets)
+    assert other.size == limits.size - limits.facets - 1   # one contact fewer: its facets and its normal row

@@ -14,7 +14,6 @@ import signal
 import subprocess
 import sys
 import time
-from html.parser import HTMLParser
 from pathlib import Path
 
 import numpy as np
@@ -23,6 +22,7 @@ import psutil
 import pytest
 import yaml
 
+from page_refs import PageRefs
 from optimizer.cli import main
 from optimizer.planfile import load_plan
 from optimizer.sweep import store
@@ -145,23 +145,6 @@ def test_report_rebuilds_summary_and_figures_from_the_folder(pool_run, tmp_path)
     assert refs.images and all((copy / src).is_file() for src in refs.images + refs.links)
     assert not [r for r in refs.images + refs.links if "://" in r]
     assert refs.rows == 1 + len(summary_rows(copy)) and "Safety" in page
-
-
-class PageRefs(HTMLParser):
-    """Image sources, link targets and table rows of a page."""
-
-    def __init__(self):
-        super().__init__()
-        self.images, self.links, self.rows = [], [], 0
-
-    def handle_starttag(self, tag, attrs):
-        attrs = dict(attrs)
-        if tag == "img":
-            self.images.append(attrs["src"])
-        elif tag == "a" and "href" in attrs:
-            self.links.append(attrs["href"])
-        elif tag == "tr":
-            self.rows += 1
 
 
 # ---------------------------------------------------------------- resume after a crash

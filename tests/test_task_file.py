@@ -51,8 +51,8 @@ def variant(**changes):
 
 
 def test_the_demo_tasks():
-    assert [p.stem for p in DEMOS] == ["crawl_space", "drawer_pull", "landing_pick", "stair_landing", "steep_ramp",
-                                       "trench", "wall_brace"]
+    assert [p.stem for p in DEMOS] == ["crawl_space", "drawer_bump", "drawer_pull", "landing_pick", "stair_landing",
+                                       "steep_ramp", "trench", "wall_brace"]
 
 
 @pytest.mark.parametrize("path", DEMOS, ids=lambda p: p.stem)
@@ -60,8 +60,13 @@ def test_demo_task_loads(path):
     task = load_task(path)
     assert task.knots == 60 and 2.0 <= task.duration <= 4.0
     assert [c.frame for c in task.contacts] == ["foot_fl", "foot_fr", "foot_rl", "foot_rr"]
-    assert [(d.frame, d.kind) for d in task.disturbances] == [("grip_point", "force")]
-    if path.stem == "drawer_pull":   # pushes expected along the pull axis, a fifth across it
+    if path.stem == "drawer_bump":   # the grip as in drawer_pull, and the body bumped sideways
+        assert [(d.frame, d.kind) for d in task.disturbances] == [("grip_point", "force"), ("body", "force")]
+        assert task.combine_points == "smallest"
+        np.testing.assert_allclose(task.disturbances[1].shape, np.diag([0.3, 1.0, 0.3]), atol=1e-12)
+    else:
+        assert [(d.frame, d.kind) for d in task.disturbances] == [("grip_point", "force")]
+    if path.stem.startswith("drawer_"):   # pushes expected along the pull axis, a fifth across it
         np.testing.assert_allclose(task.disturbances[0].shape, np.diag([1.0, 0.2, 0.2]), atol=1e-12)
         assert [h.label for h in task.hand_targets] == ["grip", "pulled"]
     else:
@@ -94,6 +99,16 @@ def test_defaults(tmp_path):
     assert task.robot_path == ROBOT
     target = task.hand_targets[0]
     assert (target.frame, target.t_start, target.t_end, target.orientation) == ("grip_point", 0.5, 0.8, None)
+
+
+def test_torque_reserve_scales_every_torque_limit_the_plan_meets(tmp_path):
+    # Reference: the limits of the robot file loaded on its own (its URDF efforts and overrides).
+    plain = load_task(write(tmp_path, BASE_TASK))
+    assert plain.torque_reserve == 0.0
+    reserved = load_task(write(tmp_path, variant(torque_reserve=0.05)))
+    assert reserved.torque_reserve == 0.05
+    np.testing.assert_allclose(reserved.robot.torque_upper, 0.95 * plain.robot.torque_upper, rtol=1e-12)
+    np.testing.assert_allclose(reserved.robot.torque_lower, 0.95 * plain.robot.torque_lower, rtol=1e-12)
 
 
 def test_relative_robot_path_resolves_against_the_task_folder(tmp_path):
@@ -132,9 +147,14 @@ def test_orientation_as_rpy_is_a_rotation(tmp_path):
     ({"disturbances": [{"kind": "wrench", "shape": [[1, 0, 0], [0, 1, 0], [0, 0, 1]]}]},
      r"disturbances\[0\].shape.*a 6x6 matrix"),
     ({"disturbances": [{"kind": "torque"}]}, r"disturbances\[0\].kind.*one of force, wrench"),
+    ({"disturbances": [{"objective_weight": -1}]}, r"disturbances\[0\].objective_weight.*a number >= 0"),
+    ({"disturbances": [{"objective_weight": 0}, {"frame": "body", "objective_weight": 0}]},
+     r"field 'disturbances'.*at least one point with objective_weight > 0"),
+    ({"combine_points": "largest"}, r"combine_points.*one of smallest, weighted-sum"),
     ({"objective": "robustest"}, r"objective.*one of feasible, robust, robust-min, robust-sum, torque"),
     ({"pyramid_facets": 2}, r"pyramid_facets.*a whole number >= 3"),
     ({"min_normal_force": -1.0}, r"min_normal_force.*a number >= 0"),
+    ({"torque_reserve": 0.7}, r"torque_reserve.*a number <= 0.5"),
     ({"hand_targets__0__orientation": [[1, 0, 0], [0, 1, 0], [0, 0, -1]]}, r"orientation.*a rotation matrix"),
     ({"robot": "missing.yaml"}, r"field 'robot'.*an existing robot file"),
     ({"solver": {"max_iter": [1, 2]}}, r"solver.max_iter.*a number, text or true/false"),

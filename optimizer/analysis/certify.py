@@ -25,7 +25,29 @@ from .response import KnotResponse
 DEFAULT_TOL = 1e-7
 DEFAULT_CAP = 1e6
 DEFAULT_MAX_LPS = 400
-MARGIN_RTOL = 1e-6
+MARGIN_RTOL = 1e-6   # a planned margin may exceed the figure by MARGIN_ATOL + MARGIN_RTOL |figure|
+MARGIN_ATOL = 1e-6   # [N]: the support LPs' and hulls' rounding, which a relative term alone misses near 0 N
+
+
+def figure_name(exact: int, total: int) -> str:
+    """What ``total`` knots' certified figures are when ``exact`` of them are exact.
+
+    ``"exact"``, ``"lower bound"`` (the proven lower bound of a bound pair) or
+    ``"exact or lower bound"``: the word every table and page heads these
+    figures with.
+    """
+    return "exact" if exact == total else ("lower bound" if exact == 0 else "exact or lower bound")
+
+
+def common_figure(names) -> str:
+    """One heading for figures of several plans (names from :func:`figure_name`; empty: ``"exact"``)."""
+    kinds = set(names)
+    return kinds.pop() if len(kinds) == 1 else ("exact" if not kinds else "exact or lower bound")
+
+
+def margin_within(planned: float, figure: float) -> bool:
+    """``planned`` does not exceed ``figure`` [N] by more than the stated tolerance."""
+    return planned <= figure + MARGIN_ATOL + MARGIN_RTOL * abs(figure)
 
 
 @dataclass
@@ -163,10 +185,10 @@ class KnotCertificate:
 
     @property
     def margin_ok(self) -> bool:
-        """The planned margin is proven not to exceed the figure (relative tolerance 1e-6)."""
+        """The planned margin is proven not to exceed the figure (within :func:`margin_within`)."""
         if not math.isfinite(self.planned):
             return True
-        return self.planned <= self.rho + MARGIN_RTOL * max(abs(self.rho), 1e-9)
+        return margin_within(self.planned, self.rho)
 
     @property
     def status(self) -> str:
@@ -177,7 +199,7 @@ class KnotCertificate:
         if not self.margin_ok:
             if self.exact:
                 return "margin above exact"
-            above = self.planned > self.upper + MARGIN_RTOL * max(abs(self.upper), 1e-9)
+            above = not margin_within(self.planned, self.upper)
             return "margin above upper bound" if above else "margin not proven (between the bounds)"
         return "ok"
 
@@ -356,14 +378,28 @@ class PlanCertificate:
     def smallest(self) -> KnotCertificate:
         return min(self.knots, key=lambda c: c.rho)
 
+    @property
+    def figure(self) -> str:
+        """What the knots' ``rho`` are: see :func:`figure_name`."""
+        return figure_name(sum(c.exact for c in self.knots), len(self.knots))
+
     def bottleneck_counts(self) -> collections.Counter:
-        """How many knots each limit is part of the bottleneck at."""
-        return collections.Counter(name for c in self.knots for name in set(c.bottleneck))
+        """How many knots each limit is part of the bottleneck at.
+
+        Limits are counted in the order they are first met (knot by knot,
+        each knot's bottleneck in limit-row order), so ``most_common`` breaks
+        ties the same way on every run: the earlier knot, then the earlier row.
+        """
+        return collections.Counter(name for c in self.knots for name in dict.fromkeys(c.bottleneck))
 
     def problems(self) -> list:
         """Plain-language list of what failed (empty when the plan is certified)."""
         out = [] if self.checks is None else [r.reason() for r in self.checks.failures()]
-        out += [f"knot {c.knot}: {c.status}" for c in self.knots if c.status != "ok"]
+        return out + self.point_problems()
+
+    def point_problems(self) -> list:
+        """What failed at this disturbance point (the plan's physics checks apart)."""
+        out = [f"knot {c.knot}: {c.status}" for c in self.knots if c.status != "ok"]
         bad = self.infeasible_under_change()
         if bad:
             out.append(f"changed model ({self.change_text}): the plan is not feasible at all at knots "
@@ -386,7 +422,7 @@ class PlanCertificate:
             "bottleneck_knots": times, "planned_over_exact_min": _num(min(ratios)) if ratios else None,
             "planned_over_exact_max": _num(max(ratios)) if ratios else None,
             "margin_above_exact_knots": sum(not c.margin_ok for c in self.knots),
-            "exact_knots": sum(c.exact for c in self.knots),
+            "exact_knots": sum(c.exact for c in self.knots), "figure": self.figure,
             "smallest_rho_upper_N": _num(low.upper), "smallest_is_exact": low.exact,
             "physics_checked": self.checks is not None,
             **self._changed_summary(),
@@ -416,6 +452,67 @@ class PlanCertificate:
             "summary": self.summary(), "knots": [c.to_json() for c in self.knots],
             "replay": None if self.replay is None else _replay_json(self.replay),
         }
+
+    def point_json(self) -> dict:
+        """This point's part of a :class:`PointsCertificate`'s JSON: disturbance, summary, knots, replay."""
+        return {"disturbance": self.disturbance, "summary": self.summary(),
+                "knots": [c.to_json() for c in self.knots],
+                "replay": None if self.replay is None else _replay_json(self.replay)}
+
+
+@dataclass
+class PointsCertificate:
+    """Certificates of several disturbance points of one plan, with one run of the physics checks.
+
+    ``points`` holds one :class:`PlanCertificate` per certified point, in
+    the order asked; each carries the shared ``checks``.
+    """
+
+    points: list
+    checks: CheckReport | None = None
+
+    def problems(self) -> list:
+        """What failed, checks once, then each point's (named when there are several)."""
+        out = [] if self.checks is None else [r.reason() for r in self.checks.failures()]
+        for cert in self.points:
+            d = cert.disturbance
+            prefix = f"point {d['index']} ({d['frame']}): " if len(self.points) > 1 else ""
+            out += [prefix + problem for problem in cert.point_problems()]
+        return out
+
+    def to_json(self) -> dict:
+        """``brace-certificate/2``: shared settings, checks and verdict, then one entry per point."""
+        first = self.points[0]
+        s = first.settings
+        return {
+            "format": "brace-certificate/2",
+            "settings": {"tol": s.tol, "cap_N": s.cap, "full": s.full, "samples": s.samples, "max_lps": s.max_lps},
+            "plan_checks": {"run": False} if self.checks is None else self.checks.to_json(),
+            "model_change": None if first.change is None else {**first.change.to_json(), "text": first.change_text},
+            "certified": not self.problems(), "problems": self.problems(),
+            "points": [cert.point_json() for cert in self.points],
+        }
+
+
+def certify_points(plan, knots=None, points=None, settings: Settings | None = None, replay: int = 0,
+                   seed: int = 0, progress=None, check: bool = True, tolerances: dict | None = None,
+                   change: ModelChange | None = None, friction_floor: bool = True) -> PointsCertificate:
+    """Check the plan's physics once, then certify every disturbance point in ``points`` (all by default).
+
+    Each point is certified as :func:`certify_plan` does (exact figures, or
+    bound pairs where the projection stops); the other parameters are its.
+    ``progress`` is called as ``progress(point, done, total, certificate)``.
+    """
+    checks = check_plan(plan, tolerances) if check else None
+    chosen = range(len(plan.meta["disturbances"])) if points is None else list(points)
+    certs = []
+    for p in chosen:
+        relay = None if progress is None else (lambda done, total, cert, p=p: progress(p, done, total, cert))
+        cert = certify_plan(plan, knots, p, settings, replay, seed, relay, check=False, change=change,
+                            friction_floor=friction_floor)
+        cert.checks = checks
+        certs.append(cert)
+    return PointsCertificate(certs, checks)
 
 
 def planned_margin(plan, k: int, disturbance: int) -> float:

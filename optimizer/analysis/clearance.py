@@ -12,6 +12,13 @@ bound), apart from the code that builds the NLP's rows. The plan check
 
 A plan without ``meta.clearance`` (written before collision shapes existed)
 has nothing to check: :func:`plan_clearance` returns None.
+
+``meta.clearance.self_pairs`` (optional) names pairs of shapes of the robot
+that keep a distance from each other; :func:`plan_self_clearance` measures
+every pair at every knot: the distance of the two swollen hulls from the
+separating direction of their shortest vector
+(:mod:`optimizer.robot.separation`, a lower bound that is exact up to
+round-off), not from the NLP's separating-plane variables.
 """
 from __future__ import annotations
 
@@ -20,6 +27,7 @@ from dataclasses import dataclass
 import numpy as np
 import pinocchio as pin
 
+from ..robot.separation import shape_distance
 
 TOLERANCE = 1e-9   # m: rounding allowed below the required clearance before a knot fails
 
@@ -111,6 +119,78 @@ def plan_clearance(plan) -> PlanClearance | None:
     return PlanClearance(float(section["distance"]), knots)
 
 
+@dataclass
+class KnotSelfClearance:
+    """The self pair with the least room at one knot: its distance and the one required (m), its shapes."""
+
+    knot: int
+    distance: float
+    required: float
+    pair: str
+
+    @property
+    def room(self) -> float:
+        return self.distance - self.required
+
+
+@dataclass
+class PlanSelfClearance:
+    """Per knot the self pair with the least room."""
+
+    knots: list
+
+    @property
+    def smallest(self) -> KnotSelfClearance:
+        return min(self.knots, key=lambda k: k.room)
+
+    @property
+    def short(self) -> list:
+        """Knots where some pair is closer than its distance."""
+        return [k for k in self.knots if k.room < -TOLERANCE]
+
+    @property
+    def passed(self) -> bool:
+        return not self.short
+
+    def lines(self) -> list[str]:
+        """Plain-text report: the pair with the least room and every knot that falls short."""
+        low = self.smallest
+        head = (f"self clearance: least room {low.room * 100:.1f} cm ({low.pair} {low.distance * 100:.1f} cm apart "
+                f"at knot {low.knot}, {low.required * 100:.1f} cm required)")
+        out = [head + (" - ok" if self.passed else " - FAILED")]
+        for k in self.short:
+            what = "overlap" if k.distance < 0 else "closer than required"
+            out.append(f"  knot {k.knot}: {k.pair} {what} ({k.distance * 100:.1f} cm)")
+        return out
+
+
+def _world(model, data, shape: dict) -> np.ndarray:
+    """World positions (n, 3) of a plan-file shape's points; needs ``framesForwardKinematics`` done, m."""
+    placement = data.oMf[model.getFrameId(shape["link"], pin.FrameType.BODY)]
+    return np.asarray(shape["points"], float) @ np.array(placement.rotation).T + np.array(placement.translation)
+
+
+def plan_self_clearance(plan) -> PlanSelfClearance | None:
+    """The self pair with the least room at every knot of ``plan`` (None when the plan names no self pair)."""
+    section = plan.meta.get("clearance") or {}
+    pairs = section.get("self_pairs") or []
+    if not pairs:
+        return None
+    model = pin.buildModelFromXML(plan.meta["urdf"], pin.JointModelFreeFlyer())
+    data = model.createData()
+    shapes = {s["name"]: s for s in section["shapes"]}
+    knots = []
+    for k, q in enumerate(plan.q):
+        pin.framesForwardKinematics(model, data, q)
+        found = []
+        for pair in pairs:
+            a, b = shapes[pair["first"]], shapes[pair["second"]]
+            distance = shape_distance(_world(model, data, a), a["radius"], _world(model, data, b), b["radius"])
+            found.append(KnotSelfClearance(k, distance, float(pair["distance"]), f"{a['name']} vs {b['name']}"))
+        knots.append(min(found, key=lambda x: x.room))
+    return PlanSelfClearance(knots)
+
+
 def clearance_meta(spec) -> dict:
     """The ``meta.clearance`` mapping of a task's :class:`~optimizer.problem.clearance.ClearanceSpec`."""
     return {
@@ -119,4 +199,6 @@ def clearance_meta(spec) -> dict:
         "shapes": [s.as_dict() for s in spec.shapes],
         "pairs": [{"shape": spec.shapes[p.shape].name, "surface": spec.surfaces[p.surface].name,
                    "points": list(p.points)} for p in spec.pairs],
+        "self_pairs": [{"first": spec.shapes[p.first].name, "second": spec.shapes[p.second].name,
+                        "distance": float(p.distance)} for p in spec.self_pairs],
     }

@@ -27,7 +27,7 @@ import pinocchio as pin
 
 from ..planfile import knot_surfaces
 from ..problem.geometry import Surface
-from .clearance import plan_clearance
+from .clearance import plan_clearance, plan_self_clearance
 
 WORLD = pin.ReferenceFrame.LOCAL_WORLD_ALIGNED
 BASE_ROWS = ("base linear x", "base linear y", "base linear z",
@@ -309,6 +309,18 @@ def measure_clearance(facts: PlanFacts) -> Worst:
     return Worst(worst.value, worst.knot, where, worst.per_knot)
 
 
+def measure_self_clearance(facts: PlanFacts) -> Worst:
+    """Per knot the largest shortfall [m] of a self-collision pair below its distance
+    (``meta.clearance.self_pairs``; nothing to check in plans without them)."""
+    found = plan_self_clearance(facts.plan)
+    if found is None:
+        return worst_entry(np.zeros((facts.plan.q.shape[0], 0)), [])
+    worst = worst_entry(np.array([[-k.room] for k in found.knots]), ["self clearance"])
+    k = found.knots[worst.knot]
+    where = f"{k.pair} ({100 * k.distance:.1f} cm apart, {100 * k.required:.1f} cm required)"
+    return Worst(worst.value, worst.knot, where, worst.per_knot)
+
+
 @dataclass(frozen=True)
 class Check:
     """One named physics check.
@@ -350,6 +362,8 @@ CHECKS: list[Check] = [
     Check("quaternion", "unit base quaternion", "", 1e-6, measure_quaternion),
     Check("clearance", "collision shapes at least the task's clearance from the terrain", "m", 1e-9,
           measure_clearance),
+    Check("self-clearance", "self-collision pairs of the robot file at least their distance apart", "m", 1e-9,
+          measure_self_clearance),
 ]
 
 

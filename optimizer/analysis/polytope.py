@@ -352,8 +352,21 @@ def _lowest_inner(hull: ConvexHull, points):
     return -float(dist), -x / dist
 
 
+class HullFailed(Exception):
+    """Qhull could not build the hull of full-dimensional support points."""
+
+
 def _hull(points, scale: float):
-    """Convex hull of the support points, or None if they are (nearly) flat."""
+    """Convex hull of the support points, or None if they are (nearly) flat.
+
+    Flatness is decided by the singular values alone. Full-dimensional
+    points on which Qhull's default merging fails (near-coplanar facets in
+    5-D and 6-D, depending on which of several optimal vertices each LP
+    returned) are tried again with wide merges allowed (``Q12``), the hull
+    kept only if every point lies on the inner side of every facet;
+    otherwise :class:`HullFailed` (never "flat": that would report a zero
+    figure for a set with interior).
+    """
     centred = points - points.mean(axis=0)
     sv = np.linalg.svd(centred, compute_uv=False) if len(points) > 1 else np.zeros(1)
     if len(points) <= points.shape[1] or sv[-1] <= 1e-9 * scale:
@@ -361,7 +374,15 @@ def _hull(points, scale: float):
     try:
         return ConvexHull(points)
     except QhullError:
-        return None
+        pass
+    try:
+        hull = ConvexHull(points, qhull_options="Qx Q12")
+    except QhullError as exc:
+        raise HullFailed(str(exc).splitlines()[0]) from None
+    normals, offsets = _facet_planes(hull)
+    if (points @ normals.T - offsets).max() > 1e-9 * scale:
+        raise HullFailed("merged facets leave support points outside the hull")
+    return hull
 
 
 def _null_directions(points, scale: float) -> np.ndarray:
@@ -397,11 +418,16 @@ def project(lp: SupportLP, tol: float = 1e-6, full: bool = False, max_lps: int =
     q = _Queries(lp)
     for d in axis_directions(lp.dim):
         q.ask(d)
+    last = None
     while True:
         points = q.points()
         scale = max(np.abs(points).max(), 1e-12)
         atol = tol * _size(lp, q) + 1e-12
-        hull = _hull(points, scale)
+        try:
+            hull = _hull(points, scale)
+        except HullFailed as exc:
+            return _unfinished(lp, q, last, atol, str(exc))
+        last = hull
         if hull is None:
             widened = _widen_flat(q, points, scale, atol)
             if widened:
@@ -418,7 +444,26 @@ def project(lp: SupportLP, tol: float = 1e-6, full: bool = False, max_lps: int =
         elif s.value - lower > atol:  # asked before and the hull did not move: numerical stall
             return _result(lp, q, hull, "projection", atol, False)
         if s.value - lower <= atol or lp.solved >= max_lps:
-            return _result(lp, q, ConvexHull(q.points()), "projection", atol, lp.solved < max_lps)
+            try:
+                hull = _hull(q.points(), scale)
+            except HullFailed as exc:
+                return _unfinished(lp, q, last, atol, str(exc))
+            return _result(lp, q, hull, "projection", atol, lp.solved < max_lps)
+
+
+def _unfinished(lp: SupportLP, q: _Queries, hull, atol: float, why: str) -> Projection:
+    """Bound pair when Qhull fails: the last inner hull built (sound: its points lie in the set), if any."""
+    note = f"the inner hull could not be built ({why}): the figure is a bound pair"
+    if hull is not None:
+        proj = _result(lp, q, hull, "projection", atol, False)
+    else:  # not even the first hull: the nominal point alone bounds the figure from below
+        best = q.best()
+        lower = 0.0 if lp.contains(np.zeros(lp.dim)) else -np.inf
+        proj = Projection(rho=lower, lower=lower, upper=best.value, weakest=best, vertices=q.points(), facets=0,
+                          lps=lp.solved, method="projection", capped=_hit_cap(lp, best),
+                          unbounded=_unbounded(lp, q), complete=False, gap=best.value - lower)
+    proj.notes.append(note)
+    return proj
 
 
 def _size(lp: SupportLP, q: _Queries) -> float:
@@ -522,7 +567,10 @@ def sample_support(lp: SupportLP, count: int = 400, seed: int = 0) -> Projection
         q.ask(d)
     points = q.points()
     scale = max(np.abs(points).max(), 1e-12)
-    hull = _hull(points, scale)
+    try:
+        hull = _hull(points, scale)
+    except HullFailed:
+        hull = None
     lower = _lowest_inner(hull, points)[0] if hull is not None else float("nan")
     weakest = q.best()
     return Projection(

@@ -17,6 +17,8 @@ Proofs (posture-free, so they hold for every motion):
   hand target whose frame lies inside one of its link's collision shapes
   cannot be reached when the target itself is closer to a surface than the
   clearance (the shape contains the frame, so it is at least as close).
+- ``self clearance``: a fixed start posture must keep every self-collision
+  pair of the robot file at least its distance apart.
 - ``standing``: the motion ends at rest (zero velocity and acceleration at
   the last knot), so gravity must be carried by the contact forces alone:
   ``sum_c f_c = -m g`` with each ``f_c`` in its Coulomb cone (checked with a
@@ -30,6 +32,8 @@ Estimates (at postures from the stance IK, :mod:`optimizer.problem.stance`):
   normal force, torque limits): which contact or joint is short, by how much.
 - ``hand reach``: the stance IK with the base near its start pose cannot
   bring the hand to a target.
+- ``self clearance`` (estimate): a stance-IK posture (start or hand
+  target) that brings a self-collision pair closer than its distance.
 - ``timing``: the joint travel between the postures of consecutive targets
   at the joints' velocity limits takes longer than the task allows.
 """
@@ -43,7 +47,7 @@ import pinocchio as pin
 from scipy.optimize import linprog
 
 from ..errors import InfeasibleTask, TaskError
-from ..problem.clearance import smallest_clearance
+from ..problem.clearance import self_shortfall, smallest_clearance
 from ..problem.friction import pyramid_facets
 from ..problem.limits import FRICTION, TORQUE
 from ..problem.schedule import contacts_at, stance_at, terrain_top
@@ -62,7 +66,8 @@ class Finding:
     Attributes
     ----------
     check : str
-        Which check: ``reach``, ``standing``, ``statics``, ``hand reach``, ``timing``.
+        Which check: ``reach``, ``standing``, ``clearance``, ``self clearance``, ``statics``, ``hand reach``,
+        ``timing``.
     impossible : bool
         True when the check proves no plan exists; False for a warning.
     what : str
@@ -477,9 +482,37 @@ def _inside_swollen_hull(point, points, radius) -> bool:
     return bool(np.all(point >= points.min(axis=0) - radius) and np.all(point <= points.max(axis=0) + radius))
 
 
+SELF_HINT = "change the posture (initial_posture hints, footholds or hand targets), or the pair's distance " \
+            "in the robot file (collision.self_pairs)"
+
+
+def _self_finding(task, q, impossible: bool, posture: str) -> list[Finding]:
+    """A finding when ``q`` brings some self-collision pair of the task's robot closer than its distance."""
+    distance, required, pair = self_shortfall(task.clearance, task.robot, q)
+    if distance >= required:
+        return []
+    apart = f"{distance * 100:.1f} cm apart" if distance >= 0 else f"overlapping by {-distance * 100:.1f} cm"
+    estimate = "" if impossible else " (an estimate from the stance IK; the solver may still find a posture)"
+    return [Finding("self clearance", impossible, f"{posture} brings {pair} {apart}; the robot file asks for "
+                    f"{required * 100:.1f} cm{estimate}", SELF_HINT, required - distance, "m")]
+
+
+def self_clearance_findings(task, checks) -> list[Finding]:
+    """Warnings: stance-IK postures (start unless fixed, and each hand target's) that break a self pair."""
+    out = []
+    for i, check in enumerate(checks):
+        if i == 0 and task.initial_posture is not None:
+            continue
+        name = "the start posture" if i == 0 else f"the posture for {check.label}"
+        out += _self_finding(task, check.q, False, name)
+    return out
+
+
 def clearance_findings(task) -> list[Finding]:
-    """Proofs: a fixed start that does not clear the terrain; a hand target too close to a surface."""
-    spec, out = task.clearance, []
+    """Proofs: a fixed start that does not clear the terrain or keep a self pair apart; a hand target too close
+    to a surface."""
+    spec = task.clearance
+    out = [] if task.initial_posture is None else _self_finding(task, task.initial_posture, True, "the start posture")
     if not spec.pairs:
         return out
     need = spec.distance
@@ -517,6 +550,7 @@ def run_checks(task) -> list[Finding]:
         return [Finding("stance", False, f"the stance IK found no start posture ({exc}); the solver may still find one",
                         "move the footholds closer to the standing posture or set initial_posture hints")]
     return (support + statics_findings(task, checks[0].q) + hand_findings(task, checks)
+            + self_clearance_findings(task, checks)
             + timing_findings(task, checks))
 
 

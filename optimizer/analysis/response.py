@@ -155,7 +155,7 @@ def limit_values(resp: KnotResponse) -> LimitValues:
 
 def _owner_order(limits: KnotLimits, joints, contacts, active) -> list[int]:
     """Rows by owner: each joint's upper and lower torque, then each active contact's facets and normal force."""
-    names = limits.names  # a property that lists every row: read it once
+    names = limits.names
     by_owner: dict[str, list[int]] = {}
     for i, name in enumerate(names):
         by_owner.setdefault(name.owner, []).append(i)
@@ -170,9 +170,9 @@ def build_limit_rows(resp: KnotResponse) -> LimitRows:
     A limit's room changes by ``A_tau dtau + A_lam dlambda`` with
     ``dtau = -T x``; it must stay >= 0, so the row reads
     ``(A_tau T - A_lam E) x <= room``. Rows of inactive contacts and of
-    infinite torque limits are left out. The projection in
-    :mod:`.polytope` is sensitive to the row order in degenerate cases, so
-    rows come by owner (see :func:`_owner_order`).
+    infinite torque limits are left out. Rows come by owner (see
+    :func:`_owner_order`), so names and bottlenecks read joint by joint; the
+    projection's figure does not depend on the order.
     """
     jc_b, jc_j, je_b, je_j = resp.split()
     active = np.asarray(resp.active, bool)

@@ -32,6 +32,7 @@ COMMANDS = {
     "simulate": "optimizer.cli.simulate",
     "sweep": "optimizer.cli.sweep",
     "export": "optimizer.cli.export",
+    "cache": "optimizer.cli.cache",
 }
 
 COMMAND_HELP = {
@@ -43,6 +44,7 @@ COMMAND_HELP = {
     "simulate": "replay a plan in MuJoCo with a tracking controller and push it at the hand",
     "sweep": "solve a task over a grid or sample of variants; resumable, on a local pool or a Dask cluster",
     "export": "resample a plan at a fixed rate for a tracking controller (CSV or NPZ)",
+    "cache": "show or clear the cache folder of compiled solver parts",
 }
 
 

@@ -13,7 +13,7 @@ import math
 import sys
 
 from .. import supervisor
-from ..analysis.certify import DEFAULT_CAP, DEFAULT_MAX_LPS, DEFAULT_TOL, Settings, certify_plan
+from ..analysis.certify import DEFAULT_CAP, DEFAULT_MAX_LPS, DEFAULT_TOL, Settings, certify_points
 from ..analysis.model_change import ModelChange
 from ..analysis.plan_check import CHECKS
 from ..analysis.margin_flags import DEFAULT_WARN_FRACTION, certificate_shortfalls, plan_requirements, unmet
@@ -37,8 +37,8 @@ def add_arguments(parser) -> None:
     parser.add_argument("--replay", type=int, default=0, metavar="N",
                         help="draw N random disturbances per knot within the planned margin and check each")
     parser.add_argument("--seed", type=int, default=0, help="seed of the replay's draws (default 0)")
-    parser.add_argument("--disturbance", type=int, default=0, metavar="INDEX",
-                        help="which disturbance point of the plan (default 0)")
+    parser.add_argument("--disturbance", type=int, default=None, metavar="INDEX",
+                        help="certify only this disturbance point of the plan (default: every point)")
     parser.add_argument("--tol", type=float, default=DEFAULT_TOL,
                         help=f"relative agreement of inner and outer polytope (default {DEFAULT_TOL:g})")
     parser.add_argument("--cap", type=float, default=DEFAULT_CAP, metavar="NEWTON",
@@ -80,28 +80,38 @@ def run(args) -> int:
     supervisor.phase("loading the plan")
     plan = load_plan(args.plan)
     knots = parse_knots(args.knots, plan.t.shape[0])
-    count = len(plan.meta["disturbances"])
-    if not 0 <= args.disturbance < count:
-        raise InputError(CLI, "--disturbance", f"an index from 0 to {count - 1}", args.disturbance)
+    points = chosen_points(args.disturbance, len(plan.meta["disturbances"]))
     tolerances = parse_check_tolerances(args.check_tol)
     change = model_change(args)
-    entry = plan.meta["disturbances"][args.disturbance]
-    supervisor.phase(f"certifying {len(knots)} knot(s)")
-    print(head_line(str(args.plan), entry["kind"], entry["frame"], len(knots), settings), flush=True)
+    supervisor.phase(f"certifying {len(knots)} knot(s) at {len(points)} disturbance point(s)")
+    entries = [plan.meta["disturbances"][p] for p in points]
+    print(head_line(str(args.plan), entries, len(knots), settings), flush=True)
     progress = ProgressLine(sys.stderr) if len(knots) > 1 else None
-    cert = certify_plan(plan, knots, args.disturbance, settings, args.replay, args.seed, progress,
-                        check=not args.no_check, tolerances=tolerances, change=change)
+    cert = certify_points(plan, knots, points, settings, args.replay, args.seed, progress,
+                          check=not args.no_check, tolerances=tolerances, change=change)
     if progress is not None:
         progress.clear()
-    shortfalls = certificate_shortfalls(cert, plan, requirements(args, plan), args.warn_below)
-    print(report_text(cert, str(args.plan), quiet=args.quiet, head=False,
-                      flags=shortfall_lines(shortfalls, use_colour(sys.stdout)), unmet=bool(unmet(shortfalls))))
+    needed = requirements(args, plan)
+    shortfalls = [certificate_shortfalls(c, plan, needed, args.warn_below) for c in cert.points]
+    colour = use_colour(sys.stdout)
+    flat = [s for found in shortfalls for s in found]
+    print(points_text(cert, quiet=args.quiet, flags=[shortfall_lines(found, colour) for found in shortfalls],
+                      unmet=bool(unmet(flat))))
     if args.json:
         supervisor.phase("writing the JSON report")
-        document = {"plan": str(args.plan), **cert.to_json(), "margin_flags": [s.to_json() for s in shortfalls]}
+        document = {"plan": str(args.plan), **cert.to_json(), "margin_flags": [s.to_json() for s in flat]}
         with atomic_output(args.json, suffix=".json") as tmp:
             tmp.write_text(json.dumps(document, indent=2) + "\n", encoding="utf-8")
-    return 0 if not cert.problems() and not unmet(shortfalls) else 1
+    return 0 if not cert.problems() and not unmet(flat) else 1
+
+
+def chosen_points(index: int | None, count: int) -> list:
+    """Every disturbance point of the plan, or the one ``--disturbance`` names."""
+    if index is None:
+        return list(range(count))
+    if not 0 <= index < count:
+        raise InputError(CLI, "--disturbance", f"an index from 0 to {count - 1}", index)
+    return [index]
 
 
 def requirements(args, plan) -> list:
@@ -190,9 +200,10 @@ class ProgressLine:
         self.stream = stream
         self.live = hasattr(stream, "isatty") and stream.isatty()
 
-    def __call__(self, done: int, total: int, cert) -> None:
+    def __call__(self, point: int, done: int, total: int, cert) -> None:
         if self.live:
-            self.stream.write(f"\rcertifying knot {done}/{total}: exact {cert.rho:.4g} N   ")
+            self.stream.write(f"\rcertifying point {point}, knot {done}/{total}: "
+                              f"{'exact' if cert.exact else 'lower bound'} {cert.rho:.4g} N   ")
             self.stream.flush()
 
     def clear(self) -> None:
@@ -313,7 +324,8 @@ def check_lines(cert, quiet: bool) -> list:
     return check_table(cert.checks) + [""]
 
 
-def summary_lines(cert, unit: str, flags=(), unmet: bool = False) -> list:
+def point_summary_lines(cert, unit: str) -> list:
+    """One point's summary: smallest figure, bottleneck, planned over exact, notes, changed model, time, replay."""
     s = cert.summary()
     n = s["knots"]
     low = cert.smallest()
@@ -341,40 +353,80 @@ def summary_lines(cert, unit: str, flags=(), unmet: bool = False) -> list:
         r = cert.replay
         lines.append(f"replay: {r.rejected} of {r.drawn} disturbances within the planned margin rejected; "
                      f"{r.beyond_unrejectable} of {r.beyond_tried} pushes 0.01% beyond the exact margin not rejectable")
-    problems = s["problems"] + (["a required margin is not met (see the !! lines above)"] if unmet else [])
-    lines += list(flags)
-    lines.append(result_line(cert, s, problems))
-    lines += [f"  {p}" for p in problems]
-    lines += [MODEL_ONLY, SAFETY]
     return lines
 
 
-def head_line(plan_name: str, kind: str, frame: str, count: int, settings) -> str:
-    """The report's first line (``brace certify`` prints it before certification starts)."""
+def verdict_lines(certs, problems, flags=(), unmet: bool = False) -> list:
+    """Flag lines, the result line over every certified point, its problems and the notices."""
+    problems = list(problems) + (["a required margin is not met (see the !! lines above)"] if unmet else [])
+    return [*flags, result_line(certs, problems), *[f"  {p}" for p in problems], MODEL_ONLY, SAFETY]
+
+
+def summary_lines(cert, unit: str, flags=(), unmet: bool = False) -> list:
+    """A one-point certificate's summary and verdict."""
+    return point_summary_lines(cert, unit) + verdict_lines([cert], cert.problems(), flags, unmet)
+
+
+def head_line(plan_name: str, entries, count: int, settings) -> str:
+    """The report's first line (``brace certify`` prints it before certification starts).
+
+    ``entries`` are the certified points' ``meta.disturbances`` entries (or one entry).
+    """
+    entries = [entries] if isinstance(entries, dict) else list(entries)
     mode = "whole polytope" if settings.full else "refined around the figure"
-    return f"certify {plan_name}: {kind} at {frame}, {count} knots, projection {mode}, tol {settings.tol:g}"
+    where = (f"{entries[0]['kind']} at {entries[0]['frame']}" if len(entries) == 1 else
+             f"{len(entries)} disturbance points (" + ", ".join(f"{e['kind']} at {e['frame']}" for e in entries) + ")")
+    return f"certify {plan_name}: {where}, {count} knots, projection {mode}, tol {settings.tol:g}"
 
 
-def result_line(cert, summary: dict, problems) -> str:
-    """The verdict, worded by what was proven."""
+def result_line(certs, problems) -> str:
+    """The verdict over every certified point, worded by what was proven."""
+    certs = [certs] if not isinstance(certs, (list, tuple)) else list(certs)
     if problems:
         return "result: NOT certified"
-    n, exact = summary["knots"], summary["exact_knots"]
+    n = sum(len(c.knots) for c in certs)
+    exact = sum(c.exact for cert in certs for c in cert.knots)
+    where = "every knot" if len(certs) == 1 else f"every knot of each of the {len(certs)} disturbance points"
     if exact == n:
-        what = "exact figures at every knot"
+        what = f"exact figures at {where}"
     elif exact == 0:
-        what = "bounds only: at every knot the planned margin is at or below a proven lower bound"
+        what = f"bounds only: at {where} the planned margin is at or below a proven lower bound"
     else:
-        what = (f"exact figures at {exact} of {n} knots; at the others the planned margin is at or below "
-                "a proven lower bound")
-    if cert.checks is None:
+        what = (f"exact figures at {exact} of {n} knots{'' if len(certs) == 1 else ' (all points)'}; at the others "
+                "the planned margin is at or below a proven lower bound")
+    if certs[0].checks is None:
         return f"result: margins certified ({what}); the plan's physics was NOT checked (--no-check)"
     return f"result: certified (physics checks passed; {what})"
 
 
+def _unit(disturbance: dict) -> str:
+    return "N" if disturbance["kind"] == "force" else "N|Nm"
+
+
 def report_text(cert, plan_name: str, quiet: bool = False, flags=(), unmet: bool = False, head: bool = True) -> str:
+    """One point's report (a :class:`~optimizer.analysis.certify.PlanCertificate`)."""
     d = cert.disturbance
-    unit = "N" if d["kind"] == "force" else "N|Nm"
-    first = [head_line(plan_name, d["kind"], d["frame"], len(cert.knots), cert.settings)] if head else []
+    unit = _unit(d)
+    first = [head_line(plan_name, d, len(cert.knots), cert.settings)] if head else []
     body = [] if quiet else knot_table(cert, unit) + [""]
     return "\n".join(first + check_lines(cert, quiet) + body + summary_lines(cert, unit, flags, unmet))
+
+
+def points_text(cert, quiet: bool = False, flags=(), unmet: bool = False) -> str:
+    """The report of a :class:`~optimizer.analysis.certify.PointsCertificate` after its head line.
+
+    One point reads as before; several get a section each (table and
+    summary), then one result line over all of them. ``flags`` holds each
+    point's flag lines; ``unmet``: a required margin is not met at some point.
+    """
+    flags = list(flags) or [[] for _ in cert.points]
+    if len(cert.points) == 1:
+        return report_text(cert.points[0], "", quiet=quiet, flags=flags[0], unmet=unmet, head=False)
+    lines = check_lines(cert.points[0], quiet)
+    for point, point_flags in zip(cert.points, flags):
+        d = point.disturbance
+        unit = _unit(d)
+        lines.append(f"point {d['index']}: {d['kind']} at {d['frame']} [{unit}]")
+        lines += ([] if quiet else knot_table(point, unit) + [""])
+        lines += ["  " + line for line in point_summary_lines(point, unit)] + list(point_flags) + [""]
+    return "\n".join(lines + verdict_lines(cert.points, cert.problems(), unmet=unmet))

@@ -1,7 +1,7 @@
 """``brace check-model ROBOT.yaml``: inspect a robot file before planning with it.
 
-Prints mass, sizes, frames, the joint limits and the statics of the standing
-posture, then lists problems. Exit codes: 0 no problem, 1 problems flagged,
+Prints mass, sizes, frames, the joint limits, the statics of the standing
+posture and its self-collision pairs, then lists problems. Exit codes: 0 no problem, 1 problems flagged,
 2 bad input (raised as ModelError and reported by the CLI entry point).
 """
 from __future__ import annotations
@@ -11,6 +11,7 @@ import argparse
 import numpy as np
 
 from ..analysis.statics import StaticsResult, standing_statics
+from ..problem.clearance import clearance_spec, self_shortfall
 from ..robot.model import RobotModel, load_robot
 
 HELP = "inspect a robot file: mass, frames, limits, standing statics"
@@ -29,8 +30,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args) -> int:
     robot = load_robot(args.robot)
     statics = standing_statics(robot, robot.standing_posture)
-    lines = summary_lines(robot) + limit_lines(robot) + statics_lines(robot, statics)
-    problems = find_problems(robot, statics)
+    lines = summary_lines(robot) + limit_lines(robot) + statics_lines(robot, statics) + self_pair_lines(robot)
+    problems = find_problems(robot, statics) + self_pair_problems(robot)
     lines.append("")
     lines.append(f"problems: {len(problems)}" if problems else "problems: none")
     lines.extend(f"  ! {text}" for text in problems)
@@ -49,6 +50,27 @@ def summary_lines(robot: RobotModel) -> list[str]:
         f"  contact frames  {', '.join(robot.contact_frames)}",
         f"  hand frame      {robot.hand_frame}",
     ]
+
+
+def self_pair_lines(robot: RobotModel) -> list[str]:
+    """How many self-collision pairs the robot file names and the one with the least room when standing."""
+    pairs = robot.collision.self_pairs
+    if not pairs:
+        return ["", "self-collision pairs: none"]
+    distance, required, pair = self_shortfall(clearance_spec(robot, [], [], 0.0), robot, robot.standing_posture)
+    return ["", f"self-collision pairs: {len(pairs)}; least room standing: {pair} {distance * 100:.1f} cm apart "
+            f"({required * 100:.1f} cm required)"]
+
+
+def self_pair_problems(robot: RobotModel) -> list[str]:
+    """A self-collision pair closer than its distance in the standing posture."""
+    if not robot.collision.self_pairs:
+        return []
+    distance, required, pair = self_shortfall(clearance_spec(robot, [], [], 0.0), robot, robot.standing_posture)
+    if distance >= required:
+        return []
+    return [f"standing posture brings {pair} {distance * 100:.1f} cm apart; the robot file asks for "
+            f"{required * 100:.1f} cm"]
 
 
 def joint_position_range(robot: RobotModel, i: int) -> tuple[float, float]:

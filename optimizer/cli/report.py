@@ -61,7 +61,7 @@ def run(args) -> int:
         write_outputs(comparisons, stage, status, args.frames, f"{len(plans)} plan file(s)")
     status.clear()
     print_summary(comparisons, out)
-    return 0 if all(e.ok and not e.certificate.problems() for c in comparisons for e in c.entries) else 1
+    return 0 if all(e.ok and not e.problems() for c in comparisons for e in c.entries) else 1
 
 
 def check_frames(frames) -> None:
@@ -103,14 +103,15 @@ def safe_folder(title: str) -> str:
 
 
 def certified_entries(items, status) -> list:
-    """Entries ``(name, plan, source)`` with every knot certified exactly (progress on ``status``)."""
-    from ..analysis.certify import certify_plan
+    """Entries ``(name, plan, source)`` with every knot of every disturbance point certified exactly."""
+    from ..analysis.certify import certify_points
     from ..report.table import Entry
 
     entries = []
     for name, plan, source in items:
-        certificate = certify_plan(plan, progress=lambda done, total, _c, n=name: status(f"certifying {n}", done, total))
-        entries.append(Entry(name, plan, certificate, source=source))
+        certificate = certify_points(plan, progress=lambda p, done, total, _c, n=name:
+                                     status(f"certifying {n}" + (f" point {p}" if p else ""), done, total))
+        entries.append(Entry(name, plan, certificate.points[0], source=source, others=certificate.points[1:]))
     return entries
 
 

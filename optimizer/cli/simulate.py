@@ -3,7 +3,8 @@
 Prints the nominal replay's tracking (base, hand, targets, feet, clipped
 torques) and, for each chosen knot and mode, the largest push along the
 certified weakest direction the robot survives, beside the certified margin.
-``--json OUT`` writes the same for machines. Exit code 0 when the nominal
+``--json OUT`` writes the same for machines, ``--figure OUT.png`` the
+survived pushes against the certified margins as a figure. Exit code 0 when the nominal
 replay stays within its limits (feet, hand targets, contacts), 1 when not,
 2 on bad input or when MuJoCo is not installed.
 """
@@ -39,6 +40,8 @@ def add_arguments(parser) -> None:
                         help="knots to push at: 'smallest' (the smallest certified margin, default), 'none', "
                              "'all' or e.g. '0,5,10-20'")
     parser.add_argument("--json", metavar="OUT", help="also write the results as JSON to OUT")
+    parser.add_argument("--figure", metavar="OUT.png",
+                        help="also draw the survived pushes against the certified margins (PNG or SVG)")
     parser.add_argument("--disturbance", type=int, default=0, metavar="INDEX",
                         help="which disturbance point of the plan (default 0)")
     parser.add_argument("--hold", type=float, default=0.2, metavar="S", help="push held at full size, s (default 0.2)")
@@ -66,6 +69,8 @@ def run(args) -> int:
     settings = Settings(contact=ContactSettings(timestep=_positive(args.timestep, "--timestep", 0.01)),
                         rules=SurvivalRules(slip=_positive(args.slip, "--slip", 1.0)),
                         hold=_positive(args.hold, "--hold", 10.0), settle=_positive(args.settle, "--settle", 10.0))
+    if args.figure and not str(args.figure).lower().endswith((".png", ".svg")):
+        raise InputError(CLI, "--figure", "a file name ending in .png or .svg", args.figure)
     plan = load_plan(args.plan)
     count = len(plan.meta["disturbances"])
     if not 0 <= args.disturbance < count:
@@ -74,6 +79,10 @@ def run(args) -> int:
     task = load_task(args.task) if args.task else None
     inputs = simulation_inputs(plan, build_model(args.plan, plan.meta["urdf"]), task)
     sim = Simulator(plan, inputs.surfaces, inputs.targets, inputs.hand_frame, settings, args.disturbance)
+    reserve = float(plan.meta.get("torque_reserve", 0.0))
+    if reserve > 0:
+        inputs.notes.append(f"torques: the plan keeps {100 * reserve:g} % of every limit for the controller; "
+                            "the replay clips at the full limits")
     nominal = sim.nominal()
     modes = ("informed", "blind") if args.mode == "both" else (args.mode,)
     pushes = []
@@ -82,7 +91,11 @@ def run(args) -> int:
             _progress(f"pushing at knot {k} ({mode})")
             pushes.append(sim.largest_push(k, mode))
     _progress("")
+    raw_task = plan.meta.get("task")
     document = {"format": "brace-simulation/1", "plan": str(args.plan),
+                "task": (task.name if task is not None else
+                         raw_task.get("name", "") if isinstance(raw_task, dict) else ""),
+                "objective": str(plan.meta.get("objective", "")),
                 "engine": {"name": "mujoco", "version": mujoco.__version__},
                 "settings": _settings_json(settings), "scene": inputs.notes,
                 "disturbance": plan.meta["disturbances"][args.disturbance]["frame"],
@@ -91,6 +104,10 @@ def run(args) -> int:
     if args.json:
         with atomic_output(args.json, suffix=".json") as tmp:
             tmp.write_text(json.dumps(document, indent=2) + "\n", encoding="utf-8")
+    if args.figure:
+        from ..report.simulation import write_push_figure
+
+        write_push_figure([document], args.figure)
     return 0 if nominal["ok"] else 1
 
 

@@ -29,6 +29,7 @@ from ..memory import SIZE_TEXT, available_memory, format_size, parse_size
 from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
 from ..notices import SAFETY
+from .cache import add_cache_option, add_evaluation_option, apply_cache_option, compiler_note
 from .shortfalls import shortfall_lines, use_colour
 
 if TYPE_CHECKING:
@@ -59,6 +60,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--warn-below", type=float, metavar="NEWTON",
                         help="flag knots whose certified margin is below this, N, where nothing is required "
                              f"(default {100 * DEFAULT_WARN_FRACTION:.0f} %% of the robot's weight)")
+    add_cache_option(parser)
+    add_evaluation_option(parser)
 
 
 def run(args) -> int:
@@ -70,6 +73,7 @@ def run(args) -> int:
 
 
 def _run(args) -> int:
+    apply_cache_option(args)
     supervisor.phase("loading the task")
     task = load_task(args.task)
     if args.knots is not None:
@@ -87,15 +91,21 @@ def _run(args) -> int:
     if args.check_only:
         print(f"brace solve: task '{task.name}' is valid" + ("" if args.skip_checks else "; pre-solve checks passed"))
         return 0
-    from ..planner import solve
+    from ..planner import solve, take_notice
 
+    note = compiler_note() if args.evaluation == "compiled" else None
+    if note:
+        print(note)
     log_path = out.with_suffix(".ipopt.log")
     write_log_header(log_path, f"Ipopt logs of brace solve {args.task} --objective {objective}\n")
     print(f"brace solve: task '{task.name}', objective {objective}, {task.knots} knots over {task.duration:.2f} s, "
           f"robot '{task.robot.name}' ({task.robot.mass:.1f} kg)")
     started = time.perf_counter()
-    outcome = solve(task, objective, progress=None if args.quiet else _print_progress, log_path=log_path)
+    outcome = solve(task, objective, progress=None if args.quiet else _print_progress, log_path=log_path,
+                    evaluation=args.evaluation)
     elapsed = time.perf_counter() - started
+    for text in take_notice() if note is None else []:
+        print(f"note: {text}")
     if not outcome.success:
         _report_failure(outcome, out, log_path)
         return 1
@@ -196,7 +206,10 @@ CLOSE = 0.8  # warn when the estimate takes more than this share of the ceiling
 def check_memory(task, objective: str, limit: int | None) -> None:
     """Refuse, before building anything, a solve whose estimated memory exceeds the ceiling; warn when close.
 
-    The ceiling is ``limit`` when given, else the memory available now.
+    The ceiling is ``limit`` when given (the most the whole process may
+    hold), else the memory available now plus what the process holds already
+    (the available figure leaves out the process's own memory, which the
+    estimate counts).
     """
     from ..footprint import estimate_memory
 
@@ -206,7 +219,8 @@ def check_memory(task, objective: str, limit: int | None) -> None:
     if limit is not None:
         ceiling, what = limit, "set as the memory limit"
     elif available is not None:
-        ceiling, what = available.size, available.source
+        ceiling = available.size + estimate.baseline
+        what = f"(the {format_size(available.size)} {available.source} and the {format_size(estimate.baseline)} held)"
     else:
         print(f"brace solve: memory: {estimate.describe()} (the system does not say how much is available)")
         return
@@ -220,7 +234,7 @@ def check_memory(task, objective: str, limit: int | None) -> None:
     if estimate.total > CLOSE * ceiling:
         print(f"  warning: the estimate is {100 * estimate.total / ceiling:.0f} % of the {format_size(ceiling)} "
               f"{what}; the solve may run out of memory (fewer knots need less)")
-    if limit is not None and available is not None and estimate.total > available.size:
+    if limit is not None and available is not None and estimate.total - estimate.baseline > available.size:
         print(f"  warning: only {format_size(available.size)} is {available.source}, less than the estimate")
 
 
@@ -236,7 +250,6 @@ def _print_progress(stage, iteration, cost, violation, smallest_margin):
 def summary_lines(outcome: SolveOutcome, elapsed: float, out: Path, log_path: Path) -> list[str]:
     plan = outcome.plan
     robot = outcome.task.robot
-    k_min = int(np.argmin(plan.margin))
     use = np.maximum(plan.tau / np.where(plan.tau >= 0, robot.torque_upper, -robot.torque_lower), 0.0)
     k_use, j_use = np.unravel_index(np.argmax(use), use.shape)
     stages = ", ".join(f"{s.objective} {s.status} in {s.iterations} it / {s.solve_time:.1f} s"
@@ -246,11 +259,24 @@ def summary_lines(outcome: SolveOutcome, elapsed: float, out: Path, log_path: Pa
         f"  Ipopt log            {log_path}",
         f"  stages               {stages}",
         f"  total time           {elapsed:.1f} s",
-        f"  margin (certified)   min {plan.margin[k_min]:.2f} N at t = {plan.t[k_min]:.2f} s, "
-        f"mean {np.mean(plan.margin):.2f} N",
+        *margin_lines(plan),
         f"  peak torque use      {100 * use[k_use, j_use]:.0f} % ({robot.joint_names[j_use]} at t = {plan.t[k_use]:.2f} s)",
         f"  largest violation    {outcome.stages[-1].max_violation:.1e} (scaled NLP units)",
     ]
+
+
+def margin_lines(plan) -> list[str]:
+    """The certified margin's smallest and mean value: one line, or one per disturbance point."""
+    margins = plan.margin[:, None] if plan.margins is None else plan.margins
+    points = plan.meta["disturbances"]
+    lines = []
+    for p in range(margins.shape[1]):
+        column = margins[:, p]
+        k = int(np.argmin(column))
+        label = "  margin (certified)   " if p == 0 else " " * 23
+        where = f"point {p} ({points[p]['frame']}): " if margins.shape[1] > 1 else ""
+        lines.append(f"{label}{where}min {column[k]:.2f} N at t = {plan.t[k]:.2f} s, mean {np.mean(column):.2f} N")
+    return lines
 
 
 def _report_failure(outcome: SolveOutcome, out: Path, log_path: Path) -> None:

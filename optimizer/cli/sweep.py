@@ -18,6 +18,7 @@ import sys
 from pathlib import Path
 
 from ..errors import InputError
+from .cache import add_cache_option, add_evaluation_option, apply_cache_option, compiler_note
 from .notices import SAFETY
 
 # Stopping: the supervisor passes Ctrl-C / SIGTERM on and waits this long [s] for the sweep to
@@ -35,9 +36,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--scheduler", metavar="ADDRESS", help="run on the Dask cluster at tcp://HOST:PORT")
     parser.add_argument("--report", metavar="DIR", help="only redraw the summary and figures of a results folder")
     parser.add_argument("--quiet", action="store_true", help="no progress line")
+    add_cache_option(parser)
+    add_evaluation_option(parser)
 
 
 def run(args) -> int:
+    apply_cache_option(args)
     if args.report:
         if args.sweep or args.out:
             raise InputError(CLI, "--report", "a results folder alone (no sweep file, no --out)", args.sweep or args.out)
@@ -55,9 +59,12 @@ def run(args) -> int:
     print(f"brace sweep: '{sweep.name}', {count} variant{'s' if count != 1 else ''} x "
           f"{len(sweep.objectives)} objective(s) ({', '.join(sweep.objectives)}), on a {engine.describe()}; "
           f"results in {out}", flush=True)
+    note = compiler_note() if args.evaluation == "compiled" else None
+    if note:
+        print(note, flush=True)
     line = ProgressLine(quiet=args.quiet)
     with _sigterm_interrupts():
-        outcome = run_sweep(sweep, out, engine, report=line)
+        outcome = run_sweep(sweep, out, engine, report=line, evaluation=args.evaluation)
     line.finish()
     figures = _figures(out, outcome.rows)
     print("\n".join(summary_lines(outcome, out, figures)))

@@ -11,6 +11,17 @@ afterwards (:mod:`optimizer.analysis.clearance`).
 
 Points of a shape near a contact frame on the same link are exempt from the
 surface that contact stands on (the foot sphere touches its foothold).
+
+Self-collision pairs (named in the robot file,
+:mod:`optimizer.robot.self_pairs`) keep two shapes of the robot apart. The
+NLP's rows for one pair use a separating plane ``(n, d)`` of its own
+(variables per knot): ``n . a_i - d >= r_a + distance`` for the first shape's
+points, ``n . b_j - d <= -r_b`` for the second's, and ``|n| <= 1``. Any such
+plane proves the two swollen hulls at least ``distance`` apart (for points
+``x``, ``y`` of the hulls, ``|x - y| >= n . (x - y) >= r_a + r_b +
+distance``), and the plane along the shortest vector between the hulls
+exists whenever they are, so the rows are exact. :meth:`ClearanceSpec.separating_planes`
+gives a starting plane per pair.
 This module is numeric (NumPy and Pinocchio); the NLP builds the same rows
 symbolically from :attr:`ClearanceSpec.rows`.
 """
@@ -22,6 +33,7 @@ import numpy as np
 import pinocchio as pin
 
 from ..robot.collision import shape_points_world
+from ..robot.separation import hull_separation, shape_distance
 
 DEFAULT_CLEARANCE = 0.03   # m: the task default, "a few centimetres"
 # The NLP's rows keep this much more than the required clearance (m): more than the
@@ -49,12 +61,15 @@ class ClearanceSpec:
     shapes : tuple of CollisionShape
     surfaces : list of Surface
     pairs : list of ClearancePair
+    self_pairs : tuple of SelfPair
+        Shapes of the robot kept apart (:mod:`optimizer.robot.self_pairs`).
     """
 
     distance: float
     shapes: tuple
     surfaces: list
     pairs: list
+    self_pairs: tuple = ()
 
     @property
     def rows(self) -> list[tuple[int, int, int]]:
@@ -91,6 +106,32 @@ class ClearanceSpec:
         return np.array([self.surfaces[pair.surface].distance(self.pair_points(pair, world), self.shapes[pair.shape].radius)
                          for pair in self.pairs])
 
+    def self_label(self, i: int) -> str:
+        """``"<shape> vs <shape>"`` of self pair ``i``, e.g. ``gripper/capsule0 vs body/box0``."""
+        pair = self.self_pairs[i]
+        return f"{self.shapes[pair.first].name} vs {self.shapes[pair.second].name}"
+
+    def self_distances(self, world: list) -> np.ndarray:
+        """Distance of every self pair's swollen hulls (m, a lower bound; negative when they overlap); (pairs,)."""
+        return np.array([shape_distance(world[p.first], self.shapes[p.first].radius,
+                                        world[p.second], self.shapes[p.second].radius) for p in self.self_pairs])
+
+    def separating_planes(self, world: list, backoff: float = 0.0) -> np.ndarray:
+        """Per self pair a plane ``(n, d)`` (unit ``n`` from the second shape to the first, m), shape (4, pairs).
+
+        ``n`` lies along the shortest vector between the hulls; ``d`` halves
+        the room the pair's rows leave (see the module doc), so the plane
+        meets every row when the pair is ``distance + backoff`` apart.
+        """
+        out = np.zeros((4, len(self.self_pairs)))
+        for i, pair in enumerate(self.self_pairs):
+            a, b = world[pair.first], world[pair.second]
+            n = hull_separation(a, b).normal
+            low = float(np.max(b @ n)) + self.shapes[pair.second].radius
+            high = float(np.min(a @ n)) - self.shapes[pair.first].radius - pair.distance - backoff
+            out[:3, i], out[3, i] = n, 0.5 * (low + high)
+        return out
+
 
 def clearance_spec(robot, contacts, surfaces, distance: float) -> ClearanceSpec:
     """Pairs of every shape with every surface, the feet's own points exempt from their own surface.
@@ -117,7 +158,7 @@ def clearance_spec(robot, contacts, surfaces, distance: float) -> ClearanceSpec:
             points = tuple(p for p in range(len(shape.points)) if p not in near.get((s, j), set()))
             if points:
                 pairs.append(ClearancePair(s, j, points))
-    return ClearanceSpec(float(distance), collision.shapes, list(surfaces), pairs)
+    return ClearanceSpec(float(distance), collision.shapes, list(surfaces), pairs, collision.self_pairs)
 
 
 def world_points(robot, q, data=None) -> list[np.ndarray]:
@@ -135,6 +176,17 @@ def smallest_clearance(spec: ClearanceSpec, robot, q) -> tuple[float, str, str]:
     i = int(np.argmin(distances))
     pair = spec.pairs[i]
     return float(distances[i]), spec.shapes[pair.shape].link, spec.surfaces[pair.surface].name
+
+
+def self_shortfall(spec: ClearanceSpec, robot, q) -> tuple[float, float, str]:
+    """The self pair furthest below its distance at ``q``: (distance m, required m, label); ``(inf, 0, "")``
+    without pairs. Without a shortfall, the pair with the least room."""
+    if not spec.self_pairs:
+        return float("inf"), 0.0, ""
+    distances = spec.self_distances(world_points(robot, q))
+    room = distances - np.array([p.distance for p in spec.self_pairs])
+    i = int(np.argmin(room))
+    return float(distances[i]), spec.self_pairs[i].distance, spec.self_label(i)
 
 
 def clearance_rows(spec: ClearanceSpec, robot, q, data, margin: float = 0.0):

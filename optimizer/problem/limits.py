@@ -30,8 +30,8 @@ registered in :data:`LIMIT_KINDS`.
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
-from functools import cached_property
 from typing import Callable
 
 import numpy as np
@@ -155,9 +155,23 @@ def _normal_rooms(tau, lam, v: LimitValues, ops: ArrayOps):
 LIMIT_KINDS: dict[str, LimitKind] = {}
 
 
+@functools.lru_cache(maxsize=64)
+def _names_by_kind(joints: tuple, contacts: tuple, facets: int) -> tuple[tuple[LimitName, ...], ...]:
+    """Each registered kind's row names, in registry order (listed once per argument triple)."""
+    return tuple(tuple(kind.names(joints, contacts, facets)) for kind in LIMIT_KINDS.values())
+
+
+@functools.lru_cache(maxsize=64)
+def _row_names(joints: tuple, contacts: tuple, facets: int) -> tuple[LimitName, ...]:
+    """Every row's name, the kinds' lists one after the other."""
+    return tuple(n for names in _names_by_kind(joints, contacts, facets) for n in names)
+
+
 def register_limit_kind(kind: LimitKind) -> LimitKind:
     """Add a kind of limit row; rows of registered kinds follow in registration order."""
     LIMIT_KINDS[kind.kind] = kind
+    _names_by_kind.cache_clear()
+    _row_names.cache_clear()
     return kind
 
 
@@ -187,10 +201,10 @@ class KnotLimits:
     contacts: tuple
     facets: int
 
-    @cached_property
+    @property
     def names(self) -> tuple[LimitName, ...]:
-        """Every row's name, in the order of :meth:`rooms` (listed once per instance)."""
-        return tuple(n for kind in LIMIT_KINDS.values() for n in kind.names(self.joints, self.contacts, self.facets))
+        """Every row's name, in the order of :meth:`rooms` (listed once per joints, contacts and facets)."""
+        return _row_names(self.joints, self.contacts, self.facets)
 
     @property
     def size(self) -> int:
@@ -212,9 +226,8 @@ class KnotLimits:
     def scales(self, values: LimitValues, ops: ArrayOps = NUMPY_OPS):
         """Scale of each row's room: the joint's largest torque limit [N m], or ``m g / nc`` [N]."""
         nc, blocks = len(self.contacts), []
-        for kind in LIMIT_KINDS.values():
-            rows = len(kind.names(self.joints, self.contacts, self.facets))
-            blocks += kind.scales(values, rows, nc, ops)
+        for kind, names in zip(LIMIT_KINDS.values(), _names_by_kind(self.joints, self.contacts, self.facets)):
+            blocks += kind.scales(values, len(names), nc, ops)
         return ops.stack(blocks)
 
     def linear(self, values: LimitValues) -> tuple[np.ndarray, np.ndarray, np.ndarray]:

@@ -21,11 +21,13 @@ import pinocchio as pin
 from ..errors import InfeasibleTask, TaskError
 from ..files import read_yaml_mapping
 from ..memory import SIZE_TEXT, parse_size
+from ..robot.derived import with_torque_scale
 from ..robot.model import load_robot
 from ..schema import Fields
 from .clearance import DEFAULT_CLEARANCE, ClearanceSpec, clearance_spec
 from .friction import tangent_basis
 from .geometry import ground_planes
+from .point_weights import COMBINATIONS, DEFAULT_COMBINATION
 from .push_shape import shape_from_directions, wrench_shape
 from .requirement import horizon_requirement, read_requirements
 from .schedule import DEFAULT_SWING_HEIGHT, Schedule, StanceInterval
@@ -38,7 +40,9 @@ UNIT_TOLERANCE = 1e-3      # |n| may differ from 1 by this much before it counts
 MAX_KNOTS = 2000           # more knots than this is a typo, not a plan (the NLP grows linearly)
 MAX_FACETS = 64            # a pyramid finer than this adds rows without changing the answer
 TOP_LEVEL = {"name", "description", "robot", "horizon", "stance", "hand_targets", "disturbances",
-             "objective", "pyramid_facets", "min_normal_force", "initial_posture", "solver", "require", "clearance"}
+             "combine_points", "objective", "pyramid_facets", "min_normal_force", "initial_posture", "solver", "require",
+             "clearance", "torque_reserve"}
+MAX_TORQUE_RESERVE = 0.5   # keeping more than half of every torque for feedback is a typo, not a plan
 
 
 @dataclass
@@ -101,12 +105,15 @@ class DisturbanceSpec:
     """A disturbance point: ``{W u : |u| <= rho}`` acting at ``frame``'s origin.
 
     ``kind`` is ``"force"`` (W shape (3, 3)) or ``"wrench"`` (W shape (6, 6),
-    ordered [force; moment]); axes are world-aligned.
+    ordered [force; moment]); axes are world-aligned. ``objective_weight``
+    (>= 0) is the point's weight in robust objectives
+    (:mod:`optimizer.problem.point_weights`).
     """
 
     frame: str
     kind: str
     shape: np.ndarray
+    objective_weight: float = 1.0
 
 
 @dataclass
@@ -124,6 +131,9 @@ class Task:
     hand_targets : list of HandTarget
     disturbances : list of DisturbanceSpec
         At least one (default: a force at the robot's hand frame, W = I).
+    combine_points : str
+        How robust objectives combine the points' margins at a knot:
+        ``smallest`` or ``weighted-sum`` (:mod:`optimizer.problem.point_weights`).
     objective : str
         One of ``OBJECTIVES``.
     facets : int
@@ -150,6 +160,11 @@ class Task:
         Stance intervals per contact (``stance.schedule``); one interval over
         the whole horizon for every contact the schedule does not name. The
         ``foothold`` of each entry of ``contacts`` is that of its first interval.
+    torque_reserve : float
+        Fraction of every joint's torque limit kept for the tracking
+        controller (``torque_reserve``): ``robot`` already carries the
+        limits times ``1 - torque_reserve``, which the plan meets and is
+        certified against.
     """
 
     name: str
@@ -170,7 +185,9 @@ class Task:
     requirements: list = field(default_factory=list)
     clearance: ClearanceSpec = None
     memory_limit: int | None = None
+    combine_points: str = DEFAULT_COMBINATION
     schedule: Schedule = None
+    torque_reserve: float = 0.0
 
     def __post_init__(self):
         if self.schedule is None:
@@ -222,6 +239,8 @@ def task_from_mapping(data: dict, path) -> Task:
     if top.has("description"):
         top.string("description")
     robot_path, robot = read_robot(top)
+    reserve = top.number("torque_reserve", 0.0, lo=0.0, hi=MAX_TORQUE_RESERVE)
+    robot = with_torque_scale(robot, 1.0 - reserve)
     duration, knots = read_horizon(top.sub("horizon"))
     contacts, surfaces, schedule = read_stance(top.sub("stance"), robot, duration)
     clearance = read_clearance(top, robot, schedule_contacts(contacts, schedule), surfaces)
@@ -238,6 +257,7 @@ def task_from_mapping(data: dict, path) -> Task:
         contacts=contacts,
         hand_targets=hand_targets,
         disturbances=disturbances,
+        combine_points=top.string("combine_points", DEFAULT_COMBINATION, choices=list(COMBINATIONS)),
         objective=top.string("objective", "robust", choices=OBJECTIVES),
         facets=top.integer("pyramid_facets", 4, lo=3, hi=MAX_FACETS),
         min_normal_force=top.number("min_normal_force", 0.05 * weight / len(contacts), lo=0.0),
@@ -246,6 +266,7 @@ def task_from_mapping(data: dict, path) -> Task:
         initial_posture=read_initial_posture(top, robot, contacts, clearance),
         raw=json_copy(data, path),
         clearance=clearance,
+        torque_reserve=reserve,
         requirements=read_requirements(top, weight=weight, duration=duration,
                                        hand_targets=hand_targets, disturbances=disturbances),
         schedule=schedule,
@@ -537,12 +558,16 @@ def read_disturbances(top: Fields, robot) -> list[DisturbanceSpec]:
         return [DisturbanceSpec(robot.hand_frame, "force", np.eye(3))]
     if not isinstance(items, list) or not items:
         top.fail("disturbances", "a non-empty list of disturbance points", items)
-    return [read_disturbance(Fields(item, top.file, top.at(f"disturbances[{i}]"), TaskError), robot)
-            for i, item in enumerate(items)]
+    points = [read_disturbance(Fields(item, top.file, top.at(f"disturbances[{i}]"), TaskError), robot)
+              for i, item in enumerate(items)]
+    if not any(d.objective_weight > 0 for d in points):
+        top.fail("disturbances", "at least one point with objective_weight > 0",
+                 [d.objective_weight for d in points])
+    return points
 
 
 def read_disturbance(spec: Fields, robot) -> DisturbanceSpec:
-    spec.allow_only({"frame", "kind", "shape", "expected", "length_scale"})
+    spec.allow_only({"frame", "kind", "shape", "expected", "length_scale", "objective_weight"})
     frame = check_frame(spec, "frame", robot, spec.string("frame", robot.hand_frame))
     kind = spec.string("kind", "force", choices=list(DISTURBANCE_DIMS))
     given = [key for key in ("shape", "expected", "length_scale") if spec.has(key)]
@@ -562,7 +587,7 @@ def read_disturbance(spec: Fields, robot) -> DisturbanceSpec:
         shape = wrench_shape(spec.number("length_scale", lo=0.0, lo_open=True, hi=100.0))
     if not np.any(shape):
         spec.fail("shape", "a shape matrix with a non-zero entry", shape.tolist())
-    return DisturbanceSpec(frame, kind, shape)
+    return DisturbanceSpec(frame, kind, shape, spec.number("objective_weight", 1.0, lo=0.0, hi=1e3))
 
 
 def read_expected_pushes(expected: Fields) -> np.ndarray:

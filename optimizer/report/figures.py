@@ -36,7 +36,8 @@ SIZES = {
 
 CAPTIONS = {
     "margin": "Smallest unrejectable force over time. Lines: the plan's own certified linear-gain margin; "
-              "markers: the exact figure from certification; rings mark each plan's smallest exact margin.",
+              "markers: the certified figure (exact, or its proven lower bound where only bounds were "
+              "computed); rings mark each plan's smallest.",
     "torque_use": "Torque use |tau| / limit per joint over time, one heat map per plan; the box marks the peak.",
     "friction_use": "Left: friction use per contact (1 = the force lies on its friction pyramid). "
                     "Right: normal force per contact; the dotted line is the required minimum.",
@@ -45,7 +46,7 @@ CAPTIONS = {
                          "the smallest-margin knot; the limits that decide it are listed below.",
     "polytope_cut": "At each plan's smallest-margin knot: the set of disturbance forces the robot can "
                     "reject (shaded), cut by the plane of its weakest direction and the weakest direction "
-                    "orthogonal to it. The dashed circle has the exact margin as radius.",
+                    "orthogonal to it. The dashed circle has the certified margin as radius.",
     "hand_path": "Hand path of each plan with the task's hand targets.",
 }
 
@@ -76,7 +77,7 @@ def _legend_handle(name: str) -> Line2D:
 
 
 def _plot_top(entries) -> float:
-    """Upper y limit of the margin plot [N]: every planned value, exact values below a tenth of the cap."""
+    """Upper y limit of the margin plot [N]: every planned value, certified values below a tenth of the cap."""
     values = [0.0]
     for e in entries:
         values += list(e.plan.margin)
@@ -91,7 +92,7 @@ def newtons(x: float) -> str:
 
 
 def margin_figure(entries) -> Figure:
-    """Planned (lines) and exact (markers) margin over time, every plan on one axis."""
+    """Planned (lines) and certified (markers) margin over time, every plan on one axis."""
     fig = _figure("margin")
     ax = fig.add_subplot()
     top = _plot_top(entries)

@@ -4,7 +4,7 @@ Each panel shows one plan at one knot: the terrain's surfaces, the links
 (thick segments between joint origins, in the plan's colour), the trunk
 outline, the feet with their friction pyramids (edges shaded by how much
 friction the foot uses), the hand, the hand targets, and the weakest
-direction as an arrow from the hand whose length is proportional to the exact
+direction as an arrow from the hand whose length is proportional to the certified
 margin at that knot. :func:`keyframe_strip` writes a PNG of chosen knots (one
 row per plan); :func:`animation` writes a GIF with every plan side by side.
 """

@@ -16,7 +16,7 @@ from .. import __version__
 from ..notices import MODEL_ONLY, SAFETY
 from . import palette
 from .figures import CAPTIONS, FIGURES
-from .table import COLUMNS, cell, entry_shortfalls, row
+from .table import COLUMNS, cell, entry_shortfalls, row, titles
 
 TITLE = "brace comparison"
 
@@ -103,9 +103,16 @@ def task_facts(meta: dict, entries) -> list[tuple[str, str]]:
         targets.append(f"{t.get('label') or 'target'} at ({', '.join(f'{x:.2f}' for x in t['position'])}) m, {when}")
     if targets:
         facts.append(("hand targets", "; ".join(targets)))
-    d = meta["disturbances"][0]
+    points = meta["disturbances"]
+    d = points[0]
     facts.append(("disturbance", f"a {d['kind']} of unknown direction at {d['frame']}; the margin is the smallest "
                                  "such push the robot could not reject within its torque limits and friction"))
+    if len(points) > 1:
+        others = ", ".join(f"point {i}: a {p['kind']} at {p['frame']}" for i, p in enumerate(points) if i)
+        facts.append(("more points", f"{others}; each has its own margin (robust objectives combine them: "
+                                     f"{meta.get('combine_points', 'smallest')}). Figures, key frames and the margin "
+                                     f"columns show point 0 ({d['frame']}); 'exact min per point' and the "
+                                     "certification below cover every point"))
     facts.append(("compared", ", ".join(e.name for e in entries)))
     return facts
 
@@ -133,7 +140,7 @@ def reading(entries) -> list[str]:
     best = ranked[0]
     low = best.smallest
     out.append(f"{_swatch(best.name)}<b>{_e(best.name)}</b> is the most robust over the whole motion: its smallest "
-               f"exact margin is <b>{_newtons(low.rho)}</b>, at t = {low.time:.2f} s.")
+               f"{best.figure} margin is <b>{_newtons(low.rho)}</b>, at t = {low.time:.2f} s.")
     for other in ranked[1:]:
         o = other.smallest
         if o.rho < 0.01 * low.rho:
@@ -146,7 +153,7 @@ def reading(entries) -> list[str]:
                    f"t = {o.time:.2f} s{ratio}.")
     by_mean = max(solved, key=lambda e: float(e.exact.mean()))
     out.append(f"On average over the knots, {_swatch(by_mean.name)}<b>{_e(by_mean.name)}</b> keeps the most margin "
-               f"({_newtons(float(by_mean.exact.mean()))} mean exact).")
+               f"({_newtons(float(by_mean.exact.mean()))} mean {by_mean.figure}).")
     for e in ranked:
         s = e.smallest
         names = ", ".join(s.bottleneck[:3]) + (f" and {len(s.bottleneck) - 3} more" if len(s.bottleneck) > 3 else "")
@@ -165,10 +172,11 @@ def reading(entries) -> list[str]:
 
 def table_html(entries) -> str:
     """The comparison table as an HTML table (same numbers as ``summary.csv``)."""
-    head = "".join(f'<th class="{"text" if not spec else "num"}">{_e(title)}</th>' for _, title, spec in COLUMNS)
+    rows = [row(e) for e in entries]
+    head = "".join(f'<th class="{"text" if not spec else "num"}">{_e(title)}</th>'
+                   for (_, _, spec), title in zip(COLUMNS, titles(rows)))
     body = []
-    for e in entries:
-        r = row(e)
+    for e, r in zip(entries, rows):
         cells = []
         for key, _, spec in COLUMNS:
             text = _e(cell(r[key], spec))
@@ -180,7 +188,7 @@ def table_html(entries) -> str:
 
 
 def certification_html(entries) -> str:
-    """Per plan: certified or not, smallest exact margin, planned/exact range, usual bottleneck."""
+    """Per plan: certified or not, smallest certified margin, planned/figure range, usual bottleneck."""
     items = []
     for e in entries:
         if not e.ok:
@@ -189,15 +197,23 @@ def certification_html(entries) -> str:
         verdict = ('<span class="certified">certified</span>' if s["certified"]
                    else '<span class="not-certified">NOT certified</span>')
         ratio = ("" if s["planned_over_exact_min"] is None else
-                 f"; planned / exact {s['planned_over_exact_min']:.3f} to {s['planned_over_exact_max']:.3f} "
+                 f"; planned / {s['figure']} {s['planned_over_exact_min']:.3f} to {s['planned_over_exact_max']:.3f} "
                  "(1 = the plan's own margin is tight)")
         usual = ("" if not s["most_frequent_bottleneck"] else
                  f"; most frequent bottleneck {_e(s['most_frequent_bottleneck'])} "
                  f"({s['bottleneck_knots']} of {s['knots']} knots)")
-        problems = "".join(f"<li>{_e(p)}</li>" for p in s["problems"])
-        items.append(f"<li>{_swatch(e.name)}<b>{_e(e.name)}</b>: {verdict}, {s['knots']} knots checked exactly; "
-                     f"smallest {_number(s['smallest_rho_N'])} N at t = {_number(s['smallest_at_time_s'])} s"
-                     f"{ratio}{usual}.{'<ul>' + problems + '</ul>' if problems else ''}</li>")
+        if e.others:
+            verdict = ('<span class="certified">certified</span>' if not e.problems()
+                       else '<span class="not-certified">NOT certified</span>')
+        problems = "".join(f"<li>{_e(p)}</li>" for p in e.problems())
+        where = f" at point 0 ({_e(e.certificate.disturbance['frame'])})" if e.others else ""
+        more = "".join(f"; point {c.disturbance['index']} ({_e(c.disturbance['frame'])}): smallest "
+                       f"{c.summary()['figure']} {_number(c.summary()['smallest_rho_N'])} N at t = "
+                       f"{_number(c.summary()['smallest_at_time_s'])} s" for c in e.others)
+        items.append(f"<li>{_swatch(e.name)}<b>{_e(e.name)}</b>: {verdict}, {s['knots']} knots checked "
+                     f"({s['exact_knots']} exact); smallest {s['figure']} {_number(s['smallest_rho_N'])} N{where} at t = "
+                     f"{_number(s['smallest_at_time_s'])} s"
+                     f"{more}{ratio}{usual}.{'<ul>' + problems + '</ul>' if problems else ''}</li>")
     return f"<ul>{''.join(items)}</ul>" if items else "<p>No plan to certify.</p>"
 
 
@@ -230,7 +246,7 @@ def section_html(title: str, meta: dict, entries, folder: str, files: list[str])
                              "Key frames, one row per plan: start, each hand target, the end, and last the plan's "
                              "weakest moment. Links in the plan's colour; friction pyramids at the feet shaded "
                              "by friction use (light: little, dark: near slipping); magenta crosses: hand "
-                             "targets; red arrow: weakest direction, length proportional to the exact margin."))
+                             "targets; red arrow: weakest direction, length proportional to the certified margin."))
         parts.append(_figure(_path(folder, "motion.gif"), "animation",
                              "The plans side by side in real time (the printed page shows the first frame)."))
     parts.append("<h3>Certification</h3>" + certification_html(entries))

@@ -23,6 +23,9 @@ Sources, in order (see ``models/stilt.yaml``, section ``collision``):
    that link and uses the listed ones (an empty list: the link has none);
    ``collision.add: {link: [shapes]}`` adds shapes.
 
+``collision.self_pairs`` names shapes that must keep apart from each other
+(:mod:`optimizer.robot.self_pairs`); none by default.
+
 Robot-file shapes: ``{sphere: {center: [x, y, z], radius}}`` or
 ``{capsule: {from: [x, y, z], to: [x, y, z], radius}}``, m, link frame.
 
@@ -43,8 +46,9 @@ import pinocchio as pin
 
 from ..errors import ModelError
 from ..schema import Fields
+from .self_pairs import read_self_pairs
 
-COLLISION_FIELDS = ("radius", "exempt_radius", "replace", "add")
+COLLISION_FIELDS = ("radius", "exempt_radius", "replace", "add", "self_distance", "self_pairs")
 DEFAULT_EXEMPT_RADIUS = 0.05   # m
 
 
@@ -86,10 +90,15 @@ class CollisionShape:
 
 @dataclass(frozen=True)
 class CollisionModel:
-    """All collision shapes of a robot and the foot exemption radius (m)."""
+    """All collision shapes of a robot, the foot exemption radius (m) and the self-collision pairs.
+
+    ``self_pairs`` holds :class:`~optimizer.robot.self_pairs.SelfPair` entries
+    (shape indices into ``shapes``, distance m).
+    """
 
     shapes: tuple
     exempt_radius: float
+    self_pairs: tuple = ()
 
     def point_table(self):
         """Every shape point: list of (shape index, point index within the shape)."""
@@ -214,7 +223,7 @@ def load_collision(fields: Fields, urdf_text: str, model: pin.Model) -> Collisio
             joint_points = points @ np.array(frame.placement.rotation).T + np.array(frame.placement.translation)
             shapes.append(CollisionShape(f"{link}/{kind}{index}", link, kind, np.array(points, float), float(r),
                                          int(frame.parentJoint), joint_points))
-    return CollisionModel(tuple(shapes), exempt)
+    return CollisionModel(tuple(shapes), exempt, read_self_pairs(section, shapes))
 
 
 def shape_points_world(model: pin.Model, data: pin.Data, shapes) -> list[np.ndarray]:

@@ -26,7 +26,7 @@ import pinocchio as pin
 
 from ..analysis.certify import certify_response
 from ..analysis.knot_response import PlanRobot, knot_response, torque_limits
-from ..analysis.linear_margin import best_linear_margin
+from ..errors import PlanFileError
 from .reference import PlanReference, pd_gains
 from .rollout import Push, Rollout, SurvivalRules
 from .scene import ContactSettings, build_scene
@@ -173,7 +173,7 @@ class Simulator:
         self.scene = build_scene(plan, surfaces, self.settings.contact, frames)
         angles = np.array([self.scene.joint_angles(q) for q in plan.q])
         self.reference = PlanReference(plan, angles, disturbance)
-        self.limits = torque_limits(plan.meta)
+        self.limits = actuator_limits(plan.meta)
         self._robot = PlanRobot(plan.meta, disturbance)
         stance = stance_joints(self._robot, plan)
         full_error = np.where(stance, self.settings.stance_full_error, self.settings.full_error)
@@ -228,7 +228,7 @@ class Simulator:
         cert, response = self.certified_direction(k)
         margin = float(self.plan.margin[k]) if self.disturbance == 0 else float(self.plan.margins[k, self.disturbance])
         u_dir = np.asarray(cert.weakest_u, float) / np.linalg.norm(cert.weakest_u)
-        limit = linear_limit_along(response, u_dir)
+        limit = linear_limit_along(response, u_dir, self.reference.response_gains(k))
         scale = max(margin, SMALLEST_SCALE * self.weight)
         start = self.push_at(k, 0.0, u_dir).start
         trials, last = 0, ""
@@ -278,6 +278,20 @@ class Simulator:
         return self.rollout(mode).run(push.ends + s.settle, push, s.rules, watch_from=begin)
 
 
+def actuator_limits(meta: dict) -> tuple[np.ndarray, np.ndarray]:
+    """Torque limits (lower, upper), (nj,) each [N m], of the actuators the replay clips at.
+
+    A plan made with a ``torque_reserve`` r meets (and is certified against)
+    its ``torque_limits``, the actuators' limits times ``1 - r``; the reserve
+    is for the tracking controller, so the replay clips at the actuators' own.
+    """
+    lower, upper = torque_limits(meta)
+    reserve = float(meta.get("torque_reserve", 0.0))
+    if not 0.0 <= reserve < 1.0:
+        raise PlanFileError("plan", "meta.torque_reserve", "a fraction in [0, 1)", reserve)
+    return lower / (1.0 - reserve), upper / (1.0 - reserve)
+
+
 def stance_joints(robot: PlanRobot, plan) -> np.ndarray:
     """Joints (nj,) that move a contact in stance at the first knot (non-zero contact Jacobian column)."""
     jc, _ = robot.jacobians(plan.q[0])
@@ -285,15 +299,15 @@ def stance_joints(robot: PlanRobot, plan) -> np.ndarray:
     return np.abs(jc[rows, 6:]).max(axis=0, initial=0.0) > 1e-9
 
 
-def linear_limit_along(response, u_dir) -> float:
+def linear_limit_along(response, u_dir, gains) -> float:
     """Push size [N] along unit ``u_dir`` at which the informed response meets its first limit.
 
     Each limit row ``a_u . u + a_lambda . dlambda <= b`` with ``dlambda = K u``
+    (``gains`` K, shape (3 na, d): the response informed mode applies)
     reaches its room at ``b / ((a_u + K^T a_lambda) . u_dir)`` when that rate
     is positive (the same rows as the linear-gain margin, one-sided).
     """
     rows = response.limit_rows()
-    gains = best_linear_margin(rows).gains
     d = rows.dim
     rate = (rows.a_ub[:, :d] + rows.a_ub[:, d:] @ gains) @ u_dir
     with np.errstate(divide="ignore", invalid="ignore"):

@@ -19,9 +19,10 @@ step can stabilize.
 Informed mode: the torque change that rejects a push ``F = W u`` at the
 disturbance frame is ``dtau = D_k u`` with
 ``D_k = -(Jc_j^T K_k + Je_j^T W)`` (the joint rows of the response balance,
-:mod:`optimizer.analysis.response`), ``K_k`` the best linear response gains
-of knot k (:func:`optimizer.analysis.linear_margin.best_linear_margin`), the
-gains behind the plan's margin figure; ``D`` is interpolated like the torques.
+:mod:`optimizer.analysis.response`), ``K_k`` the gains behind the plan's
+certified figure at knot k (:func:`optimizer.analysis.linear_margin.plan_margin`:
+the plan's own stored response gains, else the best linear response);
+``D`` is interpolated like the torques.
 """
 from __future__ import annotations
 
@@ -31,7 +32,8 @@ import numpy as np
 import pinocchio as pin
 
 from ..analysis.knot_response import PlanRobot, knot_response
-from ..analysis.linear_margin import best_linear_margin
+from ..analysis.linear_margin import plan_margin
+from ..planfile import response_gains
 
 
 @dataclass
@@ -93,7 +95,9 @@ class PlanReference:
         self.disturbance = disturbance
         self._robot = None
         self._gains: dict = {}
+        self._stored = response_gains(plan, disturbance)
         self.certified: dict = {}
+        self.response: dict = {}
 
     @property
     def duration(self) -> float:
@@ -118,17 +122,23 @@ class PlanReference:
         return ((1 - s) * self.q[k] + s * self.q[k + 1], (1 - s) * self.v[k] + s * self.v[k + 1],
                 (1 - s) * self.tau[k] + s * self.tau[k + 1])
 
-    def torque_gains(self, k: int) -> np.ndarray:
-        """``D_k`` (nj, d): joint torque change per unit disturbance coordinate at knot k."""
-        if k not in self._gains:
+    def response_gains(self, k: int) -> np.ndarray:
+        """``K_k`` (3 na, d): contact force change per unit disturbance coordinate at knot k."""
+        if k not in self.response:
             if self._robot is None:
                 self._robot = PlanRobot(self.plan.meta, self.disturbance)
             response = knot_response(self.plan, k, self._robot)
-            margin = best_linear_margin(response.limit_rows())
+            margin = plan_margin(response.limit_rows(), None if self._stored is None else self._stored[k])
             _, jc_j, _, je_j = response.split()
             cols = np.flatnonzero(np.repeat(np.asarray(response.active, bool), 3))
+            self.response[k] = margin.gains
             self._gains[k] = -(jc_j[cols].T @ margin.gains + je_j.T)
             self.certified[k] = margin.rho
+        return self.response[k]
+
+    def torque_gains(self, k: int) -> np.ndarray:
+        """``D_k`` (nj, d): joint torque change per unit disturbance coordinate at knot k."""
+        self.response_gains(k)
         return self._gains[k]
 
     def informed_torque(self, t: float, u) -> np.ndarray:

@@ -1,15 +1,12 @@
 """The task's terrain as solid shapes a physics engine can collide with.
 
-Every terrain kind of :mod:`optimizer.problem.terrain` is a union of
-half-spaces (a plane, with solid below it) and boxes:
-
-``flat``     one plane;
-``blocks``   the floor plane plus one box per block, its top face at the
-             block's height and its bottom 0.1 m under the floor;
-``ramp``     one inclined plane through ``origin``;
-``trench``   the bottom plane and the two wall planes (each wall plane lies
-             under the other wall and under the bottom, so the union is the V);
-``ceiling``  the floor plane and the ceiling plane, facing down.
+The shapes come from the one description of every terrain kind's geometry,
+its ``geometry()`` (:mod:`optimizer.problem.terrain`,
+:mod:`optimizer.problem.geometry`), the same planes and boxes the clearance
+rows keep away from: a plane becomes a half-space (solid on the side
+opposite its normal), a box a solid box whose bottom reaches
+``BLOCK_FOOTING`` lower (so a block standing on the floor overlaps it and
+no seam opens between the two).
 
 A task with explicit contacts (no terrain) gets one pad per contact: a box
 0.3 m square and 0.05 m thick whose top face holds the foothold, normal to
@@ -23,7 +20,7 @@ import numpy as np
 
 from ..errors import TaskError
 from ..problem.friction import tangent_basis
-from ..problem.terrain import UP, build_terrain, slope_normal
+from ..problem.terrain import build_terrain
 from ..schema import Fields
 
 BLOCK_FOOTING = 0.1  # m a block reaches below the floor, so block and floor overlap
@@ -66,48 +63,19 @@ def plane(name: str, point, normal) -> Surface:
     return Surface(name, "plane", np.asarray(point, float), frame_of_normal(normal), np.zeros(3))
 
 
-def _flat(t) -> list:
-    return [plane("ground", [0.0, 0.0, t.height], UP)]
-
-
-def _blocks(t) -> list:
-    out = [plane("floor", [0.0, 0.0, t.floor_height], UP)]
-    bottom = t.floor_height - BLOCK_FOOTING
-    for i, b in enumerate(t.blocks):
-        low = min(bottom, b["height"] - BLOCK_FOOTING)
-        centre = np.array([b["center"][0], b["center"][1], 0.5 * (b["height"] + low)])
-        half = np.array([b["half"][0], b["half"][1], 0.5 * (b["height"] - low)])
-        out.append(Surface(f"block{i}", "box", centre, np.eye(3), half))
-    return out
-
-
-def _ramp(t) -> list:
-    return [plane("ramp", t.origin, slope_normal(t.angle, t.uphill))]
-
-
-def _trench(t) -> list:
-    edge = t.half_width
-    return [plane("bottom", [0.0, t.center_y, t.bottom], UP),
-            plane("left", [0.0, t.center_y + edge, t.bottom], slope_normal(t.angle, (0.0, 1.0))),
-            plane("right", [0.0, t.center_y - edge, t.bottom], slope_normal(t.angle, (0.0, -1.0)))]
-
-
-def _ceiling(t) -> list:
-    return [plane("floor", [0.0, 0.0, t.floor], UP), plane("ceiling", [0.0, 0.0, t.ceiling], -UP)]
-
-
-SURFACES = {"flat": _flat, "blocks": _blocks, "ramp": _ramp, "trench": _trench, "ceiling": _ceiling}
+def solid(surface) -> Surface:
+    """The solid of one terrain surface (:class:`optimizer.problem.geometry.Surface`, world frame, m)."""
+    if surface.kind == "plane":
+        return plane(surface.name, surface.offset * surface.normal, surface.normal)
+    lower = np.array(surface.lower, float)
+    lower[2] = min(lower[2], surface.upper[2]) - BLOCK_FOOTING
+    return Surface(surface.name, "box", 0.5 * (lower + surface.upper), np.eye(3), 0.5 * (surface.upper - lower))
 
 
 def terrain_surfaces(terrain_mapping: dict, file) -> list:
     """Shapes of a task's ``stance.terrain`` mapping (validated as in a task file)."""
-    fields = Fields(terrain_mapping, file, "stance.terrain", TaskError)
-    terrain = build_terrain(fields)
-    kind = terrain_mapping["kind"]
-    if kind not in SURFACES:  # pragma: no cover - a terrain kind added without its shapes
-        raise TaskError(file, "stance.terrain.kind", "a terrain kind the simulation can build: "
-                        + ", ".join(SURFACES), kind)
-    return SURFACES[kind](terrain)
+    terrain = build_terrain(Fields(terrain_mapping, file, "stance.terrain", TaskError))
+    return [solid(surface) for surface in terrain.geometry()]
 
 
 def contact_pads(footholds, normals) -> list:

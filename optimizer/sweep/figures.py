@@ -1,13 +1,16 @@
 """Sweep figures, drawn from the stored records alone.
 
-- ``margin_<axis>.png``: the smallest and the mean exact margin over the
+- ``margin_<axis>.png``: the smallest and the mean certified margin over the
   knots [N] against each swept parameter, one line per objective (with
   several axes: the median over the other axes, the band from their smallest
   to their largest value);
 - ``margin_map.png`` (two or more axes; the first two): per objective, the
-  smallest exact margin over the plane of the first two axes, unsolved
+  smallest certified margin over the plane of the first two axes, unsolved
   variants crossed out and the boundary where variants stop solving;
 - ``solved_share.png``: the share of variants solved per objective.
+
+Labels name what the margins are (:func:`figure_word`): exact, or the
+proven lower bound where certification computed only bounds.
 """
 from __future__ import annotations
 
@@ -15,6 +18,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..analysis.certify import common_figure
 from ..files import atomic_output
 from ..report import palette
 from ..report.palette import colour
@@ -22,6 +26,14 @@ from ..report.palette import colour
 MARGIN = "margin_min_exact_N"
 MEAN_MARGIN = "margin_mean_exact_N"
 UNSOLVED = "#ececec"   # background of the margin map: cells without a plan
+
+
+def figure_word(rows) -> str:
+    """What the certified margins of the solved ``rows`` are ("exact", "lower bound", ...).
+
+    Records written before ``margin_figure`` was stored say "certified".
+    """
+    return common_figure(r.get("margin_figure") or "certified" for r in rows if r.get("status") == "solved")
 
 
 def _number(value) -> float:
@@ -91,16 +103,16 @@ def margin_against(ax, rows, axis, axes, objectives, label, column=MARGIN) -> No
                             color=colour(objective), alpha=0.15, lw=0)
     ax.axhline(0.0, color=palette.MUTED, lw=0.8)
     ax.set_xlabel(label)
-    what = "smallest" if column == MARGIN else "mean"
-    ax.set_ylabel(f"{what} exact margin over the knots [N]")
+    what, word = "smallest" if column == MARGIN else "mean", figure_word(rows)
+    ax.set_ylabel(f"{what} {word} margin over the knots [N]")
     note = "\nmedian over the other axes; band: their range" if len(axes) > 1 else ""
-    ax.set_title(f"{what.capitalize()} exact margin against {label}{note}")
+    ax.set_title(f"{what.capitalize()} {word} margin against {label}{note}")
     if ax.get_legend_handles_labels()[0]:
         ax.legend(fontsize=8, title="objective", title_fontsize=8)
 
 
 def margin_map(fig, ax, rows, x_axis, y_axis, objective, labels) -> None:
-    """Smallest exact margin over two parameters; crosses where the variant did not solve.
+    """Smallest certified margin over two parameters; crosses where the variant did not solve.
 
     On a full grid each variant is a cell and the boundary where variants
     stop solving is drawn along the cell edges; scattered samples are drawn
@@ -113,20 +125,21 @@ def margin_map(fig, ax, rows, x_axis, y_axis, objective, labels) -> None:
     value = np.array([_number(r.get(MARGIN)) if r["status"] == "solved" else np.nan for r in mine])
     xs, ys = np.unique(x), np.unique(y)
     top = np.nanmax(value) if np.isfinite(value).any() else 1.0
+    label = f"smallest {figure_word(mine)} margin [N]"
     if len(xs) * len(ys) == len(mine) and len(xs) > 1 and len(ys) > 1:
-        _grid_map(fig, ax, x, y, ok, value, xs, ys, top)
+        _grid_map(fig, ax, x, y, ok, value, xs, ys, top, label)
     else:
         finite = ok & np.isfinite(value)
         if finite.any():
             points = ax.scatter(x[finite], y[finite], c=value[finite], cmap="viridis", s=40, vmin=0.0, vmax=top)
-            fig.colorbar(points, ax=ax, label="smallest exact margin [N]")
+            fig.colorbar(points, ax=ax, label=label)
         ax.margins(0.08)
     if (~ok).any():
         ax.scatter(x[~ok], y[~ok], marker="x", color=palette.DANGER, s=50, zorder=3)
     ax.set_facecolor(UNSOLVED)
     ax.set_xlabel(labels[x_axis])
     ax.set_ylabel(labels[y_axis])
-    ax.set_title(f"{objective}: smallest exact margin [N]" + ("  (x: not solved)" if (~ok).any() else ""),
+    ax.set_title(f"{objective}: {label}" + ("  (x: not solved)" if (~ok).any() else ""),
                  color=colour(objective))
     ax.grid(False)
 
@@ -137,7 +150,7 @@ def _edges(centres: np.ndarray) -> np.ndarray:
     return np.concatenate([[2 * centres[0] - mid[0]], mid, [2 * centres[-1] - mid[-1]]])
 
 
-def _grid_map(fig, ax, x, y, ok, value, xs, ys, top) -> None:
+def _grid_map(fig, ax, x, y, ok, value, xs, ys, top, label: str) -> None:
     grid = np.full((len(ys), len(xs)), np.nan)
     solved = np.zeros((len(ys), len(xs)), dtype=bool)
     for xi, yi, oi, vi in zip(x, y, ok, value):
@@ -146,7 +159,7 @@ def _grid_map(fig, ax, x, y, ok, value, xs, ys, top) -> None:
     ex, ey = _edges(xs), _edges(ys)
     mesh = ax.pcolormesh(ex, ey, np.ma.masked_invalid(grid), cmap="viridis", vmin=0.0, vmax=top,
                          edgecolors="white", linewidth=0.5)
-    fig.colorbar(mesh, ax=ax, label="smallest exact margin [N]")
+    fig.colorbar(mesh, ax=ax, label=label)
     for i, yi in enumerate(ys):
         for j, xi in enumerate(xs):
             if solved[i, j] and np.isfinite(grid[i, j]):

@@ -18,13 +18,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..analysis.certify import certify_plan
+from ..analysis.certify import certify_points
 from ..analysis.failure import diagnose, report_lines
 from ..analysis.margin_flags import certificate_shortfalls, plan_requirements, unmet
 from ..analysis.presolve import run_checks
 from ..errors import InputError
 from ..planfile import knot_surfaces
-from ..planner import Planner
+from ..planner import DEFAULT_EVALUATION, Planner
 from .variant import build_task
 
 SOLVED, FAILED, TIMEOUT, ERROR = "solved", "failed", "timeout", "error"
@@ -39,7 +39,8 @@ class VariantJob:
     ``task_path`` the base task file it resolves paths against, ``model`` the
     model quantities, ``objectives`` those still to solve, ``time_limit`` [s]
     for all of them, ``warm`` the neighbour's solved arrays per stage (or
-    empty) and ``warm_from`` that neighbour's id.
+    empty), ``warm_from`` that neighbour's id and ``evaluation`` how the
+    worker's planner evaluates the NLP (:data:`optimizer.planner.EVALUATIONS`).
     """
 
     id: str
@@ -51,6 +52,7 @@ class VariantJob:
     time_limit: float
     warm: dict = field(default_factory=dict)
     warm_from: str = ""
+    evaluation: str = DEFAULT_EVALUATION
 
 
 @dataclass
@@ -84,15 +86,14 @@ def run_variant(job: VariantJob) -> VariantResult:
         return VariantResult(job.id, [_failure(job, base, o, ERROR, text, started) for o in job.objectives])
 
 
-_PLANNER = None
+_PLANNERS: dict[str, Planner] = {}
 
 
-def worker_planner():
+def worker_planner(evaluation: str = DEFAULT_EVALUATION):
     """This worker process's planner: its built solvers serve every variant of one shape."""
-    global _PLANNER
-    if _PLANNER is None:
-        _PLANNER = Planner()
-    return _PLANNER
+    if evaluation not in _PLANNERS:
+        _PLANNERS[evaluation] = Planner(evaluation=evaluation)
+    return _PLANNERS[evaluation]
 
 
 def _solve_variant(job: VariantJob, base: dict, started: float) -> VariantResult:
@@ -105,7 +106,7 @@ def _solve_variant(job: VariantJob, base: dict, started: float) -> VariantResult
     if proven:
         reason = "pre-solve: " + proven[0].text()
         return VariantResult(job.id, [_failure(job, base, o, FAILED, reason, started) for o in job.objectives])
-    planner = worker_planner()
+    planner = worker_planner(job.evaluation)
     seed = planner.seed(task, start=job.warm.get("feasible"))
     out = VariantResult(job.id, [])
     if not seed.success:
@@ -196,12 +197,22 @@ def plan_figures(plan) -> dict:
 
 
 def _exact_figures(plan) -> dict:
-    """The exact smallest unrejectable force of every knot (``brace certify``'s figure) [N], and its time [s]."""
+    """The exact smallest unrejectable force (``brace certify``'s figure) [N] and its time [s].
+
+    ``margin_min_exact_N`` and ``margin_mean_exact_N`` are disturbance point
+    0's; ``margin_min_exact_all_points_N`` the smallest over every point and
+    ``weakest_point`` the point where it is; low-margin knots and the
+    requirement cover every point.
+    """
     started = time.perf_counter()
-    certificate = certify_plan(plan)
-    rho = np.array([c.rho for c in certificate.knots], float)
-    shortfalls = certificate_shortfalls(certificate, plan, plan_requirements(plan.meta))
-    return {"margin_min_exact_N": float(np.min(rho)), "margin_mean_exact_N": float(np.mean(rho)),
+    certificate = certify_points(plan)
+    rho = [np.array([c.rho for c in point.knots], float) for point in certificate.points]
+    needed = plan_requirements(plan.meta)
+    shortfalls = [s for point in certificate.points for s in certificate_shortfalls(point, plan, needed)]
+    weakest = int(np.argmin([np.min(r) for r in rho]))
+    return {"margin_min_exact_N": float(np.min(rho[0])), "margin_mean_exact_N": float(np.mean(rho[0])),
+            "margin_min_exact_all_points_N": float(np.min(rho[weakest])), "weakest_point": weakest,
+            "margin_figure": certificate.points[0].figure,
             "low_margin_knots": sum(s.last - s.first + 1 for s in shortfalls if not s.required),
             "requirement_met": not unmet(shortfalls),
             "certify_time_s": time.perf_counter() - started}

@@ -12,16 +12,16 @@ from pathlib import Path
 from ..files import atomic_output
 from ..report import palette
 from ..report.page import page_html
-from .figures import MARGIN, MEAN_MARGIN
+from .figures import MARGIN, MEAN_MARGIN, figure_word
 
 PAGE = "report.html"
 TITLE = "brace sweep"
 NOTE = ("A sweep maps how the model's margins change with the task; a variant that solved is no more "
         "safe to run than any other plan.")
 FIGURE_CAPTIONS = {
-    "margin_": "Smallest (left) and mean (right) exact margin over the knots against this parameter, "
+    "margin_": "Smallest (left) and mean (right) certified margin over the knots against this parameter, "
                "one line per objective: the median over the other parameters, the band their range.",
-    "margin_map": "Smallest exact margin over the first two parameters, per objective; crossed cells did not solve.",
+    "margin_map": "Smallest certified margin over the first two parameters, per objective; crossed cells did not solve.",
     "solved_share": "Share of the variants each objective solved.",
 }
 
@@ -72,7 +72,7 @@ def findings(manifest: dict, rows: list[dict]) -> list[str]:
         if solved:
             smallest = min(float(r[MARGIN]) for r in solved)
             best = max(float(r[MARGIN]) for r in solved)
-            text += f"; smallest exact margin from {smallest:.1f} N to {best:.1f} N across them"
+            text += f"; smallest {figure_word(solved)} margin from {smallest:.1f} N to {best:.1f} N across them"
             low = [r["variant"] for r in solved if int(r.get("low_margin_knots") or 0) > 0]
             unmet = [r["variant"] for r in solved if str(r.get("requirement_met")).lower() == "false"]
             if low:
@@ -87,7 +87,7 @@ def results_table(manifest: dict, rows: list[dict]) -> str:
     """Every stored result, one row each, with links to its plan file."""
     axes = [a["name"] for a in manifest["axes"]]
     head = ["variant", *[a.get("label", a["name"]) for a in manifest["axes"]], "objective", "status",
-            "smallest exact [N]", "mean exact [N]", "low-margin knots", "requirement met", "plan or reason"]
+            f"smallest {figure_word(rows)} [N]", f"mean {figure_word(rows)} [N]", "low-margin knots", "requirement met", "plan or reason"]
     out = ['<table class="numbers"><tr>' + "".join(f'<th class="text">{_e(h)}</th>' for h in head) + "</tr>"]
     for r in sorted(rows, key=lambda r: (r["variant"], r["objective"])):
         ok = r.get("status") == "solved"

@@ -17,6 +17,7 @@ from pathlib import Path
 
 from ..errors import SweepError
 from ..files import read_text, read_yaml_mapping
+from ..planner import DEFAULT_EVALUATION
 from ..problem.task import load_task
 from . import store
 from .job import ERROR, SOLVED, ObjectiveResult, VariantJob, VariantResult
@@ -65,10 +66,11 @@ class SweepOutcome:
     engine: str
 
 
-def run_sweep(sweep, out, engine, report=None) -> SweepOutcome:
+def run_sweep(sweep, out, engine, report=None, evaluation: str = DEFAULT_EVALUATION) -> SweepOutcome:
     """Solve every variant of ``sweep`` not yet stored in ``out`` on ``engine``.
 
-    ``report(progress)`` is called after every stored result. Returns a
+    ``report(progress)`` is called after every stored result; ``evaluation``
+    is how the workers evaluate the NLP (:class:`optimizer.planner.Planner`). Returns a
     :class:`SweepOutcome`; the summary is written even when interrupted.
     """
     out = Path(out)
@@ -93,7 +95,7 @@ def run_sweep(sweep, out, engine, report=None) -> SweepOutcome:
                 progress.reused_solved += record.get("status") == SOLVED
         if todo:
             jobs.append((variant, VariantJob(variant.id, variant.values, mapping, str(sweep.task_path), model, todo,
-                                             sweep.time_limit), digests))
+                                             sweep.time_limit, evaluation=evaluation), digests))
     interrupted = False
     try:
         _schedule(sweep, out, engine, jobs, progress, report)

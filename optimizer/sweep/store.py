@@ -28,8 +28,8 @@ from ..planfile import save_plan
 
 MANIFEST = "sweep.json"
 FORMAT = "sweep-results/1"
-FIGURES = ("margin_min_planned_N", "margin_mean_planned_N", "margin_min_exact_N", "margin_mean_exact_N",
-           "low_margin_knots", "requirement_met", "peak_torque_use", "peak_friction_use", "seed_iterations", "iterations", "seed_time_s",
+FIGURES = ("margin_min_planned_N", "margin_mean_planned_N", "margin_min_exact_N", "margin_mean_exact_N", "margin_figure",
+           "margin_min_exact_all_points_N", "weakest_point", "low_margin_knots", "requirement_met", "peak_torque_use", "peak_friction_use", "seed_iterations", "iterations", "seed_time_s",
            "solve_time_s", "build_time_s", "certify_time_s", "wall_time_s")
 LEADING = ("variant",)
 TRAILING = ("objective", "status", "reason") + FIGURES + ("warm_start_from", "worker", "plan")

@@ -65,6 +65,8 @@ for _name, _words, _hint in (
     ("limit rooms", "room left at each limit", "a posture that loads the limits less, or a smaller disturbance shape"),
     ("margin floor", "robustness: the floor under every margin", "solve with --objective robust to see the margins "
      "knot by knot"),
+    ("point floor", "robustness: the smallest weighted margin of several disturbance points", "lower the "
+     "objective_weight of the named point, or combine_points: weighted-sum"),
 ):
     register_family(_name, _words, _hint)
 

@@ -55,6 +55,7 @@ class KnotFunctions:
         self.robust = [self._robust(p, slot) for p, slot in enumerate(structure.disturbances)]
         self.hand = {frame: self._hand(frame) for frame in {s.frame for s in structure.targets}}
         self.clearance = self._clearance(shapes)
+        self.self_clearance = self._self_clearance(shapes)
 
     def _sym(self, name, rows=1, cols=1):
         return ca.SX.sym(name, rows, cols)
@@ -208,6 +209,34 @@ class KnotFunctions:
         world = points(q)
         values = ca.sum1(planes[:3, :] * world) - planes[3, :]
         return ca.Function("clearance", [q, planes], [values.T], ["q", "planes"], ["clearance"])
+
+    def _self_clearance(self, shapes) -> ca.Function | None:
+        """(q, planes (4, pairs), distances (pairs,)) -> (distance rows [m], norm rows (pairs,)), >= 0 when they hold.
+
+        Per pair ``(first, second)`` with separating plane ``(n, d)``
+        (:mod:`optimizer.problem.clearance`): ``n . a_i - d - r_a - distance``
+        for the first shape's points, then ``d - n . b_j - r_b`` for the
+        second's, pairs one after the other; and per pair ``1 - n . n``.
+        """
+        pairs = self.structure.self_pairs
+        if not pairs:
+            return None
+        used = sorted({s for pair in pairs for s in pair})
+        spans, points = {}, []
+        for s in used:
+            spans[s] = range(len(points), len(points) + len(shapes[s].points))
+            points += [(shapes[s].joint, p) for p in shapes[s].joint_points]
+        world = body_points_function(self.sym, points)
+        q, planes, distances = self._sym("q", self.nq), self._sym("planes", 4, len(pairs)), self._sym("distances", len(pairs))
+        at = world(q)
+        rows = []
+        for i, (a, b) in enumerate(pairs):
+            n, d = planes[:3, i], planes[3, i]
+            rows.append(ca.mtimes(n.T, at[:, spans[a].start:spans[a].stop]).T - d - shapes[a].radius - distances[i])
+            rows.append(d - ca.mtimes(n.T, at[:, spans[b].start:spans[b].stop]).T - shapes[b].radius)
+        norms = 1.0 - ca.sum1(planes[:3, :] * planes[:3, :]).T
+        return ca.Function("self_clearance", [q, planes, distances], [ca.vertcat(*rows), norms],
+                           ["q", "planes", "distances"], ["rows", "norms"])
 
     def _hand(self, frame: str) -> ca.Function:
         """(q, position (3,), rotation (9,)) -> (position error [m] (3,), orientation error (3,)).

@@ -13,14 +13,17 @@ none when the start configuration is fixed).
 """
 from __future__ import annotations
 
+import time
+
 import casadi as ca
 import numpy as np
 
 from ..problem.limits import FRICTION, NORMAL_FORCE, TORQUE
+from .compiled import compile_knot_functions
 from .constraints import ConstraintStack, register_family
 from .knot_functions import KnotFunctions
 from .layout import VectorLayout
-from .objectives import Context
+from .objectives import POINT_FLOOR, Context
 from .parameters import parameter_layout
 from .structure import Structure
 
@@ -40,6 +43,11 @@ register_family("swing", "swinging feet: touchdown at rest and the height at mid
                 "foothold nearer the body")
 register_family("terrain clearance", "clearance: collision shapes kept away from the terrain (link vs surface)",
                 "move the hand targets or footholds away from the named surface, or lower clearance.distance")
+register_family("self clearance", "self-collision: shapes of the robot kept apart (shape vs shape)",
+                "move the hand targets away from the named shapes' links, or lower the pair's distance in the "
+                "robot file (collision.self_pairs)")
+register_family("self clearance planes", "self-collision: a pair's separating-plane normal within the unit ball "
+                "(shape vs shape)", "solve with more iterations; if a pair also keeps too close, see self clearance")
 
 
 def velocity_names(robot) -> list[str]:
@@ -69,17 +77,27 @@ class Transcription:
         Layouts of x (scaled) and p (physical).
     constraints : ConstraintStack
         Named groups of g with their bounds.
+    compile_failure : str or None
+        With ``compiled=True``: None when the knot functions are compiled
+        libraries (:mod:`optimizer.transcription.compiled`), else why they
+        stayed uncompiled; ``compile_time`` [s] is what compiling (or
+        loading the cached libraries) took.
     """
 
     def __init__(self, robot, symbolic, structure: Structure, objective, map_mode: str = "serial",
-                 torque_gains: str = "eliminated"):
+                 torque_gains: str = "eliminated", compiled: bool = False):
         self.robot, self.structure, self.objective = robot, structure, objective
         self.torque_gains = torque_gains
         self.weight = robot.mass * float(np.linalg.norm(robot.gravity))
         self.context = Context(self.weight, float(np.mean(np.maximum(abs(robot.torque_lower), abs(robot.torque_upper)))),
-                               structure.knots)
+                               structure.knots, len(structure.disturbances) if objective.robust else 0,
+                               structure.combine_points)
         self.functions = KnotFunctions(symbolic, structure, self.weight, torque_gains, robot.joint_names,
                                        robot.collision.shapes)
+        self.compiled = compiled
+        started = time.perf_counter()
+        self.compile_failure = compile_knot_functions(self.functions) if compiled else None
+        self.compile_time = time.perf_counter() - started  # [s] generating, compiling or loading the libraries
         self.map_mode = map_mode
         self.variables = self._variable_layout()
         self.parameters = parameter_layout(structure, robot)
@@ -92,10 +110,11 @@ class Transcription:
         self._hand_targets(V, P)
         self._swings(V, P)
         self._clearance(V, P)
+        self._self_clearance(V, P)
         if objective.robust:
             self._robustness(V, P)
-        objective.add_constraints(V, self.constraints, self.context, self.disturbance_count)
-        cost = objective.cost(V, P, self.context, self.disturbance_count)
+        objective.add_constraints(V, P, self.constraints, self.context)
+        cost = objective.cost(V, P, self.context)
         self.nlp = {"x": x, "p": p, "f": cost, "g": self.constraints.expression()}
         self.lbg, self.ubg = self.constraints.bounds()
 
@@ -113,6 +132,8 @@ class Transcription:
         layout.add("a", r.nv, K, scale=10.0)
         layout.add("tau", r.nj, K, scale=self.context.torque_scale)
         layout.add("lam", 3 * s.nc, K, scale=per_contact)
+        if s.self_pairs:
+            layout.add("separation", 4 * len(s.self_pairs), len(s.clearance_knots))
         if self.objective.robust:
             for p, slot in enumerate(s.disturbances):
                 layout.add(f"G{p}", 3 * s.nc * slot.dim, K, scale=per_contact)
@@ -231,6 +252,20 @@ class Transcription:
         self.constraints.add("terrain clearance", values, knots, 0.0, INF, unit="m",
                              who=list(self.structure.clearance_labels))
 
+    def _self_clearance(self, V, P):
+        """Every self-collision pair at least its distance apart, through its separating plane per knot."""
+        knots = self.structure.clearance_knots
+        if self.functions.self_clearance is None or not len(knots):
+            return
+        shapes, pairs = self.robot.collision.shapes, self.structure.self_pairs
+        planes = ca.reshape(V["separation"], 4, len(pairs) * len(knots))
+        values, norms = self._map(self.functions.self_clearance, len(knots))(
+            V["q"][:, knots.start:knots.stop], planes, ca.repmat(P["self_distances"], 1, len(knots)))
+        who = [label for (a, b), label in zip(pairs, self.structure.self_labels)
+               for _ in range(len(shapes[a].points) + len(shapes[b].points))]
+        self.constraints.add("self clearance", values, knots, 0.0, INF, unit="m", who=who)
+        self.constraints.add("self clearance planes", norms, knots, 0.0, INF, who=self.structure.self_labels)
+
     def _rooms(self, tau, lam, P):
         """Room left at every limit, (rows, K), for symbolic or numeric ``tau``, ``lam`` and parameters."""
         return self._map(self.functions.rooms, self.structure.knots)(
@@ -315,9 +350,14 @@ class Transcription:
         for p in range(self.disturbance_count):
             floor = 0.0 if required is None else np.asarray(required, float)[:, p] * (1.0 + REQUIREMENT_BACKOFF)
             L.set(lo, f"rho{p}", np.broadcast_to(floor, (K,))[None, :])
-        if "floor" in L:
-            L.set(lo, "floor", 0.0)
+        for name in ("floor", POINT_FLOOR):
+            if name in L:
+                L.set(lo, name, 0.0)
         self._swing_bounds(lo, hi)
+        if "separation" in L:  # each separating plane's normal within the unit ball (its row) and box (here)
+            planes = L["separation"]
+            box = np.tile([1.0, 1.0, 1.0, INF], planes.rows // 4)[:, None]
+            L.set(lo, "separation", -box), L.set(hi, "separation", box)
         if initial_posture is not None:
             q_lo_k, q_hi_k = L.get(lo, "q"), L.get(hi, "q")
             q_lo_k[:, 0] = q_hi_k[:, 0] = initial_posture

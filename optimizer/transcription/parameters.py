@@ -5,6 +5,7 @@ import numpy as np
 
 from ..problem.clearance import CLEARANCE_BACKOFF, world_points
 from ..problem.friction import pyramid_facets
+from ..problem.point_weights import normalized_weights
 from ..problem.schedule import terrain_top
 from .layout import VectorLayout
 from .structure import Structure
@@ -23,10 +24,12 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     knot (numbers, so a foot may move from the floor onto a wall); ``min_normal_force`` [N]; ``tau_lower``/``tau_upper`` (nj,) [N m];
     ``target_position`` (3, n_slots) [m]; ``target_rotation`` (9, n_slots),
     column-major rotation matrices; ``shape<p>`` (d*d,) per disturbance;
+    ``point_weights`` (P,), the points' normalized objective weights;
     ``posture`` (nq,), the nominal configuration of the regularizer;
     ``clearance_planes`` (4 rows, K): per clearance row and knot the plane
     ``(n, offset)`` with ``n . p >= offset`` (offset includes the shape's
-    radius and the required clearance) [m].
+    radius and the required clearance) [m]; ``self_distances`` (pairs,), the
+    distance each self-collision pair keeps, raised by the back-off [m].
     """
     layout = VectorLayout()
     layout.add("step")
@@ -41,8 +44,10 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     layout.add("target_rotation", 9, len(structure.targets))
     for p, slot in enumerate(structure.disturbances):
         layout.add(f"shape{p}", slot.dim * slot.dim)
+    layout.add("point_weights", len(structure.disturbances))
     layout.add("posture", robot.nq)
     layout.add("clearance_planes", 4 * len(structure.clearance_rows), structure.knots)
+    layout.add("self_distances", len(structure.self_pairs))
     return layout
 
 
@@ -77,10 +82,18 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
         layout.set(values, "target_rotation", np.array([r.reshape(-1, order="F") for r in rotations]).T)
     for p, spec in enumerate(task.disturbances):
         layout.set(values, f"shape{p}", np.asarray(spec.shape, dtype=float).reshape(-1, order="F"))
+    layout.set(values, "point_weights", point_weights(task, structure))
     layout.set(values, "posture", robot.standing_posture if posture is None else posture)
     if structure.clearance_rows:
         layout.set(values, "clearance_planes", clearance_planes(task, structure, motion))
+    if structure.self_pairs:
+        layout.set(values, "self_distances", [p.distance + CLEARANCE_BACKOFF for p in task.clearance.self_pairs])
     return values
+
+
+def point_weights(task, structure: Structure) -> np.ndarray:
+    """The disturbance points' objective weights, normalized for ``structure.combine_points``, shape (P,)."""
+    return normalized_weights([d.objective_weight for d in task.disturbances], structure.combine_points)
 
 
 def knot_footholds(task) -> np.ndarray:
@@ -97,3 +110,15 @@ def clearance_planes(task, structure: Structure, motion=None) -> np.ndarray:
     columns = [task.clearance.planes_at(world_points(robot, motion[:, k], data), CLEARANCE_BACKOFF).reshape(-1, order="F")
                for k in range(K)]
     return np.array(columns).T
+
+
+def separating_planes(task, structure: Structure, motion) -> np.ndarray:
+    """Starting separating planes of every self pair at ``structure.clearance_knots`` of ``motion`` (nq, K).
+
+    Shape (4 pairs, knots): per knot the columns of
+    :meth:`~optimizer.problem.clearance.ClearanceSpec.separating_planes`, stacked.
+    """
+    robot, data = task.robot, task.robot.model.createData()
+    columns = [task.clearance.separating_planes(world_points(robot, motion[:, k], data), CLEARANCE_BACKOFF)
+               .reshape(-1, order="F") for k in structure.clearance_knots]
+    return np.array(columns).T.reshape(4 * len(structure.self_pairs), len(structure.clearance_knots))

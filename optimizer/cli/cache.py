@@ -1,0 +1,78 @@
+"""``brace cache show|clear``: the folder of built solver parts (compiled knot functions) kept between runs.
+
+Also the ``--cache-dir`` option of ``brace solve`` and ``brace sweep`` and
+the one-line note when no C compiler is found (plans then use the
+uncompiled evaluation: same plans, slower iterations).
+"""
+from __future__ import annotations
+
+import argparse
+import shutil
+import sys
+
+from ..cache import ENVIRONMENT, cache_contents, cache_dir, clear_cache, set_cache_dir
+from ..errors import InputError
+from ..memory import format_size
+
+HELP = "show or clear the cache folder of compiled solver parts"
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("action", metavar="show|clear", help="show: where the cache is and what it holds; "
+                        "clear: remove everything in it")
+    add_cache_option(parser)
+
+
+def add_cache_option(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--cache-dir", metavar="DIR",
+                        help=f"cache folder of compiled solver parts (default: ${ENVIRONMENT}, else "
+                             "$XDG_CACHE_HOME/brace, else ~/.cache/brace)")
+
+
+def add_evaluation_option(parser: argparse.ArgumentParser) -> None:
+    from ..planner import DEFAULT_EVALUATION, EVALUATIONS
+
+    parser.add_argument("--evaluation", choices=EVALUATIONS, default=DEFAULT_EVALUATION,
+                        help="how the solver evaluates the problem: compiled (C code compiled once per robot and "
+                             "task shape, kept in the cache folder: the fastest plan from a fresh process), "
+                             "expanded (one graph: slow build, fast iterations) or mapped (fast build, slow "
+                             f"iterations); default {DEFAULT_EVALUATION}")
+
+
+def apply_cache_option(args) -> None:
+    """Use ``--cache-dir`` when given (for this process and the workers it starts)."""
+    if getattr(args, "cache_dir", None):
+        set_cache_dir(args.cache_dir)
+
+
+def compiler_note() -> str | None:
+    """One line when no C compiler is found, else None."""
+    from ..transcription.compiled import COMPILER_ENVIRONMENT, compiler
+
+    if shutil.which(compiler()) is None:
+        return (f"note: no C compiler '{compiler()}' found (set {COMPILER_ENVIRONMENT}); the knot functions are "
+                "evaluated uncompiled: same plans, slower iterations")
+    return None
+
+
+ACTIONS = ("show", "clear")
+
+
+def run(args) -> int:
+    if args.action not in ACTIONS:
+        raise InputError("command line", "ACTION", " or ".join(ACTIONS), args.action)
+    apply_cache_option(args)
+    folder = cache_dir()
+    entries = cache_contents()
+    if args.action == "clear":
+        freed = clear_cache()
+        print(f"brace cache: cleared {folder} ({len(entries)} file(s), {format_size(freed)})")
+        return 0
+    total = sum(size for _, size in entries)
+    libraries = [name for name, _ in entries if name.endswith(".so")]
+    print(f"brace cache: {folder}: {len(libraries)} compiled librar{'y' if len(libraries) == 1 else 'ies'}, "
+          f"{format_size(total)} in all" + ("" if folder.is_dir() else " (not created yet)"))
+    note = compiler_note()
+    if note:
+        print(note, file=sys.stderr)
+    return 0
