@@ -165,6 +165,8 @@ def load_plan(path) -> Plan:
     margins = raw.get("margins")
     if margins is not None:
         _check_array(path, "margins", raw, "f", ("K", "P"), sizes)
+    if "contact_knot_surfaces" in meta:
+        _check_knot_surfaces(Fields(meta, path, "meta", PlanFileError).sub("contact_knot_surfaces"), sizes)
     _check_finite(path, raw)
     extras = {k: v for k, v in raw.items() if k not in RESERVED}
     return Plan(**{k: raw[k] for k in ARRAYS}, meta=meta, margins=margins, extras=extras)
@@ -245,6 +247,59 @@ def _sizes_from_meta(path: Path, meta: dict) -> dict:
     if f.has("clearance"):
         _check_clearance(f.sub("clearance"), model)
     return {"nq": model.nq, "nv": model.nv, "nj": nj, "nc": nc, "P": count}
+
+
+def _check_knot_surfaces(f: Fields, sizes: dict) -> None:
+    """``meta.contact_knot_surfaces``: per-knot normals (K, nc, 3) unit, tangents (K, nc, 2, 3), friction (K, nc) > 0."""
+    K, nc = sizes["K"], sizes["nc"]
+    for key, shape in (("normals", (K, nc, 3)), ("tangents", (K, nc, 2, 3)), ("friction", (K, nc))):
+        try:
+            value = np.array(f.raw(key), dtype=float)
+        except (TypeError, ValueError):
+            value = None
+        if value is None or value.shape != shape or not np.all(np.isfinite(value)):
+            f.fail(key, f"finite numbers of shape {shape}", "missing" if value is None else f"shape {value.shape}")
+    if np.any(np.abs(np.linalg.norm(np.array(f.raw("normals"), float), axis=-1) - 1.0) > 1e-6):
+        f.fail("normals", "unit vectors (length 1 within 1e-6)", "a vector of another length")
+    if np.any(np.array(f.raw("friction"), float) <= 0.0):
+        f.fail("friction", "friction coefficients > 0", "a coefficient <= 0")
+
+
+@dataclass
+class KnotSurfaces:
+    """The surface every contact presses on at every knot (world frame).
+
+    normals (K, nc, 3) unit, into the robot; tangents (K, nc, 2, 3); friction (K, nc).
+    """
+
+    normals: np.ndarray
+    tangents: np.ndarray
+    friction: np.ndarray
+
+
+def knot_surfaces(meta: dict, knots: int) -> KnotSurfaces:
+    """Per-knot contact surfaces of a plan: ``meta.contact_knot_surfaces`` when present, else the
+    per-contact ``contact_normals``, ``friction_pyramid.tangents`` and ``friction`` at every knot."""
+    per_knot = meta.get("contact_knot_surfaces")
+    if per_knot is not None:
+        return KnotSurfaces(*(np.array(per_knot[k], float) for k in ("normals", "tangents", "friction")))
+    nc = len(meta["contact_frames"])
+    normals = np.array(meta["contact_normals"], float).reshape(nc, 3)
+    tangents = np.array(meta["friction_pyramid"]["tangents"], float).reshape(nc, 2, 3)
+    friction = np.array(meta["friction"], float).reshape(nc)
+    return KnotSurfaces(np.repeat(normals[None], knots, 0), np.repeat(tangents[None], knots, 0),
+                        np.repeat(friction[None], knots, 0))
+
+
+def meta_at_knot(meta: dict, k: int) -> dict:
+    """``meta`` with knot ``k``'s contact normals, tangents and friction in the per-contact fields
+    (for readers that work one knot at a time); ``meta`` itself when the plan has one surface per contact."""
+    per_knot = meta.get("contact_knot_surfaces")
+    if per_knot is None:
+        return meta
+    out = dict(meta, contact_normals=per_knot["normals"][k], friction=per_knot["friction"][k])
+    out["friction_pyramid"] = dict(meta["friction_pyramid"], tangents=per_knot["tangents"][k])
+    return out
 
 
 def _names(f: Fields, key: str) -> list:

@@ -567,7 +567,14 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
         "task": task.raw,
         "solver": solver_meta,
         **({"requirements": {"items": requirements_json(task.requirements)}} if task.requirements else {}),
+        **({"contact_knot_surfaces": knot_surfaces_json(task)} if task.schedule.varies() else {}),
     }
+
+
+def knot_surfaces_json(task) -> dict:
+    """``meta.contact_knot_surfaces``: per knot the normal, tangents and friction each contact presses on."""
+    normals, tangents, friction = task.schedule.surfaces(task.contacts, task.times)
+    return {"normals": normals.tolist(), "tangents": tangents.tolist(), "friction": friction.tolist()}
 
 
 def require_plan(outcome: SolveOutcome) -> Plan:

@@ -181,12 +181,17 @@ class LiftedLP:
         self.a_eq = np.hstack([je.T @ w, s_t, jc.T])
         rows, rhs = [], []
         pyr = meta["friction_pyramid"]
+        # the plan-file contract (docs/plan-files.md): per-knot surfaces when the plan has them
+        per_knot = meta.get("contact_knot_surfaces")
+        normals = per_knot["normals"][k] if per_knot else meta["contact_normals"]
+        tangents = per_knot["tangents"][k] if per_knot else pyr["tangents"]
+        friction = per_knot["friction"][k] if per_knot else meta["friction"]
         for c in range(nc):
             if not plan.contact_active[k, c]:
                 continue
             lam = plan.contact_forces[k, c]
-            g = _pyramid_rows(meta["contact_normals"][c], pyr["tangents"][c], meta["friction"][c], pyr["facets"])
-            n = np.asarray(meta["contact_normals"][c], float)
+            g = _pyramid_rows(normals[c], tangents[c], friction[c], pyr["facets"])
+            n = np.asarray(normals[c], float)
             for row, b in [(gj, -gj @ lam) for gj in g] + [(-n, n @ lam - meta["min_normal_force"])]:
                 full = np.zeros(self.width)
                 full[d + nj + 3 * c: d + nj + 3 * c + 3] = row

@@ -11,8 +11,9 @@ from certify_checks import check_plan_against_sampled_lps
 from optimizer.analysis.export import resample
 from optimizer.analysis.plan_check import check_plan
 from optimizer.analysis.presolve import run_checks
-from optimizer.errors import TaskError
+from optimizer.errors import PlanFileError, TaskError
 from optimizer.files import read_yaml_mapping
+from optimizer.planfile import load_plan, save_plan
 from optimizer.planner import Planner
 from optimizer.problem.task import load_task, task_from_mapping
 from optimizer.transcription.structure import structure_of
@@ -95,11 +96,114 @@ def test_stepping_margins_lie_between_independent_lp_bounds(name):
     # built from the plan file with only the contacts in stance at each knot: the exact
     # figure lies between the inner and outer sampled bounds, and the planned (linear-gain)
     # margin never exceeds it (margin soundness).
+    # wall_brace's last knot has the front-left foot braced on the wall (its pyramid about -y).
     _, plan = stepping_plan(name, "robust")
     swing_knot = int(np.flatnonzero((~plan.contact_active).any(axis=1))[0])
-    rows = check_plan_against_sampled_lps(plan, n_dirs=80, knots=[0, swing_knot])
+    knots = [0, swing_knot] + ([plan.q.shape[0] - 1] if name == "wall_brace" else [])
+    rows = check_plan_against_sampled_lps(plan, n_dirs=80, knots=knots)
     for row in rows:
         assert row["planned"] <= row["rho"] * (1 + 1e-6) + 1e-9, row
+
+
+def wall_face():
+    """(y of the wall's face [m], its outward unit normal, z of its top [m], mu), from the task file's block."""
+    terrain = read_yaml_mapping("tasks/wall_brace.yaml", TaskError)["stance"]["terrain"]
+    block = terrain["blocks"][0]
+    face_y = block["center"][1] - block["size"][1] / 2      # the side facing the robot (-y)
+    return face_y, np.array([0.0, -1.0, 0.0]), block["height"], terrain["friction"]
+
+
+@pytest.mark.parametrize("objective", OBJECTIVES)
+def test_the_braced_foot_stands_on_the_wall_face_and_pushes_inside_its_friction_cone(objective):
+    # References: Pinocchio forward kinematics of the plan's URDF (where the foot is); the wall
+    # face and its outward normal from the task file's block (axis-aligned box geometry); textbook
+    # Coulomb friction: a contact force f is admissible when |f - (f.n) n| <= mu (f.n) (the
+    # plan's inscribed pyramid lies inside this cone).
+    task, plan = stepping_plan("wall_brace", objective)
+    face_y, n, top, mu = wall_face()
+    c = plan.meta["contact_frames"].index("foot_fl")
+    braced = [k for k in range(plan.q.shape[0]) if plan.contact_active[k, c] and task.times[k] >= 1.4]
+    assert braced, "the front-left foot must stand on the wall after its swing"
+    min_force = plan.meta["min_normal_force"]
+    for k in braced:
+        position, _ = foot_kinematics(plan, k, "foot_fl")
+        assert position[1] == pytest.approx(face_y, abs=1e-5), (k, position)
+        assert 0.0 < position[2] < top, (k, position)
+        f = plan.contact_forces[k, c]
+        push = f @ n
+        assert push >= min_force - 1e-6, (k, f)
+        assert np.linalg.norm(f - push * n) <= mu * push + 1e-6, (k, f)
+    # the feet still on the floor press up (floor normal +z): the wall foot's normal is its own
+    for k in braced:
+        for other in range(plan.contact_active.shape[1]):
+            if other != c and plan.contact_active[k, other]:
+                assert plan.contact_forces[k, other, 2] >= min_force - 1e-6
+
+
+def test_per_knot_normals_round_trip_and_a_plan_with_per_contact_normals_still_loads(tmp_path):
+    # Reference: the plan-file contract (docs/plan-files.md): meta.contact_knot_surfaces holds per
+    # knot the normal, tangents and friction of every contact; without it the per-contact
+    # contact_normals / friction / friction_pyramid.tangents hold at every knot.
+    task, plan = stepping_plan("wall_brace", "robust")
+    surfaces = plan.meta["contact_knot_surfaces"]
+    c, last = plan.meta["contact_frames"].index("foot_fl"), plan.q.shape[0] - 1
+    assert np.allclose(surfaces["normals"][0][c], [0.0, 0.0, 1.0])       # on the floor at the start
+    assert np.allclose(surfaces["normals"][last][c], wall_face()[1])    # on the wall at the end
+    save_plan(plan, tmp_path / "braced.npz")
+    again = load_plan(tmp_path / "braced.npz")
+    for key in ("normals", "tangents", "friction"):
+        assert np.array_equal(np.array(again.meta["contact_knot_surfaces"][key]), np.array(surfaces[key]))
+    # an older plan (one normal per contact) loads and keeps passing the Pinocchio re-check
+    _, floor_plan = stepping_plan("landing_pick", "robust")
+    assert "contact_knot_surfaces" not in floor_plan.meta
+    save_plan(floor_plan, tmp_path / "per_contact.npz")
+    assert check_plan(load_plan(tmp_path / "per_contact.npz")).passed
+    # a per-knot field of the wrong shape names the field
+    bad = copy.deepcopy(plan)
+    bad.meta["contact_knot_surfaces"]["normals"] = surfaces["normals"][:-1]
+    save_plan(bad, tmp_path / "bad.npz")
+    with pytest.raises(PlanFileError, match=r"contact_knot_surfaces\.normals"):
+        load_plan(tmp_path / "bad.npz")
+
+
+def test_the_plan_check_notices_a_braced_force_outside_the_wall_pyramid(tmp_path):
+    # Reference: textbook Coulomb friction on the wall (normal -y, mu from the task file): a
+    # force pointing along the wall's normal into the wall (+y, pulling) is outside every cone
+    # about -y. The Pinocchio re-check must read the per-knot normal to see it.
+    _, plan = stepping_plan("wall_brace", "robust")
+    c, k = plan.meta["contact_frames"].index("foot_fl"), plan.q.shape[0] - 1
+    bad = copy.deepcopy(plan)
+    bad.contact_forces[k, c] = -bad.contact_forces[k, c]
+    report = check_plan(bad)
+    assert not report.passed
+    failed = {r.name for r in report.results if not r.passed}
+    assert {"friction", "normal-force"} <= failed, failed
+
+
+def test_a_foothold_off_the_wall_face_or_on_a_top_is_refused_with_the_field():
+    # The wall face spans x in [-0.5, 1.5] m and z in [0, 0.8] m (task file's block); feet keep
+    # edge_clearance (0.03 m by default) from its edges, the floor among them.
+    data = copy.deepcopy(read_yaml_mapping("tasks/wall_brace.yaml", TaskError))
+    entry = data["stance"]["schedule"]["foot_fl"][1]
+    entry["at"] = [0.40, 0.01]
+    with pytest.raises(TaskError, match=r"stance\.schedule\.foot_fl\[1\]\.at.*0\.03 m from its edges"):
+        task_from_mapping(data, "tasks/wall_brace.yaml")
+    entry["at"], entry["surface"] = [0.40, 0.20], "floor"
+    with pytest.raises(TaskError, match=r"stance\.schedule\.foot_fl\[1\]\.surface.*a block"):
+        task_from_mapping(data, "tasks/wall_brace.yaml")
+
+
+def test_support_before_solving_uses_the_wall_normal_of_an_interval():
+    # Newton and Coulomb: a foot pressing on a vertical wall (normal -y, mu 0.7) alone cannot carry
+    # the weight (vertical force at most 0.7 times a horizontal push nothing balances). With only
+    # that foot in stance in a window, the support check must refuse the schedule; with the floor
+    # normal it would not.
+    data = copy.deepcopy(read_yaml_mapping("tasks/wall_brace.yaml", TaskError))
+    for frame in ("foot_fr", "foot_rl", "foot_rr"):
+        data["stance"]["schedule"][frame] = [{"window": [0.0, 1.6]}, {"window": [2.4, 3.5]}]
+    findings = [f for f in run_checks(task_from_mapping(data, "tasks/wall_brace.yaml")) if f.check == "support"]
+    assert findings and findings[0].impossible
+    assert "only foot_fl is in stance" in findings[0].what
 
 
 # ---------------------------------------------------------------- validation before solving

@@ -591,5 +591,5 @@ def changed_figure(changed: ChangedKnots, k: int, planned: KnotCertificate, sett
                                notes=["the stance contacts cannot balance the payload"])
         return ChangedFigure(cert, False, math.inf)
     cert, _ = certify_response(resp, planned.planned, settings, k, planned.time)
-    floor = changed.friction_floor(resp) if friction_floor else math.nan
+    floor = changed.friction_floor(resp, k) if friction_floor else math.nan
     return ChangedFigure(cert, feasible_at_rest(resp), floor)

@@ -10,7 +10,8 @@ samples follow the plan's own integrator (``semi-implicit-euler``):
 - feed-forward torques, contact forces and response gains: straight lines
   between the knots' values (a choice for smooth commands; the plan's limits
   hold at knots, and between knots on every limit that is convex in them);
-- stance flags and footholds: those of knot ``k`` (held until the next knot);
+- stance flags, footholds and contact normals: those of knot ``k`` (held
+  until the next knot);
   a contact flagged out of stance has zero force and zero force gains in
   the sample (on the step into a touchdown the straight line would
   otherwise start the force before the foot is down).
@@ -30,7 +31,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pinocchio as pin
 
-from ..planfile import response_gains
+from ..planfile import knot_surfaces, response_gains
 from .knot_response import knot_responses
 from .linear_margin import plan_margin
 
@@ -47,6 +48,7 @@ class Trajectory:
     tau : (N, nj) feed-forward joint torques [N m or N].
     contact_forces : (N, nc, 3) force of the surface on the robot, world frame [N].
     contact_active : (N, nc) bool.  contact_targets : (N, nc, 3) footholds [m].
+    contact_normals : (N, nc, 3) unit normals of the surfaces pressed on, world frame, into the robot.
     gain_tau : (N, nj, d) joint-torque change per unit disturbance coordinate.
     gain_force : (N, nc, 3, d) contact-force change per unit disturbance coordinate, world frame.
     margin : (N,) the certified margin of the knot at or before the sample [N].
@@ -61,6 +63,7 @@ class Trajectory:
     contact_forces: np.ndarray
     contact_active: np.ndarray
     contact_targets: np.ndarray
+    contact_normals: np.ndarray
     gain_tau: np.ndarray
     gain_force: np.ndarray
     margin: np.ndarray
@@ -96,7 +99,8 @@ def resample(plan, rate: float, point: int = 0) -> Trajectory:
     model = pin.buildModelFromXML(plan.meta["urdf"], pin.JointModelFreeFlyer())
     force_gains, torque_gains, margins = knot_gains(plan, point)
     times = sample_times(float(plan.t[-1] - plan.t[0]), rate) + float(plan.t[0])
-    rows = [_sample(plan, model, s, force_gains, torque_gains, margins) for s in times]
+    normals = knot_surfaces(plan.meta, plan.q.shape[0]).normals
+    rows = [_sample(plan, model, s, force_gains, torque_gains, margins, normals) for s in times]
     columns = {name: np.array([r[name] for r in rows]) for name in rows[0]}
     entry = plan.meta["disturbances"][point]
     info = {"rate_hz": float(rate), "samples": len(times), "disturbance": dict(entry, index=point),
@@ -111,14 +115,14 @@ def _prismatic(model, names) -> list[bool]:
     return [model.joints[model.getJointId(n)].shortname().startswith("JointModelP") for n in names]
 
 
-def _sample(plan, model, s, force_gains, torque_gains, margins) -> dict:
+def _sample(plan, model, s, force_gains, torque_gains, margins, normals) -> dict:
     t = plan.t
     at_knot = np.flatnonzero(np.abs(t - s) <= KNOT_TIME_TOL)
     if at_knot.size:
         k = int(at_knot[0])
         return dict(q=plan.q[k], v=plan.v[k], a=plan.a[k], tau=plan.tau[k], contact_forces=plan.contact_forces[k],
                     contact_active=plan.contact_active[k], contact_targets=plan.contact_targets[k],
-                    gain_tau=torque_gains[k], gain_force=force_gains[k], margin=margins[k])
+                    contact_normals=normals[k], gain_tau=torque_gains[k], gain_force=force_gains[k], margin=margins[k])
     k = int(np.clip(np.searchsorted(t, s, side="right") - 1, 0, len(t) - 2))
     dt, h = s - t[k], t[k + 1] - t[k]
     w = dt / h
@@ -129,7 +133,8 @@ def _sample(plan, model, s, force_gains, torque_gains, margins) -> dict:
     stance = np.asarray(plan.contact_active[k], bool)
     return dict(q=pin.integrate(model, plan.q[k], dt * plan.v[k + 1]), v=plan.v[k] + dt * plan.a[k], a=plan.a[k],
                 tau=line(plan.tau), contact_forces=line(plan.contact_forces) * stance[:, None],
-                contact_active=stance, contact_targets=plan.contact_targets[k], gain_tau=line(torque_gains),
+                contact_active=stance, contact_targets=plan.contact_targets[k], contact_normals=normals[k],
+                gain_tau=line(torque_gains),
                 gain_force=line(force_gains) * stance[:, None, None], margin=margins[k])
 
 
@@ -157,6 +162,7 @@ def csv_columns(trajectory: Trajectory) -> list[tuple[str, str]]:
     cols += [(f"f_{c}_{axis}", "N") for c in contacts for axis in "xyz"]
     cols += [(f"stance_{c}", "0/1") for c in contacts]
     cols += [(f"foothold_{c}_{axis}", "m") for c in contacts for axis in "xyz"]
+    cols += [(f"normal_{c}_{axis}", "1") for c in contacts for axis in "xyz"]
     cols += [(f"dtau_{j}_du{i}", unit(j, "N m/N", "N/N")) for j in joints for i in range(d)]
     cols += [(f"df_{c}_{axis}_du{i}", "N/N") for c in contacts for axis in "xyz" for i in range(d)]
     cols += [("margin", "N")]
@@ -169,4 +175,5 @@ def csv_rows(trajectory: Trajectory) -> np.ndarray:
     n = tr.t.shape[0]
     return np.hstack([tr.t[:, None], tr.q, tr.v, tr.a, tr.tau, tr.contact_forces.reshape(n, -1),
                       tr.contact_active.astype(float), tr.contact_targets.reshape(n, -1),
+                      tr.contact_normals.reshape(n, -1),
                       tr.gain_tau.reshape(n, -1), tr.gain_force.reshape(n, -1), tr.margin[:, None]])

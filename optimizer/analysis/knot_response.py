@@ -1,8 +1,8 @@
 """Response data of every knot of a plan, from the plan file alone.
 
 Reads only what ``plan/1`` holds (docs/plan-files.md): the URDF, joint and
-contact names, normals, friction, pyramid axes, limits and disturbances in
-``meta``, and ``q``, ``tau``, ``contact_forces``, ``contact_active`` per knot.
+contact names, normals, friction, pyramid axes (per contact, or per knot in
+``contact_knot_surfaces``), limits and disturbances in ``meta``, and ``q``, ``tau``, ``contact_forces``, ``contact_active`` per knot.
 Jacobians come from Pinocchio's numeric algorithms, so plans made by other
 tools are certified on the same footing as our own.
 """
@@ -11,12 +11,14 @@ from __future__ import annotations
 import numpy as np
 import pinocchio as pin
 
+from ..planfile import meta_at_knot
 from ..problem.friction import pyramid_facets
 from .response import KnotResponse
 
 
 def contact_facets(meta: dict) -> np.ndarray:
-    """Pyramid rows of every contact, shape (nc, m, 3), world frame.
+    """Pyramid rows of every contact, shape (nc, m, 3), world frame (the per-contact
+    fields of ``meta``: for a plan with per-knot surfaces pass :func:`meta_at_knot`).
 
     With ``inscribed: false`` the pyramid's facets touch the Coulomb cone
     (the pyramid contains it); with ``true`` its edges lie on the cone.
@@ -59,7 +61,15 @@ class PlanRobot:
         self.shape = np.array(entry["shape"], dtype=float)
         self.facets = contact_facets(meta)
         self.normals = np.array(meta["contact_normals"], dtype=float).reshape(-1, 3)
+        self.per_knot = "contact_knot_surfaces" in meta
         self.tau_lower, self.tau_upper = torque_limits(meta)
+
+    def surfaces_at(self, k: int) -> tuple[np.ndarray, np.ndarray]:
+        """Pyramid rows (nc, m, 3) and unit normals (nc, 3) of the surfaces the contacts press on at knot ``k``."""
+        if not self.per_knot:
+            return self.facets, self.normals
+        meta = meta_at_knot(self.meta, k)
+        return contact_facets(meta), np.array(meta["contact_normals"], dtype=float).reshape(-1, 3)
 
     def jacobians(self, q) -> tuple[np.ndarray, np.ndarray]:
         """Contact Jacobian (3 nc, nv) and disturbance Jacobian (d, nv), world-aligned."""
@@ -77,10 +87,11 @@ def knot_response(plan, k: int, robot: PlanRobot) -> KnotResponse:
     """The response problem at knot ``k`` of ``plan``."""
     jc, je = robot.jacobians(plan.q[k])
     meta = plan.meta
+    facets, normals = robot.surfaces_at(k)
     return KnotResponse(
         contact_jacobian=jc, disturbance_jacobian=je, shape=robot.shape,
         tau=np.asarray(plan.tau[k], float), tau_lower=robot.tau_lower, tau_upper=robot.tau_upper,
-        forces=np.asarray(plan.contact_forces[k], float), facets=robot.facets, normals=robot.normals,
+        forces=np.asarray(plan.contact_forces[k], float), facets=facets, normals=normals,
         min_normal_force=float(meta["min_normal_force"]), active=np.asarray(plan.contact_active[k], bool),
         base_dofs=6, joint_names=tuple(meta["joint_names"]), contact_names=tuple(meta["contact_frames"]),
     )

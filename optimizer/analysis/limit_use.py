@@ -16,6 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..planfile import knot_surfaces, meta_at_knot
 from .knot_response import contact_facets, torque_limits
 
 
@@ -63,25 +64,33 @@ def torque_use(tau: np.ndarray, lower: np.ndarray, upper: np.ndarray) -> np.ndar
 
 
 def friction_use(forces: np.ndarray, facets: np.ndarray, normals: np.ndarray, active: np.ndarray) -> np.ndarray:
-    """Friction use (K, nc) of contact forces (K, nc, 3) [N] against pyramid rows (nc, m, 3)."""
-    normal = np.einsum("kci,ci->kc", forces, normals)
-    mu = -np.einsum("cmi,ci->cm", facets, normals)                     # (nc, m)
-    tangential = np.einsum("kci,cmi->kcm", forces, facets) + mu[None] * normal[..., None]
+    """Friction use (K, nc) of contact forces (K, nc, 3) [N] against pyramid rows (nc, m, 3) and unit
+    normals (nc, 3), one surface per contact, or per knot (K, nc, m, 3) and (K, nc, 3)."""
+    K = forces.shape[0]
+    facets = np.broadcast_to(facets, (K,) + np.shape(facets)[-3:])
+    normals = np.broadcast_to(normals, (K,) + np.shape(normals)[-2:])
+    normal = np.einsum("kci,kci->kc", forces, normals)
+    mu = -np.einsum("kcmi,kci->kcm", facets, normals)                  # (K, nc, m)
+    tangential = np.einsum("kci,kcmi->kcm", forces, facets) + mu * normal[..., None]
     with np.errstate(divide="ignore", invalid="ignore"):
-        use = np.max(tangential / (mu[None] * normal[..., None]), axis=2)
+        use = np.max(tangential / (mu * normal[..., None]), axis=2)
     return np.where(active & (normal > 0.0), use, np.nan)
 
 
 def limit_use(plan) -> LimitUse:
-    """Torque use, friction use and normal forces of ``plan`` (a plan/1 :class:`Plan`)."""
+    """Torque use, friction use and normal forces of ``plan`` (a plan/1 :class:`Plan`), each contact
+    against the surface it presses on at each knot."""
     meta = plan.meta
     lower, upper = torque_limits(meta)
-    normals = np.array(meta["contact_normals"], dtype=float).reshape(-1, 3)
+    K = plan.q.shape[0]
+    normals = knot_surfaces(meta, K).normals
+    facets = np.array([contact_facets(meta_at_knot(meta, k)) for k in range(K)]) if "contact_knot_surfaces" in meta \
+        else contact_facets(meta)
     active = np.asarray(plan.contact_active, bool)
-    normal_force = np.where(active, np.einsum("kci,ci->kc", plan.contact_forces, normals), np.nan)
+    normal_force = np.where(active, np.einsum("kci,kci->kc", plan.contact_forces, normals), np.nan)
     return LimitUse(
         torque=torque_use(np.asarray(plan.tau, float), lower, upper),
-        friction=friction_use(np.asarray(plan.contact_forces, float), contact_facets(meta), normals, active),
+        friction=friction_use(np.asarray(plan.contact_forces, float), facets, normals, active),
         normal_force=normal_force,
         joint_names=list(meta["joint_names"]),
         contact_names=list(meta["contact_frames"]),

@@ -30,6 +30,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..planfile import meta_at_knot
 from .knot_response import PlanRobot, contact_facets, knot_response
 from .polytope import SupportLP
 from .response import KnotResponse
@@ -69,6 +70,10 @@ class ModelChange:
         scale = self.friction_scale if friction_scale is None else friction_scale
         out = dict(meta)  # shallow: every changed entry below is a new object
         out["friction"] = [scale * float(mu) for mu in meta["friction"]]
+        if "contact_knot_surfaces" in meta:
+            per_knot = meta["contact_knot_surfaces"]
+            out["contact_knot_surfaces"] = dict(per_knot, friction=[[scale * float(mu) for mu in row]
+                                                                    for row in per_knot["friction"]])
         out["torque_limits"] = {side: [None if x is None else self.torque_scale * float(x)
                                        for x in meta["torque_limits"][side]] for side in ("lower", "upper")}
         if self.min_normal_force is not None:
@@ -157,12 +162,13 @@ class ChangedKnots:
         """Knot ``k``'s response data under the changed model."""
         return carry_payload(knot_response(self.changed_plan, k, self.robot), self.force)
 
-    def with_friction(self, resp: KnotResponse, friction_scale: float) -> KnotResponse:
-        """``resp`` with the pyramids of ``friction_scale`` times the plan's friction (other changes kept)."""
-        facets = contact_facets(self.change.meta(self.plan.meta, friction_scale))
+    def with_friction(self, resp: KnotResponse, friction_scale: float, k: int = 0) -> KnotResponse:
+        """``resp`` (knot ``k``) with the pyramids of ``friction_scale`` times the plan's friction (other
+        changes kept)."""
+        facets = contact_facets(meta_at_knot(self.change.meta(self.plan.meta, friction_scale), k))
         return dataclasses.replace(resp, facets=facets)
 
-    def friction_floor(self, resp: KnotResponse) -> float:
+    def friction_floor(self, resp: KnotResponse, k: int = 0) -> float:
         """Smallest friction scale (times the plan's coefficients) at which knot ``resp`` stays feasible.
 
         Bisection to ``FLOOR_RTOL`` on ``[0, hi]``, ``hi`` the changed
@@ -172,16 +178,16 @@ class ChangedKnots:
         the knot needs none.
         """
         hi = max(self.change.friction_scale, 1e-3)
-        while not feasible_at_rest(self.with_friction(resp, hi)):
+        while not feasible_at_rest(self.with_friction(resp, hi, k)):
             hi *= 2.0
             if hi > FLOOR_CEILING:
                 return math.inf
-        if feasible_at_rest(self.with_friction(resp, 0.0)):
+        if feasible_at_rest(self.with_friction(resp, 0.0, k)):
             return 0.0
         lo = 0.0
         while hi - lo > FLOOR_RTOL * hi:
             mid = 0.5 * (lo + hi)
-            if feasible_at_rest(self.with_friction(resp, mid)):
+            if feasible_at_rest(self.with_friction(resp, mid, k)):
                 hi = mid
             else:
                 lo = mid

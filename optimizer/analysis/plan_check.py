@@ -25,6 +25,8 @@ from typing import Callable
 import numpy as np
 import pinocchio as pin
 
+from ..planfile import knot_surfaces
+from ..problem.geometry import Surface
 from .clearance import plan_clearance, plan_self_clearance
 
 WORLD = pin.ReferenceFrame.LOCAL_WORLD_ALIGNED
@@ -151,26 +153,49 @@ def unit_facet_rows(normal, tangents, mu: float, facets: int, inscribed: bool) -
 
 
 def measure_friction(facts: PlanFacts) -> Worst:
-    """Largest distance [N] of an active contact force outside its pyramid's facet planes."""
+    """Largest distance [N] of an active contact force outside its pyramid's facet planes
+    (the pyramid of the surface it presses on at that knot)."""
     meta, plan = facts.meta, facts.plan
     pyramid = meta["friction_pyramid"]
+    surfaces = knot_surfaces(meta, plan.q.shape[0])
+    facets, inscribed = int(pyramid["facets"]), bool(pyramid.get("inscribed", True))
     excess, names = [], []
     for c, name in enumerate(facts.contact_names):
-        g = unit_facet_rows(meta["contact_normals"][c], pyramid["tangents"][c], float(meta["friction"][c]),
-                            int(pyramid["facets"]), bool(pyramid.get("inscribed", True)))
-        values = plan.contact_forces[:, c] @ g.T
+        g = np.array([unit_facet_rows(surfaces.normals[k, c], surfaces.tangents[k, c], float(surfaces.friction[k, c]),
+                                      facets, inscribed) for k in range(plan.q.shape[0])])    # (K, m, 3)
+        values = np.einsum("ki,kmi->km", plan.contact_forces[:, c], g)
         excess.append(np.where(plan.contact_active[:, c, None], values, -np.inf))
-        names += [f"{name} facet {j}" for j in range(g.shape[0])]
+        names += [f"{name} facet {j}" for j in range(facets)]
     return worst_entry(np.hstack(excess) if excess else np.zeros((plan.q.shape[0], 0)), names)
 
 
 def measure_normal_force(facts: PlanFacts) -> Worst:
     """Shortfall [N] of an active contact's normal force under ``meta.min_normal_force``."""
     plan = facts.plan
-    normals = np.asarray(facts.meta["contact_normals"], float).reshape(-1, 3)
-    push = np.einsum("kci,ci->kc", plan.contact_forces, normals)
+    normals = knot_surfaces(facts.meta, plan.q.shape[0]).normals
+    push = np.einsum("kci,kci->kc", plan.contact_forces, normals)
     shortfall = float(facts.meta["min_normal_force"]) - push
     return worst_entry(np.where(plan.contact_active, shortfall, -np.inf), facts.contact_names)
+
+
+def measure_surfaces(facts: PlanFacts) -> Worst:
+    """Distance [m] of a stance foothold from the nearest terrain face (``meta.clearance.surfaces``)
+    whose outward normal is the contact's normal at that knot; infinite when no face has it.
+    Only plans whose task placed its feet on a terrain (``meta.task.stance.terrain``) are checked:
+    the planes of explicit contacts are drawn from the footholds themselves."""
+    plan = facts.plan
+    stance = (facts.meta.get("task") or {}).get("stance") or {}
+    placed = isinstance(stance, dict) and isinstance(stance.get("terrain"), dict)
+    surfaces = [Surface.from_dict(s) for s in (facts.meta.get("clearance") or {}).get("surfaces", [])]
+    if not placed or not surfaces:
+        return worst_entry(np.zeros((plan.q.shape[0], 0)), [])
+    normals = knot_surfaces(facts.meta, plan.q.shape[0]).normals
+    gap = np.full(plan.contact_active.shape, -np.inf)
+    for k, c in zip(*np.nonzero(plan.contact_active)):
+        p, n = plan.contact_targets[k, c], normals[k, c]
+        gap[k, c] = min((max(abs(face @ p - d), abs(s.point_distance(p))) for s in surfaces
+                         for face, d in s.faces() if face @ n > 1.0 - 1e-6), default=math.inf)
+    return worst_entry(gap, facts.contact_names)
 
 
 def measure_swing_forces(facts: PlanFacts) -> Worst:
@@ -325,6 +350,7 @@ CHECKS: list[Check] = [
     Check("dynamics", "equations of motion (Pinocchio RNEA with the contact forces)", "m g", 1e-6,
           measure_dynamics),
     Check("footholds", "stance contacts on their footholds", "m", 1e-5, measure_footholds),
+    Check("surfaces", "stance footholds on a terrain face along their normal", "m", 1e-6, measure_surfaces),
     Check("friction", "stance forces inside their friction pyramids", "N", 1e-6, measure_friction),
     Check("normal-force", "stance normal forces at or above the minimum", "N", 1e-6, measure_normal_force),
     Check("swing-forces", "no force at contacts out of stance", "N", 1e-9, measure_swing_forces),

@@ -74,7 +74,7 @@ def write_csv(trajectory, out: Path) -> None:
 def write_npz(trajectory, out: Path) -> None:
     columns = csv_columns(trajectory)
     arrays = {name: getattr(trajectory, name) for name in
-              ("t", "q", "v", "a", "tau", "contact_forces", "contact_active", "contact_targets",
+              ("t", "q", "v", "a", "tau", "contact_forces", "contact_active", "contact_targets", "contact_normals",
                "gain_tau", "gain_force", "margin")}
     with atomic_output(out, suffix=".npz") as tmp:
         with open(tmp, "wb") as handle:

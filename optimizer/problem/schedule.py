@@ -21,17 +21,35 @@ import numpy as np
 from ..errors import TaskError
 
 DEFAULT_SWING_HEIGHT = 0.05   # m above the terrain under the swing path, at mid-swing
+EDGE_TOUCH = 1e-3             # m: a swing path ending this close to a block's outline does not cross it
 MIN_SWING_KNOTS = 2           # the mid-swing knot, and one more to land softly from
 
 
 @dataclass
 class StanceInterval:
-    """One stance of a contact: ``[t_start, t_end]`` s on ``foothold`` (3,) m (world), on ``surface``."""
+    """One stance of a contact: ``[t_start, t_end]`` s on ``foothold`` (3,) m (world), on ``surface``.
+
+    ``normal`` (3,) unit, world, into the robot, ``tangents`` (2, 3) and
+    Coulomb ``friction`` are the surface's there; None: the contact's own
+    (its first foothold's). An interval may stand on another surface than
+    the one before (a foot moving from the floor onto a wall).
+    """
 
     t_start: float
     t_end: float
     foothold: np.ndarray
     surface: str = ""
+    normal: np.ndarray | None = None
+    tangents: np.ndarray | None = None
+    friction: float | None = None
+
+    def on(self, contact):
+        """``contact`` (a ContactSpec) with this interval's foothold, surface, normal, tangents and friction."""
+        changes = {"foothold": self.foothold.copy(), "surface": self.surface or contact.surface}
+        if self.normal is not None:
+            changes.update(normal=np.asarray(self.normal, float), tangents=np.asarray(self.tangents, float),
+                           friction=float(self.friction))
+        return dataclasses.replace(contact, **changes)
 
 
 @dataclass(frozen=True)
@@ -101,6 +119,20 @@ class Schedule:
                     out[k, c] = self.interval_at(c, t).foothold
         return out
 
+    def surfaces(self, contacts, times) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Per knot the surface each contact presses on (while swinging: the one it lands on).
+
+        Returns normals (K, nc, 3) unit, world; tangents (K, nc, 2, 3); friction (K, nc).
+        """
+        on = [[self.interval_at(c, t).on(contact) for c, contact in enumerate(contacts)] for t in times]
+        return (np.array([[c.normal for c in row] for row in on], float),
+                np.array([[c.tangents for c in row] for row in on], float),
+                np.array([[c.friction for c in row] for row in on], float))
+
+    def varies(self) -> bool:
+        """True when some contact changes its surface normal or friction between intervals."""
+        return any(iv.normal is not None for ivs in self.intervals for iv in ivs)
+
     def interval_at(self, contact: int, t: float) -> StanceInterval:
         """The interval of ``contact`` in stance at ``t``, else the next one to come (the last at the end)."""
         intervals = self.intervals[contact]
@@ -157,8 +189,9 @@ def terrain_top(surfaces, start, goal) -> float:
 
     Planes that face up (normal z > 0.1) are linear along the path, so their
     highest point is at an end; a box counts with its top when the path's
-    (x, y) segment crosses its footprint. Surfaces facing down (ceilings) and
-    walls are not under the path.
+    (x, y) segment crosses its footprint by more than ``EDGE_TOUCH`` (a swing
+    onto or off a block's side face ends on its outline, not over it).
+    Surfaces facing down (ceilings) and walls are not under the path.
     """
     a, b = np.asarray(start, float)[:2], np.asarray(goal, float)[:2]
     top = -np.inf
@@ -167,7 +200,7 @@ def terrain_top(surfaces, start, goal) -> float:
             n = s.normal
             if n[2] > 0.1:
                 top = max(top, *((s.offset - n[:2] @ p) / n[2] for p in (a, b)))
-        elif segment_crosses_box(a, b, s.lower[:2], s.upper[:2]):
+        elif segment_crosses_box(a, b, s.lower[:2] + EDGE_TOUCH, s.upper[:2] - EDGE_TOUCH):
             top = max(top, float(s.upper[2]))
     return float(top) if np.isfinite(top) else float(max(start[2], goal[2]))
 
@@ -188,9 +221,9 @@ def segment_crosses_box(a, b, lower, upper) -> bool:
 
 
 def contacts_at(task, t: float) -> list:
-    """The task's contacts (ContactSpec) with the footholds of their stance at ``t`` s (the next one while swinging)."""
-    return [dataclasses.replace(c, foothold=task.schedule.interval_at(i, t).foothold.copy())
-            for i, c in enumerate(task.contacts)]
+    """The task's contacts (ContactSpec) as they stand at ``t`` s (the next stance while swinging):
+    foothold, surface, normal, tangents and friction of that interval."""
+    return [task.schedule.interval_at(i, t).on(c) for i, c in enumerate(task.contacts)]
 
 
 def stance_at(task, t: float) -> list:

@@ -358,8 +358,11 @@ def read_schedule(stance: Fields, contacts, terrain, duration: float) -> Schedul
     without either the contact stays where its previous interval was (the
     first interval: its foothold from ``feet``/``contacts``). Intervals must
     lie in the horizon, the first start at 0 and the last end at the end
-    (rest at both ends), follow each other without overlap, and keep the
-    contact's normal and friction (the plan stores one per contact).
+    (rest at both ends) and follow each other without overlap. An interval
+    may stand on another surface: ``{surface: block<i>, side: +x|-x|+y|-y,
+    at: [along, z]}`` on a block's side face (a wall), or an explicit
+    ``position`` with its own ``normal`` and ``friction``; the plan then
+    stores the normal and friction per knot.
     """
     intervals = [[StanceInterval(0.0, duration, c.foothold.copy(), c.surface)] for c in contacts]
     schedule = Schedule(intervals, path=stance.file, field_name=stance.at("schedule"),
@@ -384,39 +387,55 @@ def read_intervals(section: Fields, key: str, contact: ContactSpec, terrain, dur
     if not isinstance(items, list) or not items:
         section.fail(key, "a non-empty list of stance intervals {window: [start, end] s, xy or position}", items)
     out, foothold, surface = [], contact.foothold.copy(), contact.surface
+    pressing = (None, None, None)
     for i, item in enumerate(items):
         entry = Fields(item, section.file, section.at(f"{key}[{i}]"), TaskError)
-        entry.allow_only({"window", "xy", "surface", "position"})
+        entry.allow_only({"window", "xy", "surface", "position", "side", "at", "normal", "friction"})
         t0, t1 = (float(x) for x in entry.vector("window", 2))
         if not 0.0 <= t0 < t1 <= duration:
             entry.fail("window", f"a window [start, end] within the horizon [0, {duration}] s, start < end", [t0, t1])
         if out and t0 <= out[-1].t_end:
             entry.fail("window", f"a window starting after the previous interval of {key} ends "
                        f"({out[-1].t_end} s): stance intervals must not overlap", [t0, t1])
-        if entry.has("xy") or entry.has("position"):
-            foothold, surface = read_interval_foothold(entry, contact, terrain)
-        out.append(StanceInterval(t0, t1, foothold.copy(), surface))
+        if entry.has("xy") or entry.has("position") or entry.has("side"):
+            foothold, surface, normal, mu = read_interval_foothold(entry, contact, terrain)
+            changed = not np.allclose(normal, contact.normal, atol=1e-6) or abs(mu - contact.friction) > 1e-9
+            pressing = (normal, tangent_basis(normal), mu) if changed else (None, None, None)
+        out.append(StanceInterval(t0, t1, foothold.copy(), surface, *pressing))
     if out[0].t_start > 0.0 or out[-1].t_end < duration:
         section.fail(key, f"intervals covering the start (0 s) and the end ({duration} s): the plan starts and "
                      "ends at rest on every contact", [[iv.t_start, iv.t_end] for iv in out])
     return out
 
 
-def read_interval_foothold(entry: Fields, contact: ContactSpec, terrain) -> tuple[np.ndarray, str]:
-    """Foothold (3,) m and surface name of one interval: ``xy`` on the terrain or an explicit ``position``."""
+def read_interval_foothold(entry: Fields, contact: ContactSpec, terrain) -> tuple:
+    """Foothold (3,) m, surface name, unit normal (3,) and friction of one interval.
+
+    On a terrain: ``xy`` (with an optional ``surface``) on a surface facing
+    up, or ``surface``, ``side`` and ``at`` on a block's side face. Explicit
+    contacts: ``position`` with an optional ``normal`` and ``friction``
+    (default: the contact's own).
+    """
     if terrain is None:
-        if entry.has("xy"):
-            entry.fail("xy", "'position': [x, y, z] m (the task gives explicit contacts, no terrain)", "xy")
-        return entry.vector("position", 3), contact.surface
-    if entry.has("position"):
-        entry.fail("position", "'xy': [x, y] m on the terrain (the task places feet on a terrain)", "position")
-    surface = entry.string("surface") if entry.has("surface") else None
-    where = terrain.place(entry.vector("xy", 2), surface, entry.at("xy"))
-    if not np.allclose(where.normal, contact.normal, atol=1e-6) or abs(where.friction - contact.friction) > 1e-9:
-        entry.fail("xy", f"a foothold with the normal and friction of {contact.frame}'s first one "
-                   f"({np.round(contact.normal, 3).tolist()}, mu {contact.friction})",
-                   f"surface {where.surface}: normal {np.round(where.normal, 3).tolist()}, mu {where.friction}")
-    return where.foothold, where.surface
+        for key in ("xy", "side", "at"):
+            if entry.has(key):
+                entry.fail(key, "'position': [x, y, z] m (the task gives explicit contacts, no terrain)", key)
+        normal = unit_vector(entry, "normal") if entry.has("normal") else contact.normal
+        mu = entry.number("friction", contact.friction, lo=0.0, lo_open=True)
+        return entry.vector("position", 3), contact.surface, normal, mu
+    for key in ("position", "normal", "friction"):
+        if entry.has(key):
+            entry.fail(key, "'xy': [x, y] m on the terrain, or 'surface', 'side' and 'at' on a block's side face "
+                       "(the terrain gives normal and friction)", key)
+    if entry.has("side"):
+        where = terrain.place_side(entry.string("surface"), entry.string("side", choices=("+x", "-x", "+y", "-y")),
+                                   entry.vector("at", 2), entry.path)
+    else:
+        if entry.has("at"):
+            entry.fail("at", "'at' only with 'side' (a foothold on a block's side face)", "at")
+        surface = entry.string("surface") if entry.has("surface") else None
+        where = terrain.place(entry.vector("xy", 2), surface, entry.at("xy"))
+    return where.foothold, where.surface, where.normal, where.friction
 
 
 def schedule_contacts(contacts, schedule: Schedule) -> list[ContactSpec]:

@@ -10,7 +10,9 @@ foothold (3,) [m, world], the unit surface normal (3,) pointing into the robot
 Kinds
 -----
 ``flat``     one horizontal plane.
-``blocks``   a floor plus axis-aligned blocks with flat tops (a stair landing).
+``blocks``   a floor plus axis-aligned blocks with flat tops (a stair landing);
+             a foot may also brace on a block's vertical side face
+             (:meth:`BlocksTerrain.place_side`).
 ``ramp``     one inclined plane of given slope angle and uphill direction.
 ``trench``   two facing slopes along the x axis (left wall at +y, right at -y),
              optionally with a flat bottom between them.
@@ -105,6 +107,11 @@ class Terrain:
     def _place(self, xy, surface, field) -> Placement:  # pragma: no cover - abstract
         raise NotImplementedError
 
+    def place_side(self, surface: str, side: str, at, field: str) -> Placement:
+        """A foothold on a vertical side face; only terrains with blocks have them."""
+        raise TaskError(self.fields.file, field + ".side", "a terrain with blocks (kind: blocks) for a foothold "
+                        "on a side face", f"kind {self.fields.raw('kind')}")
+
     def geometry(self) -> list[Surface]:  # pragma: no cover - abstract
         """The terrain's surfaces as half-spaces and boxes, named as in ``surfaces``."""
         raise NotImplementedError
@@ -185,6 +192,35 @@ class BlocksTerrain(Terrain):
             return Placement(np.array([xy[0], xy[1], self.floor_height]), UP.copy(), self.floor_friction, name)
         block = self.blocks[best]
         return Placement(np.array([xy[0], xy[1], block["height"]]), UP.copy(), block["friction"], name)
+
+    def place_side(self, surface: str, side: str, at, field: str) -> Placement:
+        """A foothold on a vertical side face of a block (a wall to brace against).
+
+        ``surface`` names the block (``block<i>``); ``side`` its face: ``+x``,
+        ``-x``, ``+y`` or ``-y`` (the face's outward normal, which points into
+        the robot); ``at`` (2,) m the point on the face: its horizontal world
+        coordinate along the face (y for an x face, x for a y face) and its
+        height z. The point must lie on the face at least ``edge_clearance``
+        from its edges (the floor counts as an edge).
+        """
+        blocks = {f"block{i}": b for i, b in enumerate(self.blocks)}
+        if surface not in blocks:
+            raise TaskError(self.fields.file, field + ".surface", "a block (side faces belong to blocks): "
+                            + ", ".join(blocks), surface)
+        block, axis = blocks[surface], "xy".index(side[1])
+        along, (u, z) = 1 - axis, (float(x) for x in at)
+        lo = block["center"] - block["half"]
+        room = min(block["half"][along] - abs(u - block["center"][along]), z - self.floor_height,
+                   block["height"] - z)
+        if room < self.clearance:
+            raise TaskError(self.fields.file, field + ".at", f"a point on the {side} face of {surface} at least "
+                            f"{self.clearance} m from its edges", f"[{u}, {z}] ({room:.3f} m)")
+        normal = np.zeros(3)
+        normal[axis] = 1.0 if side[0] == "+" else -1.0
+        foothold = np.zeros(3)
+        foothold[axis] = lo[axis] + (2 * block["half"][axis] if side[0] == "+" else 0.0)
+        foothold[along], foothold[2] = u, z
+        return Placement(foothold, normal, block["friction"], surface)
 
     def geometry(self) -> list[Surface]:
         """The floor plane and one solid box per block, from the floor up to its top."""

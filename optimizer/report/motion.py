@@ -18,6 +18,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
 from ..files import atomic_output
+from ..planfile import knot_surfaces
 from . import palette
 from .geometry import Skeleton, hand_targets, scene_extent, terrain_surfaces
 
@@ -49,9 +50,7 @@ class Scene:
         largest = max((x for e in entries for x in e.exact if math.isfinite(x) and x < 0.1 * e.certificate.settings.cap),
                       default=1.0)
         self.arrow_scale = ARROW_LENGTH / max(largest, 1e-6)   # m per N
-        self.normals = np.array(meta["contact_normals"], float).reshape(-1, 3)
-        self.tangents = np.array(meta["friction_pyramid"]["tangents"], float).reshape(-1, 2, 3)
-        self.friction = np.array(meta["friction"], float)
+        self.surfaces_at = [knot_surfaces(e.plan.meta, e.plan.q.shape[0]) for e in entries]  # per plan, per knot
         self.facets = int(meta["friction_pyramid"]["facets"])
 
     def draw(self, ax, index: int, k: int, title: str) -> None:
@@ -84,10 +83,11 @@ class Scene:
     def _draw_cones(self, ax, entry, k: int, feet) -> None:
         cmap = palette.use_map()
         use = entry.use.friction[k]
+        surfaces = self.surfaces_at[self.entries.index(entry)]
         for c, foot in enumerate(feet):
             if not entry.plan.contact_active[k, c]:
                 continue
-            n, (t1, t2), mu = self.normals[c], self.tangents[c], self.friction[c]
+            n, (t1, t2), mu = surfaces.normals[k, c], surfaces.tangents[k, c], surfaces.friction[k, c]
             angles = 2.0 * np.pi * (np.arange(self.facets) + 0.5) / self.facets
             edges = n[None] + mu * (np.cos(angles)[:, None] * t1 + np.sin(angles)[:, None] * t2)
             tips = foot + CONE_HEIGHT * edges / np.linalg.norm(edges, axis=1, keepdims=True)

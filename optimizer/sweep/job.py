@@ -23,6 +23,7 @@ from ..analysis.failure import diagnose, report_lines
 from ..analysis.margin_flags import certificate_shortfalls, plan_requirements, unmet
 from ..analysis.presolve import run_checks
 from ..errors import InputError
+from ..planfile import knot_surfaces
 from ..planner import DEFAULT_EVALUATION, Planner
 from .variant import build_task
 
@@ -187,11 +188,10 @@ def plan_figures(plan) -> dict:
     torque_use = np.where(tau >= 0, tau / np.where(upper != 0, upper, np.inf),
                           tau / np.where(lower != 0, lower, -np.inf))
     forces = np.asarray(plan.contact_forces)                      # (K, nc, 3)
-    normals = np.asarray(meta["contact_normals"], float)          # (nc, 3)
-    mu = np.asarray(meta["friction"], float)                      # (nc,)
-    normal = np.einsum("knj,nj->kn", forces, normals)
-    tangential = np.linalg.norm(forces - normal[..., None] * normals[None], axis=-1)
-    friction_use = tangential / np.maximum(mu[None] * normal, 1e-12)
+    surfaces = knot_surfaces(meta, forces.shape[0])               # normals (K, nc, 3), friction (K, nc)
+    normal = np.einsum("knj,knj->kn", forces, surfaces.normals)
+    tangential = np.linalg.norm(forces - normal[..., None] * surfaces.normals, axis=-1)
+    friction_use = tangential / np.maximum(surfaces.friction * normal, 1e-12)
     return {"margin_min_planned_N": float(np.min(plan.margin)), "margin_mean_planned_N": float(np.mean(plan.margin)),
             "peak_torque_use": float(np.max(torque_use)), "peak_friction_use": float(np.max(friction_use))}
 

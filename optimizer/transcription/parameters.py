@@ -18,8 +18,10 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     k's footholds in columns ``k nc .. k nc + nc - 1`` (a swinging contact's
     is the one it lands on; no row uses it); ``swing_heights`` (swings,) [m],
     the height above z = 0 each swing's foot must reach at mid-swing;
-    ``normals`` (3, nc); ``facets`` (3 m, nc), the pyramid rows of each contact
-    stacked; ``min_normal_force`` [N]; ``tau_lower``/``tau_upper`` (nj,) [N m];
+    ``normals`` (3, nc K) and ``facets`` (3 m, nc K), knot k's in columns
+    ``k nc .. k nc + nc - 1`` as the footholds: the unit normal and the
+    pyramid rows (stacked) of the surface each contact presses on at that
+    knot (numbers, so a foot may move from the floor onto a wall); ``min_normal_force`` [N]; ``tau_lower``/``tau_upper`` (nj,) [N m];
     ``target_position`` (3, n_slots) [m]; ``target_rotation`` (9, n_slots),
     column-major rotation matrices; ``shape<p>`` (d*d,) per disturbance;
     ``point_weights`` (P,), the points' normalized objective weights;
@@ -33,8 +35,8 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     layout.add("step")
     layout.add("footholds", 3, structure.nc * structure.knots)
     layout.add("swing_heights", len(structure.swings))
-    layout.add("normals", 3, structure.nc)
-    layout.add("facets", 3 * structure.facets, structure.nc)
+    layout.add("normals", 3, structure.nc * structure.knots)
+    layout.add("facets", 3 * structure.facets, structure.nc * structure.knots)
     layout.add("min_normal_force")
     layout.add("tau_lower", robot.nj)
     layout.add("tau_upper", robot.nj)
@@ -65,8 +67,10 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
     heights = [terrain_top(surfaces, *(iv.foothold for iv in schedule.ends(s))) + schedule.swing_height
                for s in structure.swings]
     layout.set(values, "swing_heights", np.array(heights))
-    layout.set(values, "normals", np.array([c.normal for c in task.contacts]).T)
-    rows = [pyramid_facets(c.normal, c.tangents, c.friction, structure.facets).reshape(-1) for c in task.contacts]
+    normals, tangents, friction = task.schedule.surfaces(task.contacts, task.times)
+    layout.set(values, "normals", normals.reshape(-1, 3).T)
+    rows = [pyramid_facets(n, t, mu, structure.facets).reshape(-1)
+            for n, t, mu in zip(normals.reshape(-1, 3), tangents.reshape(-1, 2, 3), friction.reshape(-1))]
     layout.set(values, "facets", np.array(rows).T)
     layout.set(values, "min_normal_force", task.min_normal_force)
     layout.set(values, "tau_lower", robot.torque_lower)
