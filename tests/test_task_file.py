@@ -121,6 +121,16 @@ def test_friction_reserve_scales_every_contact_friction_the_plan_meets(tmp_path)
     np.testing.assert_allclose(reserved.robot.torque_upper, plain.robot.torque_upper, rtol=0)
 
 
+def test_friction_reserve_also_scales_a_stance_interval_on_its_own_surface(tmp_path):
+    # Reference: the coefficients written in the task file (0.8 for the contact, 0.5 for its second foothold).
+    schedule = {"foot_fl": [{"window": [0.0, 0.8]},
+                            {"window": [1.2, 2.0], "position": [0.3, 0.18, 0.0], "normal": [0, 0, 1], "friction": 0.5}]}
+    task = load_task(write(tmp_path, variant(friction_reserve=0.2, stance__schedule=schedule)))
+    _, _, friction = task.schedule.surfaces(task.contacts, task.times)
+    assert friction[0, 0] == pytest.approx(0.8 * 0.8, rel=1e-12)
+    assert friction[-1, 0] == pytest.approx(0.5 * 0.8, rel=1e-12)
+
+
 def test_relative_robot_path_resolves_against_the_task_folder(tmp_path):
     folder = tmp_path / "deep"
     folder.mkdir()

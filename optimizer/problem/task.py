@@ -167,8 +167,9 @@ class Task:
         certified against.
     friction_reserve : float
         Fraction of every friction coefficient kept for the tracking
-        controller (``friction_reserve``): each of ``contacts`` already
-        carries its surface's coefficient times ``1 - friction_reserve``,
+        controller (``friction_reserve``): each of ``contacts`` (and each
+        stance interval with its own surface) already carries its surface's
+        coefficient times ``1 - friction_reserve``,
         which the plan meets and is certified against.
     """
 
@@ -250,7 +251,7 @@ def task_from_mapping(data: dict, path) -> Task:
     duration, knots = read_horizon(top.sub("horizon"))
     contacts, surfaces, schedule = read_stance(top.sub("stance"), robot, duration)
     friction_reserve = read_reserve(top, "friction_reserve")
-    contacts = [dataclasses.replace(c, friction=planned_value(c.friction, friction_reserve)) for c in contacts]
+    contacts = with_friction_reserve(contacts, schedule, friction_reserve)
     clearance = read_clearance(top, robot, schedule_contacts(contacts, schedule), surfaces)
     weight = robot.mass * float(np.linalg.norm(robot.gravity))
     hand_targets = read_hand_targets(top, robot, duration)
@@ -348,6 +349,14 @@ def read_stance(stance: Fields, robot, duration: float) -> tuple[list[ContactSpe
     for c in contacts:
         check_frame(stance, ("contacts." if explicit else "feet.") + c.frame, robot, c.frame)
     return contacts, surfaces, read_schedule(stance, contacts, terrain, duration)
+
+
+def with_friction_reserve(contacts, schedule: Schedule, reserve: float) -> list[ContactSpec]:
+    """``contacts`` on friction times ``1 - reserve``; ``schedule``'s intervals with their own friction likewise."""
+    schedule.intervals[:] = [[iv if iv.friction is None else
+                              dataclasses.replace(iv, friction=planned_value(iv.friction, reserve)) for iv in ivs]
+                             for ivs in schedule.intervals]
+    return [dataclasses.replace(c, friction=planned_value(c.friction, reserve)) for c in contacts]
 
 
 def read_schedule(stance: Fields, contacts, terrain, duration: float) -> Schedule:
