@@ -213,8 +213,8 @@ class _Run:
                 os.kill(self.pid, signal.SIGKILL)
             with contextlib.suppress(ChildProcessError, OSError):
                 os.waitpid(self.pid, 0)
-        if self.reader is not None:  # the work is dead: its last messages are in the pipe
-            self.reader.join(timeout=0.5)
+        if self.reader is not None and self.reader.is_alive():  # the work is dead: its last messages are in the pipe
+            self.reader.join(timeout=0.5)  # (not alive: the signal came before the reader had started)
         self.clean()
         name = STOP_SIGNALS.get(signum, f"signal {int(signum)}")
         spent = time.monotonic() - self.phase_started

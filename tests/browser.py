@@ -105,6 +105,8 @@ class Pipe:
         os.close(self.from_browser)
 
 
+STARTUP_SECONDS = 180.0  # s the browser may take to answer its first command
+
 IMAGES = "JSON.stringify(Array.from(document.images).map(i => [i.getAttribute('src'), i.naturalWidth, i.naturalHeight, i.complete]))"
 
 
@@ -114,6 +116,9 @@ class Browser:
     def __init__(self, path: str):
         self.profile = tempfile.mkdtemp(prefix="brace-browser-")
         self.pipe = Pipe(path, self.profile)
+        # A first start with a fresh profile on a busy machine can take well over 30 s:
+        # wait for the browser's first answer once, generously, before any page is timed.
+        self.pipe.send("Browser.getVersion", timeout=STARTUP_SECONDS)
 
     def __enter__(self):
         return self
