@@ -240,6 +240,8 @@ def _sizes_from_meta(path: Path, meta: dict) -> dict:
     f.vector("friction", nc)
     _check_pyramid(f.sub("friction_pyramid"), nc)
     _check_min_normal_force(f, nc)
+    if f.has("contact_preload"):
+        _check_preload(f, nc)
     limits = f.sub("torque_limits")
     for side in ("lower", "upper"):
         _limit_vector(limits, side, nj)
@@ -257,6 +259,24 @@ def _check_min_normal_force(f: Fields, nc: int) -> None:
             f.fail("min_normal_force", f"{nc} numbers >= 0 N (one per contact)", values.tolist())
     else:
         f.number("min_normal_force", lo=0.0)
+
+
+def _check_preload(f: Fields, nc: int) -> None:
+    """``meta.contact_preload``: nc numbers >= 0, N (the planned normal force each contact keeps)."""
+    values = f.vector("contact_preload", nc)
+    if np.any(values < 0):
+        f.fail("contact_preload", f"{nc} numbers >= 0 N (one per contact)", values.tolist())
+
+
+def preloads(meta: dict) -> np.ndarray:
+    """Each contact's preload in a plan's ``meta``, N, shape (nc,); zeros when the plan has none."""
+    return np.asarray(meta.get("contact_preload") or [0.0] * len(meta["contact_frames"]), float)
+
+
+def preload_meta(task) -> dict:
+    """The plan ``meta`` entry of ``task``'s preloads (``contact_preload``), empty when no contact has one."""
+    values = [float(c.preload) for c in task.contacts]
+    return {"contact_preload": values} if any(values) else {}
 
 
 def min_normal_forces(meta: dict) -> np.ndarray:

@@ -141,6 +141,11 @@ def plan_with_short_minimum_list(tmp):
     return _save(tmp, arrays, {**meta, "min_normal_force": [5.0, 5.0, 30.0]})
 
 
+def plan_with_negative_preload(tmp):
+    arrays, meta = _plan_arrays()
+    return _save(tmp, arrays, {**meta, "contact_preload": [0.0, -30.0, 0.0, 0.0]})
+
+
 def plan_not_npz(tmp):
     path = tmp / "plan.npz"
     path.write_text("not an archive", encoding="utf-8")
@@ -196,6 +201,8 @@ CASES = {
                                                r"field 'stance.contacts.foot_fl.min_normal_force'.*a number >= 0, got -5"),
     "task-foot-min-normal-force-text": (task_case(changed(TASK, stance=PLACED_STANCE, stance__feet__foot_fl__min_normal_force="firm")),
                                         r"field 'stance.feet.foot_fl.min_normal_force'.*a number, got 'firm'"),
+    "task-preload-negative": (task_case(changed(TASK, stance__contacts__foot_fr__preload=-30)),
+                              r"field 'stance.contacts.foot_fr.preload'.*a number >= 0, got -30"),
     "task-knots-below-2": (task_case(changed(TASK, horizon__knots=1)), r"field 'horizon.knots'.*a whole number >= 2"),
     "task-knots-huge": (task_case(changed(TASK, horizon__knots=10 ** 7)), r"field 'horizon.knots'.*a whole number <= 2000"),
     "cli-knots-below-2": (task_case(TASK, extra=("--knots", "1")), r"command line: field '--knots'.*from 2 to 2000"),
@@ -233,6 +240,8 @@ CASES = {
                              r"command line: field '--out'.*a file path for the plan"),
     # plan files
     "plan-missing-key": (plan_case(plan_without_tau), r"plan.npz: field 'tau'.*missing key"),
+    "plan-preload-negative": (plan_case(plan_with_negative_preload),
+                              r"field 'meta.contact_preload'.*4 numbers >= 0 N"),
     "plan-min-normal-force-length": (plan_case(plan_with_short_minimum_list),
                                      r"field 'meta.min_normal_force'.*a list of 4 numbers"),
     "plan-wrong-shape": (plan_case(plan_with_short_q), r"plan.npz: field 'q'.*shape \(K=2, nq=25\)"),

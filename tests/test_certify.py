@@ -94,6 +94,17 @@ def test_a_contact_s_own_minimum_normal_force_is_certified_per_contact():
     check_plan_against_sampled_lps(plan, n_dirs=200, knots=[0])
 
 
+def test_a_preload_is_not_a_limit_of_the_certified_response():
+    # A preload (meta.contact_preload) binds the plan's own forces only: the figure equals the
+    # plan's without it, and exceeds the one with the same value as foot_hr's minimum.
+    share = 20.0 * 9.81 / 4
+    plan = box_plan()
+    plan.meta["contact_preload"] = [0.0, 0.0, 0.0, 0.95 * share]
+    preloaded = certify_plan(plan).knots[0]
+    assert preloaded.rho == pytest.approx(certify_plan(box_plan()).knots[0].rho, rel=1e-9)
+    assert preloaded.rho > certify_plan(box_plan(min_normal_force=[0.0, 0.0, 0.0, 0.95 * share])).knots[0].rho
+
+
 def test_demo_plan_lies_between_independent_sampled_lp_bounds(demo_plan):
     # Independent method: SciPy linprog over (u, dtau, dlambda) with all nv rows along 200
     # sampled directions (upper bound) and the inscribed radius of their support points'

@@ -76,6 +76,9 @@ def test_a_force_pushed_outside_its_pyramid_fails_only_the_friction_check(standi
     # the other contacts' minima zero: only that contact is named
     ("normal-force", lambda p: p.meta.update(min_normal_force=[0.0, 0.0, float(p.contact_forces[:, 2, 2].min()) + 1.0,
                                                                0.0]), "foot_rl"),
+    # a preload (meta.contact_preload) above what that foot carries
+    ("normal-force", lambda p: p.meta.update(contact_preload=[0.0, float(p.contact_forces[:, 1, 2].min()) + 1.0, 0.0,
+                                                              0.0]), "foot_fr"),
     # a torque limit just under a torque the plan needs
     ("torque", lambda p: p.meta["torque_limits"]["upper"].__setitem__(
         int(np.argmax(p.tau[3])), float(p.tau[3].max()) - 0.5), None),

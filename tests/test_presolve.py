@@ -184,6 +184,18 @@ def test_min_normal_force_beyond_the_weight_share(tmp_path):
     assert finding.shortfall == pytest.approx(150.0 - share, rel=1e-3)
 
 
+def test_a_preload_beyond_the_weight_is_refused(tmp_path):
+    # Statics on flat ground (Newton): the four normal forces sum to m g, so no foot can keep a
+    # preload above m g, whatever the others do; below it the contacts can carry the weight.
+    data = flat_task(min_normal_force=0.0)
+    weight = load(tmp_path, data).weight
+    data["stance"]["contacts"]["foot_fl"]["preload"] = 1.05 * weight
+    finding = standing_findings(load(tmp_path, data))[0]
+    assert finding.impossible and f"foot_fl {1.05 * weight:.1f} N" in finding.what
+    data["stance"]["contacts"]["foot_fl"]["preload"] = 0.95 * weight
+    assert standing_findings(load(tmp_path, data)) == []
+
+
 def test_surfaces_facing_down_cannot_carry_the_weight(tmp_path):
     data = flat_task()
     for spec in data["stance"]["contacts"].values():

@@ -25,7 +25,7 @@ from typing import Callable
 import numpy as np
 import pinocchio as pin
 
-from ..planfile import knot_surfaces, min_normal_forces
+from ..planfile import knot_surfaces, min_normal_forces, preloads
 from ..problem.geometry import Surface
 from .clearance import plan_clearance, plan_self_clearance
 
@@ -170,11 +170,12 @@ def measure_friction(facts: PlanFacts) -> Worst:
 
 
 def measure_normal_force(facts: PlanFacts) -> Worst:
-    """Shortfall [N] of an active contact's normal force under its minimum (``meta.min_normal_force``)."""
+    """Shortfall [N] of an active contact's normal force under its minimum (``meta.min_normal_force``) or,
+    when larger, its preload (``meta.contact_preload``)."""
     plan = facts.plan
     normals = knot_surfaces(facts.meta, plan.q.shape[0]).normals
     push = np.einsum("kci,kci->kc", plan.contact_forces, normals)
-    shortfall = min_normal_forces(facts.meta)[None, :] - push
+    shortfall = np.maximum(min_normal_forces(facts.meta), preloads(facts.meta))[None, :] - push
     return worst_entry(np.where(plan.contact_active, shortfall, -np.inf), facts.contact_names)
 
 
@@ -352,7 +353,7 @@ CHECKS: list[Check] = [
     Check("footholds", "stance contacts on their footholds", "m", 1e-5, measure_footholds),
     Check("surfaces", "stance footholds on a terrain face along their normal", "m", 1e-6, measure_surfaces),
     Check("friction", "stance forces inside their friction pyramids", "N", 1e-6, measure_friction),
-    Check("normal-force", "stance normal forces at or above the minimum", "N", 1e-6, measure_normal_force),
+    Check("normal-force", "stance normal forces at or above the minimum (and preload)", "N", 1e-6, measure_normal_force),
     Check("swing-forces", "no force at contacts out of stance", "N", 1e-9, measure_swing_forces),
     Check("torque", "joint torques within their limits", "N m", 1e-6, measure_torque),
     Check("joint-position", "joint positions within the URDF limits", "rad", 1e-6, measure_joint_positions),

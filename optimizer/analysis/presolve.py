@@ -185,7 +185,8 @@ def _force_balance_lp(task, facet_rows, scale: float, min_force: float | None, m
     ``contacts`` defaults to the task's (all of them, as at the final rest).
     ``facet_rows(contact, mu)`` gives rows ``g`` with ``g . f <= 0``; friction
     is scaled by ``scale``; every normal force is at least ``min_force`` N
-    (None: each contact's own minimum, ``ContactSpec.min_normal_force``).
+    (None: each contact's least planned force, ``ContactSpec.least_normal_force``: its own minimum, or
+    its preload when larger).
     With ``maximize_min_force`` the common lower bound on the normal forces is
     a variable and maximized; returns (forces, bound) then.
     """
@@ -202,7 +203,7 @@ def _force_balance_lp(task, facet_rows, scale: float, min_force: float | None, m
         row[3 * c:3 * c + 3] = -np.asarray(contact.normal)
         if maximize_min_force:
             row[-1] = 1.0
-        least = float(contact.min_normal_force) if min_force is None else min_force
+        least = contact.least_normal_force if min_force is None else min_force
         rows.append(row), rhs.append(0.0 if maximize_min_force else -least)
     a_eq = np.hstack([np.tile(np.eye(3), nc), np.zeros((3, nx - 3 * nc))])
     b_eq = -robot.mass * np.asarray(robot.gravity, float)
@@ -252,8 +253,10 @@ def _friction_words(task, scale: float) -> str:
 
 def _minimum_words(task) -> str:
     """The task's minimum normal forces in words: the task-wide one and each contact's own, N."""
-    own = [f"{c.frame} {c.min_normal_force:.1f} N" for c in task.contacts if c.min_normal_force != task.min_normal_force]
-    return f"min_normal_force {task.min_normal_force:.1f} N" + (f" ({', '.join(own)})" if own else "")
+    own = [f"{c.frame} {c.least_normal_force:.1f} N" for c in task.contacts
+           if c.least_normal_force != task.min_normal_force]
+    return f"min_normal_force {task.min_normal_force:.1f} N" + (f" ({', '.join(own)}: own minimum or preload)"
+                                                                  if own else "")
 
 
 def standing_findings(task) -> list[Finding]:
@@ -277,10 +280,10 @@ def standing_findings(task) -> list[Finding]:
         return []
     if _force_balance_lp(task, inscribed, 1.0, 0.0) is not None:
         _, best = _force_balance_lp(task, inscribed, 1.0, 0.0, maximize_min_force=True)
-        largest = float(task.min_normal_forces().max())
+        largest = max(c.least_normal_force for c in task.contacts)
         return [Finding("standing", True, f"{_minimum_words(task)} cannot hold on every contact while standing "
                         f"still: at most {best:.1f} N is possible on all of them at once",
-                        f"lower min_normal_force to {best:.1f} N or less (or a contact's own where it is larger)",
+                        f"lower min_normal_force to {best:.1f} N or less (and any contact's own or preload above it)",
                         largest - best, "N")]
     scale = _smallest_friction_scale(task, inscribed, 0.0)
     keep = math.cos(math.pi / task.facets)

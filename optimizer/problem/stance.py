@@ -403,7 +403,8 @@ def static_support_lp(robot, q, contacts, facets: int = 4, min_normal_force=None
         Facets of each inscribed friction pyramid.
     min_normal_force : float, array-like (len(contacts),) or None
         Smallest normal force of every contact, or one per contact, N; None
-        (default): each contact's own (``ContactSpec.min_normal_force``).
+        (default): each contact's least planned force (``ContactSpec.least_normal_force``: its minimum
+        normal force or, when larger, its preload).
     torque_limits : tuple of two arrays (nj,), optional
         ``(lower, upper)`` in N m; default the robot's; infinite entries drop
         the joint's torque rows.
@@ -413,7 +414,7 @@ def static_support_lp(robot, q, contacts, facets: int = 4, min_normal_force=None
     limits = (robot.torque_lower, robot.torque_upper) if torque_limits is None else torque_limits
     limits = tuple(np.broadcast_to(np.asarray(x, float), (robot.nj,)) for x in limits)
     if min_normal_force is None:
-        min_normal_force = np.array([float(c.min_normal_force) for c in contacts])
+        min_normal_force = np.array([c.least_normal_force for c in contacts])
     a_ub, b_ub, names = _inequalities(robot, contacts, jac, gravity, facets, min_normal_force, limits)
     a_eq = np.hstack([jac[:, :6].T, np.zeros((6, 1))])
     n = a_eq.shape[1]

@@ -66,7 +66,13 @@ class ContactSpec:
         are exempt from it in the clearance checks).
     min_normal_force : float
         Smallest normal force the contact keeps while in stance, N: its own
-        (``min_normal_force`` of its stance entry) or the task's.
+        (``min_normal_force`` of its stance entry) or the task's. A limit:
+        the certified response to a push keeps it too.
+    preload : float
+        Normal force the planned motion keeps at the contact while in stance,
+        N (``preload`` of its stance entry, default 0): room for the tracking
+        controller, not a limit of the certified response, which may unload
+        the contact down to ``min_normal_force``.
     """
 
     frame: str
@@ -76,6 +82,12 @@ class ContactSpec:
     friction: float
     surface: str = ""
     min_normal_force: float = 0.0
+    preload: float = 0.0
+
+    @property
+    def least_normal_force(self) -> float:
+        """The smallest normal force of the planned motion at this contact, N: its minimum or its preload."""
+        return max(float(self.min_normal_force), float(self.preload))
 
 
 @dataclass
@@ -487,10 +499,14 @@ def read_clearance(top: Fields, robot, contacts, surfaces) -> ClearanceSpec:
     return clearance_spec(robot, contacts, used, distance)
 
 
-def make_contact(frame, foothold, normal, friction, surface: str = "", min_normal_force=0.0) -> ContactSpec:
+def make_contact(frame, foothold, normal, friction, surface: str = "", min_normal_force=0.0,
+                 preload: float = 0.0) -> ContactSpec:
     """A ContactSpec; ``min_normal_force`` [N] None until the task's is filled in (:func:`task_from_mapping`)."""
     return ContactSpec(frame, np.asarray(foothold, float), np.asarray(normal, float), tangent_basis(normal), friction,
-                       surface, min_normal_force)
+                       surface, min_normal_force, preload)
+
+
+CONTACT_FORCES = {"min_normal_force", "preload"}   # a stance entry's own normal-force keys
 
 
 def read_own_normal_force(spec: Fields) -> float | None:
@@ -498,37 +514,42 @@ def read_own_normal_force(spec: Fields) -> float | None:
     return spec.number("min_normal_force", lo=0.0) if spec.has("min_normal_force") else None
 
 
+def read_preload(spec: Fields) -> float:
+    """A contact's ``preload`` (N, >= 0, default 0)."""
+    return spec.number("preload", 0.0, lo=0.0)
+
+
 def read_explicit_contacts(contacts: Fields) -> list[ContactSpec]:
-    """``{frame: {position, normal, friction, min_normal_force?}}``."""
+    """``{frame: {position, normal, friction, min_normal_force?, preload?}}``."""
     out = []
     for frame in contacts.data:
         require_text_key(contacts, frame)
         spec = contacts.sub(str(frame))
-        spec.allow_only({"position", "normal", "friction", "min_normal_force"})
+        spec.allow_only({"position", "normal", "friction"} | CONTACT_FORCES)
         out.append(make_contact(str(frame), spec.vector("position", 3), unit_vector(spec, "normal"),
                                 spec.number("friction", lo=0.0, lo_open=True),
-                                min_normal_force=read_own_normal_force(spec)))
+                                min_normal_force=read_own_normal_force(spec), preload=read_preload(spec)))
     return out
 
 
 def read_placed_feet(stance: Fields, terrain) -> tuple[list[ContactSpec], list]:
-    """Feet ``{frame: [x, y]}`` or ``{frame: {xy: [x, y], surface: name, min_normal_force: N}}`` placed on
-    ``terrain``."""
+    """Feet ``{frame: [x, y]}`` or ``{frame: {xy: [x, y], surface: name, min_normal_force: N, preload: N}}``
+    placed on ``terrain``."""
     feet = stance.sub("feet")
     out = []
     for frame in feet.data:
         require_text_key(feet, frame)
         key = str(frame)
-        own = None
+        own, preload = None, 0.0
         if isinstance(feet.raw(key), dict):
             spec = feet.sub(key)
-            spec.allow_only({"xy", "surface", "min_normal_force"})
-            xy, own = spec.vector("xy", 2), read_own_normal_force(spec)
+            spec.allow_only({"xy", "surface"} | CONTACT_FORCES)
+            xy, own, preload = spec.vector("xy", 2), read_own_normal_force(spec), read_preload(spec)
             surface = spec.string("surface") if spec.has("surface") else None
         else:
             xy, surface = feet.vector(key, 2), None
         where = terrain.place(xy, surface, feet.at(key))
-        out.append(make_contact(key, where.foothold, where.normal, where.friction, where.surface, own))
+        out.append(make_contact(key, where.foothold, where.normal, where.friction, where.surface, own, preload))
     return out, terrain.geometry()
 
 

@@ -56,6 +56,8 @@ for _name, _words, _hint in (
      "or move the other feet so they carry more of the load"),
     ("minimum normal force", "minimum normal force per contact", "the named feet would lift off: place them nearer "
      "under the centre of mass, or lower min_normal_force"),
+    ("preload", "preload per contact (the planned normal force)", "the named feet cannot press that hard along "
+     "the motion: lower their preload, or place them where the other feet can push back"),
     ("hand target", "hand targets", "lower the hand target or bring it closer to the body, or move the feet "
      "(e.g. the rear feet closer) toward it"),
     ("robust balance", "robustness: balance of the disturbance response", "shrink the disturbance shape, or solve "

@@ -203,6 +203,7 @@ class Transcription:
         self._by_pattern("stance contacts", stance, knots, self._contact_rows(3), unit="m",
                          who=[c for c in frames for _ in range(3)])
         names = f.limits.names
+        self._preloads(V, P)
         if self.objective.robust:
             scales = ca.repmat(f.room_scales(P["tau_lower"], P["tau_upper"]), 1, K)
             self._by_pattern("limit rooms", (self._rooms(V["tau"], V["lam"], P) - V["rooms"]) / scales, range(K),
@@ -215,6 +216,17 @@ class Transcription:
                          LIMIT_BACKOFF, INF, unit="m g", who=[n.owner for n in contact_limits if n.kind == FRICTION])
         self._by_pattern("minimum normal force", normal_rooms, range(K), self._contact_rows(1), LIMIT_BACKOFF, INF,
                          unit="m g", who=[n.owner for n in contact_limits if n.kind == NORMAL_FORCE])
+
+    def _preloads(self, V, P):
+        """The plan's own normal force at least each preloaded contact's preload (``n . lam >= preload``),
+        at its stance knots; plain rows only: the certified response keeps the minimum normal force."""
+        preloaded = self.structure.preloaded
+        if not preloaded:
+            return
+        K = self.structure.knots
+        _, rooms = self._map(self.functions.friction, K)(V["lam"], P["facets"], P["normals"], P["preload"])
+        self._by_pattern("preload", rooms, range(K), lambda pattern: [c for c in preloaded if pattern[c]],
+                         LIMIT_BACKOFF, INF, unit="m g", who=list(self.structure.contact_frames))
 
     def _swings(self, V, P):
         """Per swing: the foot at rest at touchdown (``J_c v = 0``, 3 rows) and, at mid-swing, its height

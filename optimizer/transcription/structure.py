@@ -78,6 +78,10 @@ class Structure:
     swings : tuple of Swing
         Each swing's lift-off, touchdown and mid-swing knots
         (:mod:`optimizer.problem.schedule`).
+    preloaded : tuple of int
+        Contacts whose preload exceeds their minimum normal force: each gets
+        a ``preload`` row per stance knot (the plan's own force only, not its
+        certified response); the values are a parameter.
     """
 
     knots: int
@@ -93,6 +97,7 @@ class Structure:
     self_labels: tuple = ()
     activity: tuple = ()
     swings: tuple = ()
+    preloaded: tuple = ()
 
     def active(self, k: int) -> tuple:
         """Contacts in stance at knot ``k`` (bools, length nc)."""
@@ -136,6 +141,7 @@ def structure_of(task) -> Structure:
     return Structure(
         activity=tuple(tuple(bool(x) for x in row) for row in activity) if not activity.all() else (),
         swings=tuple(task.schedule.swings(times)),
+        preloaded=tuple(c for c, contact in enumerate(task.contacts) if contact.preload > contact.min_normal_force),
         knots=task.knots,
         contact_frames=tuple(c.frame for c in task.contacts),
         facets=task.facets,
