@@ -14,12 +14,14 @@ can track closely (see benchmarks/RESULTS.md, "Simulation").
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import matplotlib.image
 import mujoco
 import numpy as np
 import pinocchio as pin
 import pytest
+import yaml
 
 from certify_checks import demo_standing, standing_plan
 from optimizer.cli import main
@@ -147,6 +149,30 @@ def test_the_steep_ramp_torque_plan_keeps_its_feet_with_the_friction_reserve():
     np.testing.assert_allclose(outcome.plan.meta["friction"],
                                (1.0 - task.friction_reserve) * task.raw["stance"]["terrain"]["friction"])
     assert_tracks(simulator(outcome.plan).nominal())
+
+
+@pytest.mark.slow
+def test_the_crawl_space_torque_plan_keeps_its_ceiling_feet_with_their_preload():
+    # The torque-optimal plan pressed its ceiling feet with the minimum normal force (4.9 N) on a
+    # friction facet and the replay lost them. With the task's preload the planned normal force of
+    # each such foot is at least its preload at every stance knot (read from the plan file's forces
+    # against the task file read as plain YAML; the ceiling's normal points down), the torque
+    # objective presses no harder than it must, and MuJoCo's replay keeps every foot.
+    raw = yaml.safe_load(Path("tasks/crawl_space.yaml").read_text(encoding="utf-8"))
+    preloads = {frame: float(spec["preload"]) for frame, spec in raw["stance"]["feet"].items()
+                if isinstance(spec, dict) and "preload" in spec}
+    assert preloads, "the crawl space's ceiling feet carry a preload"
+    outcome = solve(load_task("tasks/crawl_space.yaml"), "torque", knots=SIM_KNOTS)
+    assert outcome.success, [(s.objective, s.status) for s in outcome.stages]
+    plan = outcome.plan
+    for frame, preload in preloads.items():
+        c = plan.meta["contact_frames"].index(frame)
+        normal = np.asarray(plan.meta["contact_normals"][c], float)
+        np.testing.assert_allclose(normal, [0.0, 0.0, -1.0], atol=1e-12)
+        push = (plan.contact_forces[:, c] @ normal)[plan.contact_active[:, c]]
+        assert push.min() >= preload - 1e-6, (frame, push.min())
+        assert push.min() <= preload + 1.0, (frame, push.min())
+    assert_tracks(simulator(plan).nominal())
 
 
 @pytest.mark.slow
