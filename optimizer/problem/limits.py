@@ -17,8 +17,9 @@ kind                  owner                  room                         scale
 ``g_cj`` are the rows of the contact's inscribed friction pyramid
 (:func:`optimizer.problem.friction.pyramid_facets`), ``n_c`` its unit normal
 (into the robot) and ``f_min`` its smallest normal force [N] (one number for
-every contact, or one per contact: a foot braced against a ceiling may need
-a larger preload than a foot standing on the floor). The scale of a
+every contact, or one per contact: a task may give one foot a larger
+minimum than the others). A contact's preload is not a limit row: the
+transcription keeps it on the planned forces only. The scale of a
 row is what one unit of its room means in the NLP's scaled rows.
 
 :class:`KnotLimits` lists the rows in one order (all torque upper sides, all
