@@ -384,6 +384,17 @@ def _inequalities(robot, contacts, jac, gravity, facets, min_normal_force, limit
     return np.array(rows), np.array(rhs), [names[i] for i in order]
 
 
+def _preload_rows(contacts):
+    """Rows ``-n_c . lambda_c <= -preload_c`` (slack column 0) of the contacts whose preload exceeds their minimum."""
+    rows, rhs = [], []
+    for c, contact in enumerate(contacts):
+        if contact.preload > contact.min_normal_force:
+            row = np.zeros(3 * len(contacts) + 1)
+            row[3 * c:3 * c + 3] = -np.asarray(contact.normal, float)
+            rows.append(row), rhs.append(-float(contact.preload))
+    return np.array(rows).reshape(-1, 3 * len(contacts) + 1), np.array(rhs)
+
+
 def static_support_lp(robot, q, contacts, facets: int = 4, min_normal_force=None,
                       torque_limits=None) -> StaticSupport:
     """Can the robot hold still at ``q`` on ``contacts``? (LP, SciPy HiGHS.)
@@ -403,8 +414,9 @@ def static_support_lp(robot, q, contacts, facets: int = 4, min_normal_force=None
         Facets of each inscribed friction pyramid.
     min_normal_force : float, array-like (len(contacts),) or None
         Smallest normal force of every contact, or one per contact, N; None
-        (default): each contact's least planned force (``ContactSpec.least_normal_force``: its minimum
-        normal force or, when larger, its preload).
+        (default): each contact's own (``ContactSpec.min_normal_force``), and
+        its preload, where larger, as a floor on its force that the slack
+        does not measure (a preload is not a limit).
     torque_limits : tuple of two arrays (nj,), optional
         ``(lower, upper)`` in N m; default the robot's; infinite entries drop
         the joint's torque rows.
@@ -413,9 +425,12 @@ def static_support_lp(robot, q, contacts, facets: int = 4, min_normal_force=None
     gravity, jac = _static_terms(robot, q, contacts)
     limits = (robot.torque_lower, robot.torque_upper) if torque_limits is None else torque_limits
     limits = tuple(np.broadcast_to(np.asarray(x, float), (robot.nj,)) for x in limits)
+    floors = _preload_rows(contacts) if min_normal_force is None else None
     if min_normal_force is None:
-        min_normal_force = np.array([c.least_normal_force for c in contacts])
+        min_normal_force = np.array([float(c.min_normal_force) for c in contacts])
     a_ub, b_ub, names = _inequalities(robot, contacts, jac, gravity, facets, min_normal_force, limits)
+    if floors is not None:
+        a_ub, b_ub = np.vstack([a_ub, floors[0]]), np.concatenate([b_ub, floors[1]])
     a_eq = np.hstack([jac[:, :6].T, np.zeros((6, 1))])
     n = a_eq.shape[1]
     cost = np.zeros(n)
