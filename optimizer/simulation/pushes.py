@@ -3,7 +3,9 @@
 :class:`Simulator` builds the scene once. :meth:`Simulator.nominal` replays
 the plan without a push and measures tracking: base and hand against the
 plan at every knot, the hand against every target, each contact point against
-its foothold, contact losses, clipped torques. :meth:`Simulator.largest_push`
+the foothold of each of its stance intervals while the plan has it in stance
+(:mod:`.stances`; swinging feet are not judged), contact losses in stance,
+clipped torques. :meth:`Simulator.largest_push`
 pushes at the disturbance frame along the certified weakest direction of a
 knot (exact certification, :mod:`optimizer.analysis.certify`), full size from
 the knot's time on for ``hold`` seconds (from ``ramp`` on at the first knot, so
@@ -46,10 +48,11 @@ class Settings:
     rules : SurvivalRules
     full_error, stance_full_error : float
         Joint error [rad] at which the PD stiffness reaches the torque limit,
-        for free joints (the arm) and for joints that move a stance contact
-        (the legs; softer, so that tracking errors of a closed chain do not
-        squeeze the feet off their footholds); ``damping`` the damping ratio
-        of each joint alone.
+        for free joints (the arm, a swinging leg) and for joints that move a
+        contact in stance at the knot (the legs; softer, so that tracking
+        errors of a closed chain do not squeeze the feet off their
+        footholds, stiff enough that the base does not sag while a foot
+        swings); ``damping`` the damping ratio of each joint alone.
     hold, ramp, settle : float
         Push held at full size [s], ramp up and down [s], watched after it [s].
     tolerance : float
@@ -59,8 +62,11 @@ class Settings:
         Largest push tried, in multiples of the certified margin.
     foot_tolerance, target_tolerance : float
         Nominal replay passes when every contact point stays within
-        ``foot_tolerance`` [m] of its foothold and the hand within
-        ``target_tolerance`` [m] of every target.
+        ``foot_tolerance`` [m] of its interval's foothold while judged in
+        stance and the hand within ``target_tolerance`` [m] of every target.
+    swing_correction : bool
+        Steer swinging legs along the plan's world-frame foot path
+        (:class:`~optimizer.simulation.reference.SwingPaths`).
     """
 
     contact: ContactSettings = field(default_factory=ContactSettings)
