@@ -171,7 +171,7 @@ class SwingPaths:
     knots' contact points (Pinocchio forward kinematics of ``plan.q``). The
     joint PD then steers the foot along its planned world path from wherever
     the base is. Which joints move only one contact is read from the
-    contact Jacobians at the first knot (a leg's joints).
+    contact Jacobians at the first knot (a leg's joints; plan joint order).
 
     Parameters
     ----------
@@ -187,13 +187,14 @@ class SwingPaths:
         frames = [pin_model.getFrameId(n) for n in plan.meta["contact_frames"]]
         K, nc = np.asarray(plan.contact_active).shape
         self.points = np.zeros((K, nc, 3))
-        legs = np.zeros((nc, pin_model.nv - 6), bool)
+        legs = np.zeros((nc, len(plan.meta["joint_names"])), bool)
         for k, q in enumerate(plan.q):
             pin.framesForwardKinematics(pin_model, data, q)
             self.points[k] = [data.oMf[f].translation for f in frames]
         pin.computeJointJacobians(pin_model, data, plan.q[0])
+        dofs = [pin_model.joints[pin_model.getJointId(n)].idx_v for n in plan.meta["joint_names"]]
         moves = np.array([np.abs(pin.getFrameJacobian(pin_model, data, f, pin.ReferenceFrame.LOCAL_WORLD_ALIGNED)
-                                 [:3, 6:]).max(axis=0) > 1e-9 for f in frames]).reshape(nc, -1)
+                                 [:3, dofs]).max(axis=0) > 1e-9 for f in frames]).reshape(nc, -1)
         for c in range(nc):
             legs[c] = moves[c] & ~np.delete(moves, c, axis=0).any(axis=0)
         self.legs = [np.flatnonzero(row) for row in legs]

@@ -1,9 +1,12 @@
 """The stepping loop: controller, push, and what happened at every step.
 
 Each step (MuJoCo's split step, so the controller sees the current state):
-the joint torque is the plan's feed-forward torque plus joint PD tracking,
-plus in ``informed`` mode the plan's response to the push acting right now
-(the controller is told the push exactly, as from an ideal force sensor);
+the joint torque is the plan's feed-forward torque plus joint PD tracking
+(gains of the knot whose step it is; a swinging leg's reference shifted
+towards the plan's world-frame foot path,
+:class:`~optimizer.simulation.reference.SwingPaths`), plus in ``informed``
+mode the plan's response to the push acting right now (the controller is
+told the push exactly, as from an ideal force sensor);
 torques are clipped to the plan's limits. The ``-Kd v`` part of the PD acts
 through MuJoCo's joint damping, which ``implicitfast`` integrates implicitly
 (two nearly coaxial wrist joints form a mode with almost no inertia that an
@@ -14,7 +17,8 @@ at the disturbance frame's origin, world axes.
 
 A :class:`Rollout` records, per step, the contact points, their normal
 forces and which torques were clipped, and stops early at the first broken
-survival rule when asked to (:class:`SurvivalRules`).
+survival rule when asked to (:class:`SurvivalRules`; only feet the plan has
+in stance are judged).
 """
 from __future__ import annotations
 
@@ -31,8 +35,6 @@ MODES = ("informed", "blind")
 class SurvivalRules:
     """What counts as surviving a push.
 
-    Attributes
-    ----------
     Feet are judged only while the plan has them in stance
     (:mod:`optimizer.simulation.stances`): a swinging foot may move and carry
     no force freely.
@@ -240,7 +242,6 @@ class Rollout:
                 if rec.failure:
                     return _trimmed(rec, i + 1)
         return rec
-
 
     def _swing_shift(self, t: float, error, jacobian) -> None:
         """Add to ``error`` (joint reference minus position) the swing legs' world-frame correction."""
