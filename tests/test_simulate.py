@@ -226,6 +226,9 @@ def test_cli_writes_the_nominal_report_and_refuses_bad_options(tmp_path, capsys)
     assert main(["simulate", str(path), "--slip", "-1"]) == 2
     err = capsys.readouterr().err
     assert len(err.strip().splitlines()) == 1 and "--slip" in err
+    assert main(["simulate", str(path), "--touchdown", "0"]) == 2
+    err = capsys.readouterr().err
+    assert len(err.strip().splitlines()) == 1 and "--touchdown" in err
     assert main(["simulate", str(tmp_path / "nope.npz")]) == 2
     assert "nope.npz" in capsys.readouterr().err
 
