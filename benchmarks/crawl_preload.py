@@ -57,6 +57,10 @@ VARIANTS = {
     "ceiling preload 30 N": ({"preload": 30.0}, {}),
     "ceiling preload 30 N + fr 0.1": ({"preload": 30.0}, {"friction_reserve": 0.1}),
     "ceiling preload 30 N + fr 0.2": ({"preload": 30.0}, {"friction_reserve": 0.2}),
+    "ceiling preload 35 N + fr 0.1": ({"preload": 35.0}, {"friction_reserve": 0.1}),
+    "ceiling preload 35 N + fr 0.2": ({"preload": 35.0}, {"friction_reserve": 0.2}),
+    "ceiling preload 40 N + fr 0.1": ({"preload": 40.0}, {"friction_reserve": 0.1}),
+    "ceiling preload 40 N + fr 0.2": ({"preload": 40.0}, {"friction_reserve": 0.2}),
 }
 
 
