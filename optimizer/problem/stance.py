@@ -471,7 +471,11 @@ def stance_checks(task, base_weight: float = 0.1) -> list[StanceCheck]:
     The start is ``task.initial_posture`` (or the stance IK); each hand
     target's posture is the stance IK from the start with the hand pulled to
     the target and the base pulled mildly (``base_weight``) toward its start
-    pose. A design aid and a pre-solve diagnosis, not a plan.
+    pose. A design aid and a pre-solve diagnosis, not a plan. The support
+    is measured against the limits only (each contact's minimum normal
+    force, not its preload): a preload is the plan's own choice of forces,
+    which the solve keeps and the pre-solve standing check proves possible,
+    not a property of these hinted postures.
     """
     robot = task.robot
     start = task.initial_posture if task.initial_posture is not None else solve_stance(
@@ -489,5 +493,5 @@ def _check(task, label, q, target) -> StanceCheck:
     hand = np.nan if target is None else float(np.linalg.norm(frame_position(robot, q, target.frame) - target.position))
     room = float(np.min(np.minimum(q[7:] - robot.joint_lower, robot.joint_upper - q[7:])))
     contacts = stance_at(task, 0.0 if target is None else target.t_start)
-    support = static_support_lp(robot, q, contacts, task.facets)
+    support = static_support_lp(robot, q, contacts, task.facets, task.min_normal_forces(contacts))
     return StanceCheck(label, q, float(foot_residuals(robot, q, contacts).max()), hand, room, support)
