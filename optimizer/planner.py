@@ -393,25 +393,22 @@ class Planner:
         with self._lock:
             coarse_seed = self._seed(task.with_knots(knots), progress, log_path, None)
             outcome = _outcome_after(coarse_seed, task, objective)
+            result = None
             if coarse_seed.success:
                 coarse, result = self._objective_stage(coarse_seed, objective, outcome, progress, log_path, None)
-                if result.success:
-                    start = resampled(task.robot.model, coarse, coarse_seed.task.times, task.times)
-                    return self._finish(task, objective, start, outcome, progress, log_path)
-            seed = self._seed(task, progress, log_path, None)
-            outcome.stages += seed.outcome.stages
-            outcome.last, outcome.violations = seed.outcome.last, seed.outcome.violations
-            if not seed.success:
-                return outcome
-            arrays = dict(seed.arrays, **_initial_gains(task, seed.arrays))
-            return self._finish(task, objective, arrays, outcome, progress, log_path)
-
-    def _finish(self, task, objective, start, outcome, progress, log_path) -> SolveOutcome:
-        """The objective's stage from the physical arrays ``start``, then, when it succeeds, the plan."""
-        arrays, result = self._run_stage(task, objective, _without_rooms(start), outcome, progress, log_path)
-        if result.success:
-            outcome.plan = _finished_plan(task, objective, arrays, outcome, self.backend.name)
-        return outcome
+            if result is not None and result.success:
+                start = resampled(task.robot.model, coarse, coarse_seed.task.times, task.times)
+                arrays, result = self._run_stage(task, objective, start, outcome, progress, log_path)
+            else:
+                seed = self._seed(task, progress, log_path, None)
+                outcome.stages += seed.outcome.stages
+                outcome.last, outcome.violations = seed.outcome.last, seed.outcome.violations
+                if not seed.success:
+                    return outcome
+                arrays, result = self._objective_stage(seed, objective, outcome, progress, log_path, None)
+            if result.success:
+                outcome.plan = _finished_plan(task, objective, arrays, outcome, self.backend.name)
+            return outcome
 
     def solve_objectives(self, task, objectives, *, progress=None, log_path=None) -> dict:
         """Several objectives for one task from one feasibility seed: ``{objective: SolveOutcome}``."""
