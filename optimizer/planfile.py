@@ -239,7 +239,7 @@ def _sizes_from_meta(path: Path, meta: dict) -> dict:
         f.matrix("contact_normals", (nc, 3))
     f.vector("friction", nc)
     _check_pyramid(f.sub("friction_pyramid"), nc)
-    f.number("min_normal_force", lo=0.0)
+    _check_min_normal_force(f, nc)
     limits = f.sub("torque_limits")
     for side in ("lower", "upper"):
         _limit_vector(limits, side, nj)
@@ -247,6 +247,28 @@ def _sizes_from_meta(path: Path, meta: dict) -> dict:
     if f.has("clearance"):
         _check_clearance(f.sub("clearance"), model)
     return {"nq": model.nq, "nv": model.nv, "nj": nj, "nc": nc, "P": count}
+
+
+def _check_min_normal_force(f: Fields, nc: int) -> None:
+    """``meta.min_normal_force``: one number >= 0 (N, every contact) or a list of nc such numbers (one per contact)."""
+    if isinstance(f.raw("min_normal_force"), list):
+        values = f.vector("min_normal_force", nc)
+        if np.any(values < 0):
+            f.fail("min_normal_force", f"{nc} numbers >= 0 N (one per contact)", values.tolist())
+    else:
+        f.number("min_normal_force", lo=0.0)
+
+
+def min_normal_forces(meta: dict) -> np.ndarray:
+    """Each contact's minimum normal force in a plan's ``meta``, N, shape (nc,) (one number means every contact's)."""
+    value = np.asarray(meta["min_normal_force"], float)
+    return np.broadcast_to(value, (len(meta["contact_frames"]),)).copy()
+
+
+def min_normal_force_meta(values) -> float | list:
+    """``meta.min_normal_force`` for per-contact ``values`` [N]: one number when they are all equal, else the list."""
+    values = [float(v) for v in values]
+    return values[0] if values and all(v == values[0] for v in values) else values
 
 
 def _check_knot_surfaces(f: Fields, sizes: dict) -> None:

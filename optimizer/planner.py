@@ -33,7 +33,7 @@ from .analysis.clearance import clearance_meta
 from .analysis.knot_response import knot_responses
 from .analysis.linear_margin import best_linear_margin, certify_gains
 from .errors import SolveFailed
-from .planfile import Plan, response_gains_key
+from .planfile import Plan, min_normal_force_meta, response_gains_key
 from .problem.point_weights import combined_margin
 from .problem.requirement import as_json as requirements_json
 from .problem.requirement import required_margins
@@ -659,7 +659,7 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
         "friction": [float(c.friction) for c in task.contacts],
         "friction_pyramid": {"facets": int(task.facets), "inscribed": True,
                              "tangents": [np.asarray(c.tangents, float).tolist() for c in task.contacts]},
-        "min_normal_force": float(task.min_normal_force),
+        "min_normal_force": min_normal_force_meta(task.min_normal_forces()),
         "torque_limits": {"lower": robot.torque_lower.tolist(), "upper": robot.torque_upper.tolist()},
         **reserves_meta(task),
         "joint_velocity_limits": robot.velocity_limit.tolist(),

@@ -186,13 +186,15 @@ class LiftedLP:
         normals = per_knot["normals"][k] if per_knot else meta["contact_normals"]
         tangents = per_knot["tangents"][k] if per_knot else pyr["tangents"]
         friction = per_knot["friction"][k] if per_knot else meta["friction"]
+        # plan/1: one minimum normal force for every contact, or a list of one per contact
+        least = np.broadcast_to(np.asarray(meta["min_normal_force"], float), (nc,))
         for c in range(nc):
             if not plan.contact_active[k, c]:
                 continue
             lam = plan.contact_forces[k, c]
             g = _pyramid_rows(normals[c], tangents[c], friction[c], pyr["facets"])
             n = np.asarray(normals[c], float)
-            for row, b in [(gj, -gj @ lam) for gj in g] + [(-n, n @ lam - meta["min_normal_force"])]:
+            for row, b in [(gj, -gj @ lam) for gj in g] + [(-n, n @ lam - least[c])]:
                 full = np.zeros(self.width)
                 full[d + nj + 3 * c: d + nj + 3 * c + 3] = row
                 rows.append(full)

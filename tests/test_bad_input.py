@@ -40,6 +40,11 @@ TASK = {
 }
 
 
+PLACED_STANCE = {"terrain": {"kind": "flat", "friction": 0.8},
+                 "feet": {"foot_fl": {"xy": [0.25, 0.18]}, "foot_fr": [0.25, -0.18], "foot_rl": [-0.25, 0.18],
+                          "foot_rr": [-0.25, -0.18]}}
+
+
 def changed(data: dict, **changes) -> dict:
     """A deep copy of ``data`` with ``a__b__0__c=value`` set (``value=DROP`` removes the key)."""
     out = json.loads(json.dumps(data))
@@ -131,6 +136,11 @@ def plan_with_object_array(tmp):
     return path
 
 
+def plan_with_short_minimum_list(tmp):
+    arrays, meta = _plan_arrays()
+    return _save(tmp, arrays, {**meta, "min_normal_force": [5.0, 5.0, 30.0]})
+
+
 def plan_not_npz(tmp):
     path = tmp / "plan.npz"
     path.write_text("not an archive", encoding="utf-8")
@@ -182,6 +192,10 @@ CASES = {
                            r"field 'stance.contacts.foot_fl.friction'.*a number > 0"),
     "task-friction-negative": (task_case(changed(TASK, stance__contacts__foot_fl__friction=-0.4)),
                                r"field 'stance.contacts.foot_fl.friction'.*a number > 0, got -0.4"),
+    "task-contact-min-normal-force-negative": (task_case(changed(TASK, stance__contacts__foot_fl__min_normal_force=-5)),
+                                               r"field 'stance.contacts.foot_fl.min_normal_force'.*a number >= 0, got -5"),
+    "task-foot-min-normal-force-text": (task_case(changed(TASK, stance=PLACED_STANCE, stance__feet__foot_fl__min_normal_force="firm")),
+                                        r"field 'stance.feet.foot_fl.min_normal_force'.*a number, got 'firm'"),
     "task-knots-below-2": (task_case(changed(TASK, horizon__knots=1)), r"field 'horizon.knots'.*a whole number >= 2"),
     "task-knots-huge": (task_case(changed(TASK, horizon__knots=10 ** 7)), r"field 'horizon.knots'.*a whole number <= 2000"),
     "cli-knots-below-2": (task_case(TASK, extra=("--knots", "1")), r"command line: field '--knots'.*from 2 to 2000"),
@@ -219,6 +233,8 @@ CASES = {
                              r"command line: field '--out'.*a file path for the plan"),
     # plan files
     "plan-missing-key": (plan_case(plan_without_tau), r"plan.npz: field 'tau'.*missing key"),
+    "plan-min-normal-force-length": (plan_case(plan_with_short_minimum_list),
+                                     r"field 'meta.min_normal_force'.*a list of 4 numbers"),
     "plan-wrong-shape": (plan_case(plan_with_short_q), r"plan.npz: field 'q'.*shape \(K=2, nq=25\)"),
     "plan-urdf-unparsable": (plan_case(plan_with_bad_urdf), r"field 'meta.urdf'.*a URDF that Pinocchio can load"),
     "plan-needs-pickle": (plan_case(plan_with_object_array), r"plan.npz: expected arrays readable without pickle"),

@@ -80,6 +80,20 @@ def test_minimum_normal_force_can_be_the_bottleneck():
     assert any(b.endswith("minimum normal force") for b in tight.bottleneck)
 
 
+def test_a_contact_s_own_minimum_normal_force_is_certified_per_contact():
+    # Per-contact minima (plan/1 meta.min_normal_force as a list): only foot_hr keeps 95 % of
+    # its static share. Independent check: SciPy linprog over (u, dtau, dlambda) with every
+    # row, along sampled directions (upper bound) and their hull's inscribed radius (lower).
+    share = 20.0 * 9.81 / 4
+    loose = certify_plan(box_plan()).knots[0]
+    everywhere = certify_plan(box_plan(min_normal_force=0.95 * share)).knots[0]
+    plan = box_plan(min_normal_force=[0.0, 0.0, 0.0, 0.95 * share])
+    one = certify_plan(plan).knots[0]
+    assert everywhere.rho <= one.rho < loose.rho
+    assert "foot_hr minimum normal force" in one.bottleneck, one.bottleneck
+    check_plan_against_sampled_lps(plan, n_dirs=200, knots=[0])
+
+
 def test_demo_plan_lies_between_independent_sampled_lp_bounds(demo_plan):
     # Independent method: SciPy linprog over (u, dtau, dlambda) with all nv rows along 200
     # sampled directions (upper bound) and the inscribed radius of their support points'

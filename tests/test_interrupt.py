@@ -154,3 +154,19 @@ def test_work_killed_from_elsewhere_is_reported_and_cleaned(tmp_path):
     assert code == 128 + signal.SIGKILL, err                  # 137, shell convention
     assert "killed by SIGKILL" in err and "out of memory" in err and "Traceback" not in err
     assert sorted(os.listdir(scratch)) == [] and not out.exists()
+
+
+def test_a_stop_before_the_reader_has_started_still_stops_cleanly():
+    # A signal can arrive while the supervisor is starting its message reader
+    # (seen in a full-suite run): the handler must clean up and stop with
+    # 128 + signal, not fail on joining a thread that has not started.
+    import threading
+
+    from optimizer import supervisor
+
+    run = supervisor._Run("solve")
+    run.reader = threading.Thread(target=lambda: None)
+    with pytest.raises(supervisor._Stopped) as stopped:
+        run.stop(signal.SIGINT, None)
+    assert stopped.value.code == 128 + signal.SIGINT
+    assert not run.root.exists()

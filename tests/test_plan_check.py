@@ -72,6 +72,10 @@ def test_a_force_pushed_outside_its_pyramid_fails_only_the_friction_check(standi
      "foot_rl"),
     # a minimum normal force above what a foot carries (statics: about m g / 4)
     ("normal-force", lambda p: p.meta.update(min_normal_force=float(p.contact_forces[:, :, 2].min()) + 1.0), None),
+    # one contact's own minimum (per-contact meta.min_normal_force) above what that foot carries,
+    # the other contacts' minima zero: only that contact is named
+    ("normal-force", lambda p: p.meta.update(min_normal_force=[0.0, 0.0, float(p.contact_forces[:, 2, 2].min()) + 1.0,
+                                                               0.0]), "foot_rl"),
     # a torque limit just under a torque the plan needs
     ("torque", lambda p: p.meta["torque_limits"]["upper"].__setitem__(
         int(np.argmax(p.tau[3])), float(p.tau[3].max()) - 0.5), None),

@@ -14,27 +14,9 @@ from optimizer.analysis.presolve import run_checks
 from optimizer.errors import PlanFileError, TaskError
 from optimizer.files import read_yaml_mapping
 from optimizer.planfile import load_plan, save_plan
-from optimizer.planner import Planner
 from optimizer.problem.task import load_task, task_from_mapping
 from optimizer.transcription.structure import structure_of
-
-STEPPING = ["landing_pick", "wall_brace"]
-OBJECTIVES = ["robust", "torque"]
-KNOTS = 10          # the smallest count that keeps two knots in every swing of both demos
-_SOLVED: dict = {}
-
-
-def stepping_plan(name: str, objective: str):
-    """(task, plan) of a stepping demo at KNOTS knots; one seed per task serves both objectives."""
-    if name not in _SOLVED:
-        task = load_task(f"tasks/{name}.yaml").with_knots(KNOTS)
-        with Planner() as planner:
-            seed = planner.seed(task)
-            _SOLVED[name] = task, {obj: planner.solve_from_seed(seed, obj) for obj in OBJECTIVES}
-    task, outcomes = _SOLVED[name]
-    outcome = outcomes[objective]
-    assert outcome.success, [(s.objective, s.status, s.message) for s in outcome.stages]
-    return task, outcome.plan
+from stepping_plans import OBJECTIVES, STEPPING, stepping_plan
 
 
 def foot_kinematics(plan, k: int, frame: str):

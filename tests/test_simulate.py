@@ -9,10 +9,14 @@ push of half the certified margin survived in informed mode).
 
 Robust demo plans are solved once per module at 20 knots: coarser plans
 (8 or 12 knots, a step of 0.2-0.36 s) do not describe a motion a controller
-can track closely (see benchmarks/RESULTS.md, "Simulation").
+can track closely (see benchmarks/RESULTS.md, "Simulation"). The stepping
+demo landing_pick is replayed at 20 knots too (at 10 or 14 knots its feet
+land 1-5 cm off); wall_brace's scene is checked on the 10-knot plan the
+schedule tests share (tests/stepping_plans.py).
 """
 from __future__ import annotations
 
+import copy
 import json
 
 import matplotlib.image
@@ -32,8 +36,10 @@ from optimizer.simulation.inputs import simulation_inputs
 from optimizer.simulation.pushes import Settings, Simulator
 from optimizer.report.palette import FIGURE_DPI
 from optimizer.report.simulation import SIZE
+from optimizer.simulation.rollout import SurvivalRules
 from optimizer.simulation.scene import build_scene
 from optimizer.simulation.surfaces import scene_surfaces
+from stepping_plans import stepping_plan
 
 TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
 SIM_KNOTS = 20
@@ -220,5 +226,115 @@ def test_cli_writes_the_nominal_report_and_refuses_bad_options(tmp_path, capsys)
     assert main(["simulate", str(path), "--slip", "-1"]) == 2
     err = capsys.readouterr().err
     assert len(err.strip().splitlines()) == 1 and "--slip" in err
+    assert main(["simulate", str(path), "--touchdown", "0"]) == 2
+    err = capsys.readouterr().err
+    assert len(err.strip().splitlines()) == 1 and "--touchdown" in err
     assert main(["simulate", str(tmp_path / "nope.npz")]) == 2
     assert "nope.npz" in capsys.readouterr().err
+
+
+@pytest.fixture(scope="module")
+def landing_pick_plan():
+    """landing_pick's robust plan at SIM_KNOTS knots: the front feet step up onto the landing one at a
+    time (three feet in stance while one swings)."""
+    outcome = solve(load_task("tasks/landing_pick.yaml"), "robust", knots=SIM_KNOTS)
+    assert outcome.success, [(s.objective, s.status) for s in outcome.stages]
+    assert (~outcome.plan.contact_active).any()
+    return outcome.plan
+
+
+def plan_intervals(plan):
+    """(contact, first knot, last knot, foothold) of every run of stance knots, read from the plan's
+    own arrays (contact_active, contact_targets)."""
+    out = []
+    for c in range(plan.contact_active.shape[1]):
+        k = 0
+        while k < plan.t.shape[0]:
+            if plan.contact_active[k, c]:
+                first = k
+                while k + 1 < plan.t.shape[0] and plan.contact_active[k + 1, c]:
+                    k += 1
+                out.append((c, first, k, plan.contact_targets[first, c]))
+            k += 1
+    return out
+
+
+def test_a_stepping_replay_keeps_stance_feet_on_their_footholds_and_reaches_the_target(landing_pick_plan):
+    plan = landing_pick_plan
+    sim = simulator(plan)
+    sim._restart()
+    rec = sim.rollout("blind").run(sim.reference.duration + sim.settings.contact.timestep)
+    assert not rec.diverged
+    settle, last = sim.settings.rules.touchdown, plan.t.shape[0] - 1
+    intervals = plan_intervals(plan)
+    assert len(intervals) == 6, "each front foot has two stance intervals, each rear foot one"
+    for c, first, k_last, foothold in intervals:
+        begin = plan.t[first] + (settle if first > 0 else 0.0)
+        end = np.inf if k_last == last else plan.t[k_last]
+        rows = (rec.time >= begin) & (rec.time <= end)
+        # Reference: MuJoCo's own site positions of the contact frames (d.site_xpos, recorded each step).
+        gap = np.linalg.norm(rec.sites[rows, c] - foothold, axis=1)
+        assert rows.any() and gap.max() <= 0.005, (plan.meta["contact_frames"][c], first, gap.max())
+    # The two front feet end on the landing's top (0.12 m), as the task file says.
+    assert np.allclose(rec.sites[-1, :2, 2], 0.12, atol=0.005)
+    for target in sim.targets:
+        column = rec.site_names.index(target.frame)
+        for k in range(plan.t.shape[0]):
+            if target.t_start - 1e-9 <= plan.t[k] <= target.t_end + 1e-9:
+                i = int(np.argmin(np.abs(rec.time - plan.t[k])))
+                # Reference: MuJoCo's site position of the target frame against the task file's target.
+                assert np.linalg.norm(rec.sites[i, column] - target.position) <= 0.02
+    report = sim.nominal()
+    assert report["ok"], report
+    assert [f["stances"] for f in report["feet"]][:2] == [[[a, b] for c, a, b, _ in intervals if c == f]
+                                                          for f in (0, 1)]
+
+
+def test_a_swinging_foot_is_free_but_a_lifted_stance_foot_is_lost(landing_pick_plan):
+    rules = SurvivalRules(slip=1.0)     # slip left out: this test is about contact loss alone
+    sim = simulator(landing_pick_plan)
+    sim._restart()
+    watched = sim.rollout("blind").run(sim.reference.duration, rules=rules, watch_from=0.0)
+    assert watched.failure == ""
+    # The same motion, with the plan claiming foot_fl stays in stance on its first foothold through
+    # its first swing: the replay lifts that foot (MuJoCo then reports no contact force on it).
+    claimed = copy.deepcopy(landing_pick_plan)
+    swing = np.flatnonzero(~claimed.contact_active[:, 0])
+    swing = swing[: np.argmax(np.diff(swing) > 1) + 1] if (np.diff(swing) > 1).any() else swing
+    claimed.contact_active[swing, 0] = True
+    claimed.contact_targets[swing, 0] = claimed.contact_targets[0, 0]
+    sim = simulator(claimed)
+    sim._restart()
+    record = sim.rollout("blind").run(sim.reference.duration, rules=rules, watch_from=0.0)
+    assert record.failure.startswith("foot_fl lost contact"), record.failure
+
+
+def test_a_wall_foothold_is_touched_along_the_wall_normal_with_the_wall_friction():
+    _, plan = stepping_plan("wall_brace", "robust")
+    plan = copy.deepcopy(plan)
+    k = plan.t.shape[0] - 1                     # foot_fl braced on the wall's side (y = 0.40 m)
+    assert plan.contact_active[k, 0] and plan.contact_targets[k, 0, 1] == pytest.approx(0.40)
+    surfaces = plan.meta["contact_knot_surfaces"]
+    wall = [k for k in range(plan.t.shape[0]) if plan.contact_active[k, 0] and plan.contact_targets[k, 0, 2] > 0.1]
+    for j in wall:                              # another coefficient on the wall than on the floor
+        surfaces["friction"][j][0] = 0.5
+    scene = build_scene(plan, scene_surfaces(plan)[0])
+    scene.set_state(plan.q[k], np.zeros_like(plan.v[k]))
+    model, data = scene.model, scene.data
+    mine = {g for g, c in zip(scene.foot_geoms, scene.foot_contacts) if c == 0}
+    wall_geom = mujoco.mj_name2id(model, mujoco.mjtObj.mjOBJ_GEOM, "terrain:block0")
+    floor_geom = mujoco.mj_name2id(model, mujoco.mjtObj.mjOBJ_GEOM, "terrain:floor")
+    touching = [data.contact[i] for i in range(data.ncon)
+                if {int(data.contact[i].geom1), int(data.contact[i].geom2)} & mine]
+    # Reference: MuJoCo's collision detection at the plan's configuration: foot_fl meets the wall
+    # alone, along the wall's normal (contact frame's first row, pointing from geom1 to geom2).
+    assert [sorted({int(c.geom1), int(c.geom2)} - mine) for c in touching] == [[wall_geom]]
+    assert abs(touching[0].frame[:3] @ np.array([0.0, 1.0, 0.0])) == pytest.approx(1.0, abs=1e-6)
+    assert abs(touching[0].dist) < 1e-4
+    # Reference: the friction of each contact pair as MuJoCo compiled it (model.pair_friction).
+    reserve = plan.meta.get("friction_reserve", 0.0)
+    pairs = [({int(model.pair_geom1[i]), int(model.pair_geom2[i])}, model.pair_friction[i, 0])
+             for i in range(model.npair)]
+    on_wall = [mu for geoms, mu in pairs if geoms & mine and wall_geom in geoms]
+    on_floor = [mu for geoms, mu in pairs if geoms & mine and floor_geom in geoms]
+    assert on_wall == pytest.approx([0.5 / (1.0 - reserve)]) and on_floor == pytest.approx([0.7 / (1.0 - reserve)])

@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 import pinocchio as pin
 
-from ..planfile import meta_at_knot
+from ..planfile import meta_at_knot, min_normal_forces
 from ..problem.friction import pyramid_facets
 from .response import KnotResponse
 
@@ -92,7 +92,7 @@ def knot_response(plan, k: int, robot: PlanRobot) -> KnotResponse:
         contact_jacobian=jc, disturbance_jacobian=je, shape=robot.shape,
         tau=np.asarray(plan.tau[k], float), tau_lower=robot.tau_lower, tau_upper=robot.tau_upper,
         forces=np.asarray(plan.contact_forces[k], float), facets=facets, normals=normals,
-        min_normal_force=float(meta["min_normal_force"]), active=np.asarray(plan.contact_active[k], bool),
+        min_normal_force=min_normal_forces(meta), active=np.asarray(plan.contact_active[k], bool),
         base_dofs=6, joint_names=tuple(meta["joint_names"]), contact_names=tuple(meta["contact_frames"]),
     )
 

@@ -30,7 +30,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..planfile import meta_at_knot
+from ..planfile import meta_at_knot, min_normal_forces
 from .knot_response import PlanRobot, contact_facets, knot_response
 from .polytope import SupportLP
 from .response import KnotResponse
@@ -54,7 +54,9 @@ class ModelChange:
         Mass [kg] hanging at the disturbance point: a constant force
         ``payload_kg * gravity`` (world frame) there.
     min_normal_force : float or None
-        Minimum normal force [N] of every active contact; None keeps the plan's.
+        Minimum normal force [N] of every active contact (replacing each
+        contact's own, where the plan has per-contact minima); None keeps
+        the plan's.
     """
 
     friction_scale: float = 1.0
@@ -91,8 +93,10 @@ class ModelChange:
         if self.payload_kg:
             parts.append(f"payload {self.payload_kg:g} kg at {frame}")
         if self.min_normal_force is not None:
-            parts.append(f"minimum normal force {self.min_normal_force:g} N "
-                         f"(planned {float(meta['min_normal_force']):g} N)")
+            planned = min_normal_forces(meta)
+            words = (f"{planned[0]:g} N" if np.all(planned == planned[0]) else
+                     ", ".join(f"{name} {value:g} N" for name, value in zip(meta["contact_frames"], planned)))
+            parts.append(f"minimum normal force {self.min_normal_force:g} N on every contact (planned {words})")
         return ", ".join(parts)
 
     def to_json(self) -> dict:

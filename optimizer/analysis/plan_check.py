@@ -25,7 +25,7 @@ from typing import Callable
 import numpy as np
 import pinocchio as pin
 
-from ..planfile import knot_surfaces
+from ..planfile import knot_surfaces, min_normal_forces
 from ..problem.geometry import Surface
 from .clearance import plan_clearance, plan_self_clearance
 
@@ -170,11 +170,11 @@ def measure_friction(facts: PlanFacts) -> Worst:
 
 
 def measure_normal_force(facts: PlanFacts) -> Worst:
-    """Shortfall [N] of an active contact's normal force under ``meta.min_normal_force``."""
+    """Shortfall [N] of an active contact's normal force under its minimum (``meta.min_normal_force``)."""
     plan = facts.plan
     normals = knot_surfaces(facts.meta, plan.q.shape[0]).normals
     push = np.einsum("kci,kci->kc", plan.contact_forces, normals)
-    shortfall = float(facts.meta["min_normal_force"]) - push
+    shortfall = min_normal_forces(facts.meta)[None, :] - push
     return worst_entry(np.where(plan.contact_active, shortfall, -np.inf), facts.contact_names)
 
 

@@ -178,13 +178,14 @@ def reach_findings(task) -> list[Finding]:
 # ---------------------------------------------------------------- standing still
 
 
-def _force_balance_lp(task, facet_rows, scale: float, min_force: float, maximize_min_force: bool = False,
+def _force_balance_lp(task, facet_rows, scale: float, min_force: float | None, maximize_min_force: bool = False,
                       contacts=None):
     """Contact forces (nc, 3) carrying the weight, N, world frame, or None.
 
     ``contacts`` defaults to the task's (all of them, as at the final rest).
     ``facet_rows(contact, mu)`` gives rows ``g`` with ``g . f <= 0``; friction
-    is scaled by ``scale``; every normal force is at least ``min_force`` N.
+    is scaled by ``scale``; every normal force is at least ``min_force`` N
+    (None: each contact's own minimum, ``ContactSpec.min_normal_force``).
     With ``maximize_min_force`` the common lower bound on the normal forces is
     a variable and maximized; returns (forces, bound) then.
     """
@@ -201,7 +202,8 @@ def _force_balance_lp(task, facet_rows, scale: float, min_force: float, maximize
         row[3 * c:3 * c + 3] = -np.asarray(contact.normal)
         if maximize_min_force:
             row[-1] = 1.0
-        rows.append(row), rhs.append(0.0 if maximize_min_force else -min_force)
+        least = float(contact.min_normal_force) if min_force is None else min_force
+        rows.append(row), rhs.append(0.0 if maximize_min_force else -least)
     a_eq = np.hstack([np.tile(np.eye(3), nc), np.zeros((3, nx - 3 * nc))])
     b_eq = -robot.mass * np.asarray(robot.gravity, float)
     cost = np.zeros(nx)
@@ -248,6 +250,12 @@ def _friction_words(task, scale: float) -> str:
     return f"{scale:.2f} times the given friction ({parts})"
 
 
+def _minimum_words(task) -> str:
+    """The task's minimum normal forces in words: the task-wide one and each contact's own, N."""
+    own = [f"{c.frame} {c.min_normal_force:.1f} N" for c in task.contacts if c.min_normal_force != task.min_normal_force]
+    return f"min_normal_force {task.min_normal_force:.1f} N" + (f" ({', '.join(own)})" if own else "")
+
+
 def standing_findings(task) -> list[Finding]:
     """Can the contacts carry the weight at rest at all? (Coulomb cones, then the planner's pyramids.)"""
     weight = task.robot.mass * float(np.linalg.norm(task.robot.gravity))
@@ -265,13 +273,15 @@ def standing_findings(task) -> list[Finding]:
     def inscribed(contact, mu):
         return pyramid_facets(contact.normal, contact.tangents, mu, task.facets)
 
-    if _force_balance_lp(task, inscribed, 1.0, task.min_normal_force) is not None:
+    if _force_balance_lp(task, inscribed, 1.0, None) is not None:
         return []
     if _force_balance_lp(task, inscribed, 1.0, 0.0) is not None:
         _, best = _force_balance_lp(task, inscribed, 1.0, 0.0, maximize_min_force=True)
-        return [Finding("standing", True, f"min_normal_force {task.min_normal_force:.1f} N cannot hold on every "
-                        f"contact while standing still: at most {best:.1f} N is possible",
-                        f"lower min_normal_force to {best:.1f} N or less", task.min_normal_force - best, "N")]
+        largest = float(task.min_normal_forces().max())
+        return [Finding("standing", True, f"{_minimum_words(task)} cannot hold on every contact while standing "
+                        f"still: at most {best:.1f} N is possible on all of them at once",
+                        f"lower min_normal_force to {best:.1f} N or less (or a contact's own where it is larger)",
+                        largest - best, "N")]
     scale = _smallest_friction_scale(task, inscribed, 0.0)
     keep = math.cos(math.pi / task.facets)
     return [Finding("standing", True, f"with the planner's {task.facets}-facet friction pyramids (inscribed: they "
@@ -309,7 +319,7 @@ def support_findings(task) -> list[Finding]:
         middle = 0.5 * (t0 + t1)
         contacts = [c for i, c in enumerate(contacts_at(task, middle)) if i in stance_ids]
         where = _window_words(t0, t1, contacts)
-        if not contacts or _force_balance_lp(task, _cone_rows, 1.0, task.min_normal_force, contacts=contacts) is None:
+        if not contacts or _force_balance_lp(task, _cone_rows, 1.0, None, contacts=contacts) is None:
             out.append(Finding("support", True, f"{where} ({task.schedule.field_name}): those contacts cannot carry "
                                "the robot's weight at any posture", "keep more feet in stance in that window (move "
                                "a lift-off later or a touchdown earlier)", t1 - t0, "s"))
@@ -323,7 +333,7 @@ def support_findings(task) -> list[Finding]:
             q = solve_stance(task.robot, contacts, start, base_pose=base, clearance=task.clearance)
         except InfeasibleTask:
             continue
-        support = static_support_lp(task.robot, q, contacts, task.facets, task.min_normal_force)
+        support = static_support_lp(task.robot, q, contacts, task.facets)
         if not support.feasible:
             out.append(Finding("support", False, f"{where} ({task.schedule.field_name}): at the stance-IK posture "
                                "those contacts cannot hold the robot still (" + (", ".join(map(str, support.tight[:3]))
@@ -386,7 +396,7 @@ def swing_time_findings(task) -> list[Finding]:
 def statics_findings(task, q) -> list[Finding]:
     """The static support LP at posture ``q``: which contact or joint is short, by how much (warnings)."""
     robot = task.robot
-    support = static_support_lp(robot, q, task.contacts, task.facets, task.min_normal_force)
+    support = static_support_lp(robot, q, task.contacts, task.facets)
     if support.feasible:
         return []
     if not math.isfinite(support.slack):

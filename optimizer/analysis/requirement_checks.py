@@ -67,7 +67,7 @@ def _limit_rows(task, joints: tuple):
     keep = [robot.joint_names.index(j) for j in joints]
     values = LimitValues(robot.torque_lower[keep], robot.torque_upper[keep],
                          [pyramid_facets(c.normal, c.tangents, c.friction, task.facets) for c in task.contacts],
-                         [np.asarray(c.normal, float) for c in task.contacts], task.min_normal_force, task.weight)
+                         [np.asarray(c.normal, float) for c in task.contacts], task.min_normal_forces(), task.weight)
     a_tau, a_lam, b = limits.linear(values)
     return a_tau, a_lam, b, [str(n) for n in limits.names]
 

@@ -43,8 +43,9 @@ class KnotResponse:
         Pyramid rows ``g`` with ``g . f <= 0`` for an admissible force.
     normals : ndarray, shape (nc, 3)
         Unit surface normals, world frame.
-    min_normal_force : float
-        Smallest admissible ``n . f`` of an active contact [N].
+    min_normal_force : float or ndarray, shape (nc,)
+        Smallest admissible ``n . f`` of an active contact [N]: one for
+        every contact, or each contact's own.
     active : ndarray of bool, shape (nc,)
         Contacts in stance; inactive contacts carry no force and no change.
     base_dofs : int
@@ -65,7 +66,7 @@ class KnotResponse:
     forces: np.ndarray
     facets: np.ndarray
     normals: np.ndarray
-    min_normal_force: float
+    min_normal_force: float | np.ndarray
     active: np.ndarray
     base_dofs: int = 6
     joint_names: tuple = field(default_factory=tuple)

@@ -49,6 +49,8 @@ def add_arguments(parser) -> None:
                         help="time watched after the push, s (default 0.3)")
     parser.add_argument("--slip", type=float, default=0.005, metavar="M",
                         help="largest foot slip a push may cause, m (default 0.005)")
+    parser.add_argument("--touchdown", type=float, default=0.05, metavar="S",
+                        help="settling time after a planned touchdown before the foot is judged, s (default 0.05)")
     parser.add_argument("--timestep", type=float, default=0.0005, metavar="S",
                         help="simulation step, s (default 0.0005)")
     parser.add_argument("--quiet", action="store_true", help="print only the summary lines")
@@ -67,7 +69,8 @@ def run(args) -> int:
     from ..simulation.scene import ContactSettings
 
     settings = Settings(contact=ContactSettings(timestep=_positive(args.timestep, "--timestep", 0.01)),
-                        rules=SurvivalRules(slip=_positive(args.slip, "--slip", 1.0)),
+                        rules=SurvivalRules(slip=_positive(args.slip, "--slip", 1.0),
+                                            touchdown=_positive(args.touchdown, "--touchdown", 1.0)),
                         hold=_positive(args.hold, "--hold", 10.0), settle=_positive(args.settle, "--settle", 10.0))
     if args.figure and not str(args.figure).lower().endswith((".png", ".svg")):
         raise InputError(CLI, "--figure", "a file name ending in .png or .svg", args.figure)
@@ -174,8 +177,12 @@ def nominal_lines(doc: dict) -> list:
                      + f" (limit {_mm(s['target_tolerance'])})")
     if worst is not None:
         losses = sum(f["contact_losses"] for f in feet)
-        lines.append(f"  feet     largest distance from a foothold {_mm(worst['distance_m'])} ({worst['frame']}, "
-                     f"limit {_mm(s['foot_tolerance'])}); contact losses: {losses or 'none'}")
+        intervals = sum(len(f["stances"]) for f in feet)
+        if intervals > len(feet):
+            lines.append(f"  stances  {intervals} stance intervals; feet judged only in stance, from "
+                         f"{1e3 * s['rules']['touchdown']:.0f} ms after a touchdown")
+        lines.append(f"  feet     largest distance of a stance foot from its foothold {_mm(worst['distance_m'])} "
+                     f"({worst['frame']}, limit {_mm(s['foot_tolerance'])}); contact losses: {losses or 'none'}")
     clipped = n["torque_clipped_s"]
     lines.append("  torques  " + ("never clipped" if not clipped else
                                   "clipped: " + ", ".join(f"{k} {1e3 * v:.0f} ms" for k, v in clipped.items())))
@@ -192,8 +199,9 @@ def push_lines(doc: dict) -> list:
         return []
     head = (f"pushes at {doc['disturbance']} along the certified weakest direction, held {s['hold']:.2f} s "
             f"(ramps {s['ramp']:.2f} s), watched until {s['settle']:.2f} s after;")
-    rule = (f"survived = no foot slips over {_mm(rules['slip'])}, no foot without force over "
-            f"{1e3 * rules['contact_loss']:.0f} ms, no torque clipped over {1e3 * rules['saturation']:.0f} ms")
+    rule = (f"survived = no stance foot slips over {_mm(rules['slip'])}, no stance foot without force over "
+            f"{1e3 * rules['contact_loss']:.0f} ms, no torque clipped over {1e3 * rules['saturation']:.0f} ms "
+            f"(swinging feet free; {1e3 * rules['touchdown']:.0f} ms after a touchdown not judged)")
     table = [f"{'knot':>5} {'t [s]':>6} {'certified [N]':>14} {'exact [N]':>10} {'mode':>9} "
              f"{'survived [N]':>13} {'/certified':>11}  ended by"]
     for p in doc["pushes"]:

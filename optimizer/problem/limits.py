@@ -16,7 +16,9 @@ kind                  owner                  room                         scale
 
 ``g_cj`` are the rows of the contact's inscribed friction pyramid
 (:func:`optimizer.problem.friction.pyramid_facets`), ``n_c`` its unit normal
-(into the robot) and ``f_min`` the smallest normal force [N]. The scale of a
+(into the robot) and ``f_min`` its smallest normal force [N] (one number for
+every contact, or one per contact: a foot braced against a ceiling may need
+a larger preload than a foot standing on the floor). The scale of a
 row is what one unit of its room means in the NLP's scaled rows.
 
 :class:`KnotLimits` lists the rows in one order (all torque upper sides, all
@@ -31,6 +33,7 @@ registered in :data:`LIMIT_KINDS`.
 from __future__ import annotations
 
 import functools
+import numbers
 from dataclasses import dataclass
 from typing import Callable
 
@@ -148,8 +151,26 @@ def _normal_names(joints, contacts, facets):
     return [LimitName(NORMAL_FORCE, c, "minimum") for c in contacts]
 
 
+def contact_minimum(min_normal_force, c: int):
+    """Contact ``c``'s minimum normal force [N] from one number for every contact or a per-contact vector
+    (NumPy or a symbolic column)."""
+    if isinstance(min_normal_force, numbers.Real) or (isinstance(min_normal_force, np.ndarray)
+                                                      and min_normal_force.ndim == 0):
+        return min_normal_force
+    return min_normal_force[c]
+
+
+def per_contact_minimum(min_normal_force, nc: int) -> np.ndarray:
+    """Numeric minimum normal forces as a vector of one per contact, shape (nc,) [N]."""
+    value = np.asarray(min_normal_force, float)
+    if value.ndim and value.shape != (nc,):
+        raise ValueError(f"minimum normal forces: one number or {nc} (one per contact), got shape {value.shape}")
+    return np.broadcast_to(value, (nc,)).copy()
+
+
 def _normal_rooms(tau, lam, v: LimitValues, ops: ArrayOps):
-    return [ops.dot(v.normals[c], lam[3 * c:3 * c + 3]) - v.min_normal_force for c in range(len(v.normals))]
+    return [ops.dot(v.normals[c], lam[3 * c:3 * c + 3]) - contact_minimum(v.min_normal_force, c)
+            for c in range(len(v.normals))]
 
 
 LIMIT_KINDS: dict[str, LimitKind] = {}
@@ -249,6 +270,6 @@ class KnotLimits:
         rooms = np.asarray(self.rooms(tau, lam, zero_limits), float).reshape(self.size, columns)
         coefficients = rooms[:, 1:] - rooms[:, :1]
         own = LimitValues(np.asarray(values.tau_lower, float), np.asarray(values.tau_upper, float), facets, normals,
-                          float(values.min_normal_force), values.weight)
+                          per_contact_minimum(values.min_normal_force, len(normals)), values.weight)
         b = np.asarray(self.rooms(np.zeros(nj), np.zeros(n_lam), own), float).reshape(-1)
         return coefficients[:, :nj], coefficients[:, nj:], b

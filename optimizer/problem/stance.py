@@ -384,7 +384,7 @@ def _inequalities(robot, contacts, jac, gravity, facets, min_normal_force, limit
     return np.array(rows), np.array(rhs), [names[i] for i in order]
 
 
-def static_support_lp(robot, q, contacts, facets: int = 4, min_normal_force: float = 0.0,
+def static_support_lp(robot, q, contacts, facets: int = 4, min_normal_force=None,
                       torque_limits=None) -> StaticSupport:
     """Can the robot hold still at ``q`` on ``contacts``? (LP, SciPy HiGHS.)
 
@@ -401,8 +401,9 @@ def static_support_lp(robot, q, contacts, facets: int = 4, min_normal_force: flo
     contacts : sequence of ContactSpec
     facets : int
         Facets of each inscribed friction pyramid.
-    min_normal_force : float
-        Smallest normal force of each contact, N.
+    min_normal_force : float, array-like (len(contacts),) or None
+        Smallest normal force of every contact, or one per contact, N; None
+        (default): each contact's own (``ContactSpec.min_normal_force``).
     torque_limits : tuple of two arrays (nj,), optional
         ``(lower, upper)`` in N m; default the robot's; infinite entries drop
         the joint's torque rows.
@@ -411,6 +412,8 @@ def static_support_lp(robot, q, contacts, facets: int = 4, min_normal_force: flo
     gravity, jac = _static_terms(robot, q, contacts)
     limits = (robot.torque_lower, robot.torque_upper) if torque_limits is None else torque_limits
     limits = tuple(np.broadcast_to(np.asarray(x, float), (robot.nj,)) for x in limits)
+    if min_normal_force is None:
+        min_normal_force = np.array([float(c.min_normal_force) for c in contacts])
     a_ub, b_ub, names = _inequalities(robot, contacts, jac, gravity, facets, min_normal_force, limits)
     a_eq = np.hstack([jac[:, :6].T, np.zeros((6, 1))])
     n = a_eq.shape[1]
@@ -470,5 +473,5 @@ def _check(task, label, q, target) -> StanceCheck:
     hand = np.nan if target is None else float(np.linalg.norm(frame_position(robot, q, target.frame) - target.position))
     room = float(np.min(np.minimum(q[7:] - robot.joint_lower, robot.joint_upper - q[7:])))
     contacts = stance_at(task, 0.0 if target is None else target.t_start)
-    support = static_support_lp(robot, q, contacts, task.facets, task.min_normal_force)
+    support = static_support_lp(robot, q, contacts, task.facets)
     return StanceCheck(label, q, float(foot_residuals(robot, q, contacts).max()), hand, room, support)

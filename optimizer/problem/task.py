@@ -64,6 +64,9 @@ class ContactSpec:
     surface : str
         Name of the terrain surface the contact stands on (its own points
         are exempt from it in the clearance checks).
+    min_normal_force : float
+        Smallest normal force the contact keeps while in stance, N: its own
+        (``min_normal_force`` of its stance entry) or the task's.
     """
 
     frame: str
@@ -72,6 +75,7 @@ class ContactSpec:
     tangents: np.ndarray
     friction: float
     surface: str = ""
+    min_normal_force: float = 0.0
 
 
 @dataclass
@@ -139,7 +143,10 @@ class Task:
     facets : int
         Facets of each inscribed friction pyramid.
     min_normal_force : float
-        N, for every active contact.
+        N, the task-wide minimum normal force (top-level
+        ``min_normal_force``); a contact may keep a larger or smaller one of
+        its own (:attr:`ContactSpec.min_normal_force` holds each contact's,
+        :meth:`min_normal_forces` lists them).
     solver_options : dict
         Passed to the solver adapter as given (without ``memory_limit``).
     initial_posture : ndarray, shape (nq,), or None
@@ -218,6 +225,15 @@ class Task:
         return dataclasses.replace(self, requirements=[*self.requirements,
                                                        horizon_requirement(newtons, self.duration)])
 
+    def min_normal_forces(self, contacts=None) -> np.ndarray:
+        """Each contact's minimum normal force, N, shape (nc,): of ``contacts`` (default the task's)."""
+        return np.array([float(c.min_normal_force) for c in (self.contacts if contacts is None else contacts)])
+
+    @property
+    def own_normal_forces(self) -> bool:
+        """True when some contact keeps a minimum normal force other than the task-wide one."""
+        return bool(np.any(self.min_normal_forces() != self.min_normal_force))
+
     @property
     def weight(self) -> float:
         """The robot's weight m g, N."""
@@ -250,10 +266,13 @@ def task_from_mapping(data: dict, path) -> Task:
     robot = with_torque_scale(robot, planned_value(1.0, reserve))
     duration, knots = read_horizon(top.sub("horizon"))
     contacts, surfaces, schedule = read_stance(top.sub("stance"), robot, duration)
+    weight = robot.mass * float(np.linalg.norm(robot.gravity))
+    min_normal_force = top.number("min_normal_force", 0.05 * weight / len(contacts), lo=0.0)
+    contacts = [c if c.min_normal_force is not None else dataclasses.replace(c, min_normal_force=min_normal_force)
+                for c in contacts]
     friction_reserve = read_reserve(top, "friction_reserve")
     contacts = with_friction_reserve(contacts, schedule, friction_reserve)
     clearance = read_clearance(top, robot, schedule_contacts(contacts, schedule), surfaces)
-    weight = robot.mass * float(np.linalg.norm(robot.gravity))
     hand_targets = read_hand_targets(top, robot, duration)
     disturbances = read_disturbances(top, robot)
     return Task(
@@ -269,7 +288,7 @@ def task_from_mapping(data: dict, path) -> Task:
         combine_points=top.string("combine_points", DEFAULT_COMBINATION, choices=list(COMBINATIONS)),
         objective=top.string("objective", "robust", choices=OBJECTIVES),
         facets=top.integer("pyramid_facets", 4, lo=3, hi=MAX_FACETS),
-        min_normal_force=top.number("min_normal_force", 0.05 * weight / len(contacts), lo=0.0),
+        min_normal_force=min_normal_force,
         solver_options=read_solver_options(top),
         memory_limit=read_memory_limit(top),
         initial_posture=read_initial_posture(top, robot, contacts, clearance),
@@ -468,38 +487,48 @@ def read_clearance(top: Fields, robot, contacts, surfaces) -> ClearanceSpec:
     return clearance_spec(robot, contacts, used, distance)
 
 
-def make_contact(frame, foothold, normal, friction, surface: str = "") -> ContactSpec:
+def make_contact(frame, foothold, normal, friction, surface: str = "", min_normal_force=0.0) -> ContactSpec:
+    """A ContactSpec; ``min_normal_force`` [N] None until the task's is filled in (:func:`task_from_mapping`)."""
     return ContactSpec(frame, np.asarray(foothold, float), np.asarray(normal, float), tangent_basis(normal), friction,
-                       surface)
+                       surface, min_normal_force)
+
+
+def read_own_normal_force(spec: Fields) -> float | None:
+    """A contact's own ``min_normal_force`` (N, >= 0), or None: the task's."""
+    return spec.number("min_normal_force", lo=0.0) if spec.has("min_normal_force") else None
 
 
 def read_explicit_contacts(contacts: Fields) -> list[ContactSpec]:
-    """``{frame: {position, normal, friction}}``."""
+    """``{frame: {position, normal, friction, min_normal_force?}}``."""
     out = []
     for frame in contacts.data:
         require_text_key(contacts, frame)
         spec = contacts.sub(str(frame))
-        spec.allow_only({"position", "normal", "friction"})
+        spec.allow_only({"position", "normal", "friction", "min_normal_force"})
         out.append(make_contact(str(frame), spec.vector("position", 3), unit_vector(spec, "normal"),
-                                spec.number("friction", lo=0.0, lo_open=True)))
+                                spec.number("friction", lo=0.0, lo_open=True),
+                                min_normal_force=read_own_normal_force(spec)))
     return out
 
 
 def read_placed_feet(stance: Fields, terrain) -> tuple[list[ContactSpec], list]:
-    """Feet ``{frame: [x, y]}`` or ``{frame: {xy: [x, y], surface: name}}`` placed on ``terrain``."""
+    """Feet ``{frame: [x, y]}`` or ``{frame: {xy: [x, y], surface: name, min_normal_force: N}}`` placed on
+    ``terrain``."""
     feet = stance.sub("feet")
     out = []
     for frame in feet.data:
         require_text_key(feet, frame)
         key = str(frame)
+        own = None
         if isinstance(feet.raw(key), dict):
             spec = feet.sub(key)
-            spec.allow_only({"xy", "surface"})
-            xy, surface = spec.vector("xy", 2), spec.string("surface", None)
+            spec.allow_only({"xy", "surface", "min_normal_force"})
+            xy, own = spec.vector("xy", 2), read_own_normal_force(spec)
+            surface = spec.string("surface") if spec.has("surface") else None
         else:
             xy, surface = feet.vector(key, 2), None
         where = terrain.place(xy, surface, feet.at(key))
-        out.append(make_contact(key, where.foothold, where.normal, where.friction, where.surface))
+        out.append(make_contact(key, where.foothold, where.normal, where.friction, where.surface, own))
     return out, terrain.geometry()
 
 

@@ -21,6 +21,7 @@ from matplotlib.ticker import MaxNLocator
 
 from ..analysis.polytope_cut import polytope_cut
 from ..files import atomic_output
+from ..planfile import min_normal_forces
 from . import palette
 from .geometry import Skeleton, hand_targets
 
@@ -152,7 +153,7 @@ def friction_figure(entries) -> Figure:
     fig = _figure("friction_use")
     names = entries[0].use.contact_names
     axes = fig.subplots(len(names), 2, sharex=True, squeeze=False)
-    minimum = float(entries[0].plan.meta["min_normal_force"])
+    minimum = min_normal_forces(entries[0].plan.meta)
     for c, name in enumerate(names):
         left, right = axes[c]
         for e in entries:
@@ -160,7 +161,7 @@ def friction_figure(entries) -> Figure:
             left.plot(e.plan.t, 100.0 * e.use.friction[:, c], **style)
             right.plot(e.plan.t, e.use.normal_force[:, c], **style)
         left.axhline(100.0, color=palette.DANGER, linewidth=1.0, linestyle=":")
-        right.axhline(minimum, color=palette.DANGER, linewidth=1.0, linestyle=":")
+        right.axhline(minimum[c], color=palette.DANGER, linewidth=1.0, linestyle=":")
         left.set_ylabel(f"{name}\nfriction use [%]")
         right.set_ylabel("normal force [N]")
         left.set_ylim(0.0, 110.0)

@@ -40,6 +40,8 @@ EXTRA_COLOURS = ("#8e3b8f", "#3f8f4f", "#c9a227", "#9c2f2f", "#2f6f6f")
 
 EXTRA_MARKERS = ("v", "P", "X", "<", ">")
 EXTRA_DASHES = ("-", "--", "-.", ":", (0, (5, 1, 1, 1)))
+TASK_MARKERS = ("v", "P", "X", "<", ">", "D", "*", "h", "p", "8")
+"""Markers, in order, for tasks in a figure whose colours are objectives (ten tell apart)."""
 
 INK = "#222222"          # text, axes, robot links
 MUTED = "#9a9a9a"        # grids, terrain outlines, secondary text

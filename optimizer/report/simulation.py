@@ -42,7 +42,7 @@ def push_figure(documents) -> Figure:
     """Survived push against certified margin, one panel per mode, every document's pushes."""
     tasks = sorted({doc.get("task", "") for doc in documents})
     objectives = sorted({doc.get("objective", "") for doc in documents})
-    markers = {t: palette.series_style(i)["marker"] for i, t in enumerate(tasks)}
+    markers = {t: palette.TASK_MARKERS[i % len(palette.TASK_MARKERS)] for i, t in enumerate(tasks)}
     fig = Figure(figsize=SIZE, dpi=palette.FIGURE_DPI, layout="constrained")
     axes = fig.subplots(1, 2, sharex=True, sharey=True)
     top = 1.0

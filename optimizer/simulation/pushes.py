@@ -3,7 +3,9 @@
 :class:`Simulator` builds the scene once. :meth:`Simulator.nominal` replays
 the plan without a push and measures tracking: base and hand against the
 plan at every knot, the hand against every target, each contact point against
-its foothold, contact losses, clipped torques. :meth:`Simulator.largest_push`
+the foothold of each of its stance intervals while the plan has it in stance
+(:mod:`.stances`; swinging feet are not judged), contact losses in stance,
+clipped torques. :meth:`Simulator.largest_push`
 pushes at the disturbance frame along the certified weakest direction of a
 knot (exact certification, :mod:`optimizer.analysis.certify`), full size from
 the knot's time on for ``hold`` seconds (from ``ramp`` on at the first knot, so
@@ -27,9 +29,10 @@ import pinocchio as pin
 from ..analysis.certify import certify_response
 from ..analysis.knot_response import PlanRobot, knot_response, torque_limits
 from ..problem.reserve import full_value
-from .reference import PlanReference, pd_gains
+from .reference import PlanReference, SwingPaths, pd_gains
 from .rollout import Push, Rollout, SurvivalRules
 from .scene import ContactSettings, build_scene
+from .stances import StanceSchedule
 
 
 SMALLEST_SCALE = 0.01  # bisection starts at the margin, or at this fraction of the robot's weight if larger
@@ -45,10 +48,11 @@ class Settings:
     rules : SurvivalRules
     full_error, stance_full_error : float
         Joint error [rad] at which the PD stiffness reaches the torque limit,
-        for free joints (the arm) and for joints that move a stance contact
-        (the legs; softer, so that tracking errors of a closed chain do not
-        squeeze the feet off their footholds); ``damping`` the damping ratio
-        of each joint alone.
+        for free joints (the arm, a swinging leg) and for joints that move a
+        contact in stance at the knot (the legs; softer, so that tracking
+        errors of a closed chain do not squeeze the feet off their
+        footholds, stiff enough that the base does not sag while a foot
+        swings); ``damping`` the damping ratio of each joint alone.
     hold, ramp, settle : float
         Push held at full size [s], ramp up and down [s], watched after it [s].
     tolerance : float
@@ -58,14 +62,17 @@ class Settings:
         Largest push tried, in multiples of the certified margin.
     foot_tolerance, target_tolerance : float
         Nominal replay passes when every contact point stays within
-        ``foot_tolerance`` [m] of its foothold and the hand within
-        ``target_tolerance`` [m] of every target.
+        ``foot_tolerance`` [m] of its interval's foothold while judged in
+        stance and the hand within ``target_tolerance`` [m] of every target.
+    swing_correction : bool
+        Steer swinging legs along the plan's world-frame foot path
+        (:class:`~optimizer.simulation.reference.SwingPaths`).
     """
 
     contact: ContactSettings = field(default_factory=ContactSettings)
     rules: SurvivalRules = field(default_factory=SurvivalRules)
     full_error: float = 0.1
-    stance_full_error: float = 0.5
+    stance_full_error: float = 0.2
     damping: float = 1.0
     hold: float = 0.2
     ramp: float = 0.02
@@ -74,6 +81,7 @@ class Settings:
     max_ratio: float = 8.0
     foot_tolerance: float = 0.005
     target_tolerance: float = 0.02
+    swing_correction: bool = True
 
 
 @dataclass
@@ -175,17 +183,18 @@ class Simulator:
         self.reference = PlanReference(plan, angles, disturbance)
         self.limits = actuator_limits(plan.meta)
         self._robot = PlanRobot(plan.meta, disturbance)
+        self.stances = StanceSchedule.of(plan)
+        self.swing = SwingPaths(plan, self.scene.pin_model) if self.settings.swing_correction else None
         stance = stance_joints(self._robot, plan)
         full_error = np.where(stance, self.settings.stance_full_error, self.settings.full_error)
-        self.gains = pd_gains(self.scene.pin_model, plan.q[0], np.minimum(-self.limits[0], self.limits[1]),
+        self.gains = pd_gains(self.scene.pin_model, plan.q, np.minimum(-self.limits[0], self.limits[1]),
                               full_error, self.settings.damping)
-        self.normals = np.array(plan.meta["contact_normals"], float).reshape(-1, 3)
         self.weight = float(pin.computeTotalMass(self.scene.pin_model) * np.linalg.norm(plan.meta["gravity"]))
         self._start_states: dict = {}
 
     def rollout(self, mode: str) -> Rollout:
         return Rollout(self.scene, self.reference, self.gains, mode, self.disturbance_frame, self.shape,
-                       self.limits, self.normals, self.plan.meta["joint_names"])
+                       self.limits, self.stances, self.plan.meta["joint_names"], self.swing)
 
     def _restart(self) -> None:
         self.scene.data.time = 0.0
@@ -290,10 +299,14 @@ def actuator_limits(meta: dict) -> tuple[np.ndarray, np.ndarray]:
 
 
 def stance_joints(robot: PlanRobot, plan) -> np.ndarray:
-    """Joints (nj,) that move a contact in stance at the first knot (non-zero contact Jacobian column)."""
-    jc, _ = robot.jacobians(plan.q[0])
-    rows = np.repeat(np.asarray(plan.contact_active[0], bool), 3)
-    return np.abs(jc[rows, 6:]).max(axis=0, initial=0.0) > 1e-9
+    """(K, nj) bool: joints that move a contact the plan has in stance at each knot (non-zero
+    column of that contact's Jacobian at the knot)."""
+    out = np.zeros((plan.q.shape[0], len(plan.meta["joint_names"])), bool)
+    for k, q in enumerate(plan.q):
+        jc, _ = robot.jacobians(q)
+        rows = np.repeat(np.asarray(plan.contact_active[k], bool), 3)
+        out[k] = np.abs(jc[rows, 6:]).max(axis=0, initial=0.0) > 1e-9
+    return out
 
 
 def linear_limit_along(response, u_dir, gains) -> float:
@@ -325,6 +338,33 @@ def binding_knots(t, target: Target) -> list:
     return inside or [int(np.argmin(np.abs(np.asarray(t) - 0.5 * (target.t_start + target.t_end))))]
 
 
+def foot_report(sim: Simulator, rec) -> list:
+    """Per contact, over the samples it is judged in (its stance intervals, after touchdowns):
+    largest distance from the interval's foothold [m], largest slip along the interval's surface
+    from the foothold [m], longest time without normal force [s] and how many such spans exceed
+    the contact-loss rule; its stance intervals (knots) when it steps."""
+    plan, s = sim.plan, sim.settings
+    dt = sim.scene.model.opt.timestep
+    judged = sim.stances.judged_series(rec.time, s.rules.touchdown)
+    feet = []
+    for c, name in enumerate(plan.meta["contact_frames"]):
+        distance, slip = np.zeros(rec.time.size), np.zeros(rec.time.size)
+        for i in np.unique(judged[:, c][judged[:, c] >= 0]):
+            stance = sim.stances.intervals[i]
+            rows = judged[:, c] == i
+            moved = rec.sites[rows, c] - stance.foothold
+            distance[rows] = np.linalg.norm(moved, axis=1)
+            slip[rows] = np.linalg.norm(moved - np.outer(moved @ stance.normal, stance.normal), axis=1)
+        spans = zero_force_spans((judged[:, c] >= 0) & (rec.normal_force[:, c] <= 0.0)) * dt
+        own = sim.stances.by_contact[c]
+        feet.append({"frame": name, "distance_m": float(distance.max(initial=0.0)),
+                     "slip_m": float(slip.max(initial=0.0)),
+                     "longest_without_force_s": float(spans.max(initial=0.0)),
+                     "contact_losses": int(np.count_nonzero(spans > s.rules.contact_loss)),
+                     "stances": [[st.first, st.last] for st in own]})
+    return feet
+
+
 def nominal_report(sim: Simulator, rec) -> dict:
     """Tracking figures of a nominal replay record."""
     plan, scene, s = sim.plan, sim.scene, sim.settings
@@ -347,18 +387,8 @@ def nominal_report(sim: Simulator, rec) -> dict:
         err = max(float(np.linalg.norm(rec.sites[steps[k], column] - target.position)) for k in knots)
         targets.append({"label": target.label, "frame": target.frame, "knots": knots, "error_m": err,
                         "ok": err <= s.target_tolerance})
-    footholds = plan.contact_targets[0]
-    feet = []
+    feet = foot_report(sim, rec)
     dt = scene.model.opt.timestep
-    for c, name in enumerate(plan.meta["contact_frames"]):
-        moved = rec.sites[:, c] - footholds[c]
-        n = sim.normals[c]
-        tangential = moved - np.outer(moved @ n, n)
-        spans = zero_force_spans(rec.normal_force[:, c] <= 0.0) * dt
-        feet.append({"frame": name, "distance_m": float(np.linalg.norm(moved, axis=1).max(initial=0.0)),
-                     "slip_m": float(np.linalg.norm(tangential, axis=1).max(initial=0.0)),
-                     "longest_without_force_s": float(spans.max(initial=0.0)),
-                     "contact_losses": int(np.count_nonzero(spans > s.rules.contact_loss))})
     clipped = rec.clipped.sum(axis=0) * dt
     joint_err = np.abs(rec.joints - np.array([sim.reference.at(t)[0] for t in rec.time])).max(initial=0.0)
     worst_k = int(np.argmax(hand_err))

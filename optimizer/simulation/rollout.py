@@ -1,9 +1,12 @@
 """The stepping loop: controller, push, and what happened at every step.
 
 Each step (MuJoCo's split step, so the controller sees the current state):
-the joint torque is the plan's feed-forward torque plus joint PD tracking,
-plus in ``informed`` mode the plan's response to the push acting right now
-(the controller is told the push exactly, as from an ideal force sensor);
+the joint torque is the plan's feed-forward torque plus joint PD tracking
+(gains of the knot whose step it is; a swinging leg's reference shifted
+towards the plan's world-frame foot path,
+:class:`~optimizer.simulation.reference.SwingPaths`), plus in ``informed``
+mode the plan's response to the push acting right now (the controller is
+told the push exactly, as from an ideal force sensor);
 torques are clipped to the plan's limits. The ``-Kd v`` part of the PD acts
 through MuJoCo's joint damping, which ``implicitfast`` integrates implicitly
 (two nearly coaxial wrist joints form a mode with almost no inertia that an
@@ -14,7 +17,8 @@ at the disturbance frame's origin, world axes.
 
 A :class:`Rollout` records, per step, the contact points, their normal
 forces and which torques were clipped, and stops early at the first broken
-survival rule when asked to (:class:`SurvivalRules`).
+survival rule when asked to (:class:`SurvivalRules`; only feet the plan has
+in stance are judged).
 """
 from __future__ import annotations
 
@@ -31,20 +35,32 @@ MODES = ("informed", "blind")
 class SurvivalRules:
     """What counts as surviving a push.
 
+    Feet are judged only while the plan has them in stance
+    (:mod:`optimizer.simulation.stances`): a swinging foot may move and carry
+    no force freely.
+
     Attributes
     ----------
     slip : float
-        Largest tangential displacement of a contact point since the push
-        began [m].
+        Largest displacement of a stance foot's contact point along its
+        surface [m], from where it was when watching began (or, for a foot
+        that touches down later, where it was at the end of its ``touchdown``
+        time).
     contact_loss : float
-        Longest time a foot may carry no normal force [s].
+        Longest time a stance foot may carry no normal force [s].
     saturation : float
         Longest time a joint torque may stay clipped at its limit [s].
+    touchdown : float
+        Settling time after a planned touchdown (the first knot of a stance
+        interval that does not begin the plan) during which the foot is not
+        yet judged [s]: the replayed foot lands a little before or after the
+        planned knot and bounces on the soft contact.
     """
 
     slip: float = 0.005
     contact_loss: float = 0.005
     saturation: float = 0.02
+    touchdown: float = 0.05
 
 
 @dataclass
@@ -139,13 +155,16 @@ class Rollout:
         The plan's disturbance shape matrix W (push ``F = W u``).
     torque_limits : tuple of ndarray
         Lower and upper limits, shape (nj,) each.
-    normals : ndarray, shape (nc, 3)
-        Contact normals, world frame (slip is measured across them).
+    stances : StanceSchedule
+        The plan's stance intervals: which feet the rules judge, when, and
+        along which surface slip is measured.
     joint_names : list of str
+    swing : SwingPaths or None
+        World-frame correction of swinging legs (None: joint tracking only).
     """
 
-    def __init__(self, scene, reference, gains, mode, disturbance_frame, shape, torque_limits, normals,
-                 joint_names):
+    def __init__(self, scene, reference, gains, mode, disturbance_frame, shape, torque_limits, stances,
+                 joint_names, swing=None):
         if mode not in MODES:
             raise ValueError(f"mode must be one of {MODES}")
         self.scene, self.reference, self.gains, self.mode = scene, reference, gains, mode
@@ -155,37 +174,41 @@ class Rollout:
         self.lower, self.upper = torque_limits
         self.site_ids = np.array(list(scene.sites.values()), int)
         self.site_names = list(scene.sites)
-        self.foot_of_geom = {int(g): c for c, g in enumerate(scene.foot_geoms)}
-        self.normals = np.asarray(normals, float).reshape(-1, 3)
+        self.foot_of_geom = {int(g): int(c) for g, c in zip(scene.foot_geoms, scene.foot_contacts)}
+        self.stances, self.swing = stances, swing
         self.joint_names = list(joint_names)
         scene.model.dof_damping[:] = 0.0
-        scene.model.dof_damping[scene.joint_dof] = gains.kd
+        self._gain_knot = -1
 
     def run(self, until: float, push: Push | None = None, rules: SurvivalRules | None = None,
             watch_from: float = 0.0) -> Record:
         """Step from the scene's current state to time ``until`` [s].
 
         With ``rules``, the run stops at the first broken rule counted from
-        ``watch_from`` [s] (slip measured from the contact points at that time).
+        ``watch_from`` [s], for the feet the plan has in stance (slip measured
+        from where each foot was when it began to be watched).
         """
         sc, m, d = self.scene, self.scene.model, self.scene.data
         dt = m.opt.timestep
         n = max(int(round((until - d.time) / dt)), 0)
-        nj, nc = sc.joint_dof.size, sc.foot_geoms.size
+        nj, nc = sc.joint_dof.size, self.stances.contacts
         rec = Record(np.zeros(n), np.zeros((n, 7)), np.zeros((n, nj)), np.zeros((n, self.site_ids.size, 3)),
                      np.zeros((n, nc)), np.zeros((n, nj), bool), site_names=self.site_names)
         wrap = sc.continuous
-        force6, scratch = np.zeros(6), np.zeros(m.nv)
-        watch = _Watch(rules, dt, self.site_names[:nc], self.joint_names) if rules is not None else None
+        force6, scratch, jacobian = np.zeros(6), np.zeros(m.nv), np.zeros((3, m.nv))
+        watch = _Watch(rules, dt, self.site_names[:nc], self.joint_names, self.stances) if rules is not None else None
         for i in range(n):
             mujoco.mj_step1(m, d)
             t = d.time
             q, v = d.qpos[sc.joint_qpos], d.qvel[sc.joint_dof]
             q_ref, v_ref, tau = self.reference.at(t)
+            kp, kd = self._gains_at(t)
             error = q_ref - q
             error[wrap] = (error[wrap] + np.pi) % (2 * np.pi) - np.pi
-            damping = self.gains.kd * v
-            tau = tau + self.gains.kp * error + self.gains.kd * (v_ref - v)
+            if self.swing is not None:
+                self._swing_shift(t, error, jacobian)
+            damping = kd * v
+            tau = tau + kp * error + kd * (v_ref - v)
             d.qfrc_applied[:] = 0.0
             if push is not None:
                 wrench = push.at(t)
@@ -215,12 +238,28 @@ class Rollout:
                 rec.failure, rec.diverged = f"the simulation diverged at t = {t:.3f} s", True
                 return _trimmed(rec, i + 1)
             if watch is not None and t >= watch_from - 0.5 * dt:
-                if watch.origin is None:
-                    watch.origin = rec.sites[i, :nc].copy()
-                rec.failure = watch.check(t, rec.sites[i, :nc], self.normals, rec.normal_force[i], clipped)
+                rec.failure = watch.check(t, rec.sites[i, :nc], rec.normal_force[i], clipped)
                 if rec.failure:
                     return _trimmed(rec, i + 1)
         return rec
+
+    def _swing_shift(self, t: float, error, jacobian) -> None:
+        """Add to ``error`` (joint reference minus position) the swing legs' world-frame correction."""
+        k, s = self.reference.locate(t)
+        for c in self.swing.swinging_at(k):
+            site = self.site_ids[c]
+            mujoco.mj_jacSite(self.scene.model, self.scene.data, jacobian, None, int(site))
+            leg = self.swing.legs[c]
+            miss = self.swing.point(k, s, c) - self.scene.data.site_xpos[site]
+            error[leg] += self.swing.shift(jacobian[:, self.scene.joint_dof[leg]], miss)
+
+    def _gains_at(self, t: float) -> tuple[np.ndarray, np.ndarray]:
+        """PD gains of the knot whose step contains ``t``; MuJoCo's joint damping follows them."""
+        k = self.reference.locate(t)[0]
+        if k != self._gain_knot:
+            self._gain_knot = k
+            self.scene.model.dof_damping[self.scene.joint_dof] = self.gains.kd[k]
+        return self.gains.kp[k], self.gains.kd[k]
 
 
 def _trimmed(rec: Record, n: int) -> Record:
@@ -230,23 +269,35 @@ def _trimmed(rec: Record, n: int) -> Record:
 
 
 class _Watch:
-    """Online check of the survival rules from the moment a push begins."""
+    """Online check of the survival rules from the moment a push begins.
 
-    def __init__(self, rules: SurvivalRules, dt: float, feet, joints):
-        self.rules, self.dt, self.feet, self.joints = rules, dt, feet, joints
+    Each foot is judged only inside a stance interval (after its touchdown
+    time); slip is measured along that interval's surface from the foot's
+    position at the first sample it was judged in this interval.
+    """
+
+    def __init__(self, rules: SurvivalRules, dt: float, feet, joints, stances):
+        self.rules, self.dt, self.feet, self.joints, self.stances = rules, dt, feet, joints, stances
         self.no_contact = np.zeros(len(feet))
         self.clipped_for = np.zeros(len(joints))
-        self.origin = None
+        self.judged = [None] * len(feet)
+        self.origin = np.zeros((len(feet), 3))
 
-    def check(self, t: float, points, normals, normal_force, clipped) -> str:
+    def check(self, t: float, points, normal_force, clipped) -> str:
         """The first broken rule at time ``t`` [s], or an empty string."""
-        moved = points - self.origin
-        moved -= (moved * normals).sum(axis=1, keepdims=True) * normals
-        slip = np.linalg.norm(moved, axis=1)
-        worst = int(np.argmax(slip))
-        if slip[worst] > self.rules.slip:
-            return f"{self.feet[worst]} slipped {1e3 * slip[worst]:.1f} mm at t = {t:.3f} s"
-        self.no_contact = np.where(normal_force <= 0.0, self.no_contact + self.dt, 0.0)
+        now = self.stances.current(t, self.rules.touchdown)
+        for c, stance in enumerate(now):
+            if stance is not self.judged[c]:
+                self.judged[c], self.origin[c], self.no_contact[c] = stance, points[c], 0.0
+        for c, stance in enumerate(now):
+            if stance is None:
+                continue
+            moved = points[c] - self.origin[c]
+            slip = float(np.linalg.norm(moved - (moved @ stance.normal) * stance.normal))
+            if slip > self.rules.slip:
+                return f"{self.feet[c]} slipped {1e3 * slip:.1f} mm at t = {t:.3f} s"
+        judged = np.array([stance is not None for stance in now])
+        self.no_contact = np.where(judged & (normal_force <= 0.0), self.no_contact + self.dt, 0.0)
         lost = int(np.argmax(self.no_contact))
         if self.no_contact[lost] > self.rules.contact_loss:
             return f"{self.feet[lost]} lost contact at t = {t:.3f} s"

@@ -7,12 +7,24 @@ masses, centres of mass, inertia tensors, joint placements and axes are
 copied, fixed links are already merged by Pinocchio. The base is a free
 joint (unactuated). Joint position limits become MuJoCo joint limits.
 
-Feet are small spheres touching the terrain at the contact frame's origin in
-the plan's first configuration (centre ``r`` along the contact normal); each
-foot collides only with the terrain (explicit contact pairs carrying the
-full friction of that contact: the plan's coefficient, or, for a plan made
-with a ``friction_reserve`` r, that coefficient divided by ``1 - r``). Nothing else collides: the plan does not
-model link collisions either.
+Feet are small spheres of radius ``r``, one per contact and terrain solid
+the plan stands that contact on (its stance intervals,
+:mod:`optimizer.simulation.stances`): each touches its solid at the contact
+frame's origin, its centre ``r`` (less a 10 um preload) from the origin
+along the surface normal of the solid's first stance interval, in the leg's
+orientation at that interval's first knot. So a foot that steps from the
+floor onto a wall's side has a sphere below it for the floor and one beside
+it for the wall, each tangent where the plan puts the contact, and a foot
+rolling on its sphere keeps its contact point where it was (a sphere
+centred at the contact point would carry it ``r`` per radian of roll).
+Each sphere collides only with its own solid, through an explicit contact
+pair carrying the full friction the plan used there (the coefficient of
+that solid's stance intervals, per knot from ``meta.contact_knot_surfaces``
+when the plan stores it; for a plan made with a ``friction_reserve`` r,
+that coefficient divided by ``1 - r``); the contact's first sphere also
+collides, with its first coefficient, with every solid the plan never
+stands that contact on (a swinging foot that strikes the terrain meets it).
+Nothing else collides: the plan does not model link collisions either.
 
 Layouts: Pinocchio ``q = [x y z qx qy qz qw, joints]`` with the base twist in
 the base frame; MuJoCo ``qpos = [x y z qw qx qy qz, joints]`` with the base's
@@ -30,12 +42,14 @@ import pinocchio as pin
 
 from ..errors import PlanFileError
 from ..problem.reserve import full_value
+from .stances import stance_intervals
+from .surfaces import surface_under
 
 HINGE_AXES = {"RX": (1, 0, 0), "RY": (0, 1, 0), "RZ": (0, 0, 1), "RUBX": (1, 0, 0), "RUBY": (0, 1, 0),
               "RUBZ": (0, 0, 1)}
 SLIDE_AXES = {"PX": (1, 0, 0), "PY": (0, 1, 0), "PZ": (0, 0, 1)}
 CONTINUOUS = {"RUBX", "RUBY", "RUBZ", "RevoluteUnboundedUnaligned"}
-PRELOAD = 1e-5  # m each foot sphere reaches into its surface at the first knot, so every contact is active at once
+PRELOAD = 1e-5  # m each foot sphere reaches into its solid at its first knot, so every planted contact is active at once
 
 
 @dataclass
@@ -87,8 +101,10 @@ class Scene:
         Index of each joint's first entry in the Pinocchio ``q``.
     continuous : ndarray of bool, shape (nj,)
         Joints stored as (cos, sin) in Pinocchio.
-    foot_geoms : ndarray of int, shape (nc,)
-        Geom id of each contact's sphere.
+    foot_geoms : ndarray of int, shape (ng,)
+        Geom id of every foot sphere (a contact has one per solid it stands on).
+    foot_contacts : ndarray of int, shape (ng,)
+        The contact (index into ``meta.contact_frames``) of each foot sphere.
     sites : dict of str to int
         Site id of every frame the scene tracks (contacts, hand, disturbances).
     surfaces : list
@@ -104,6 +120,7 @@ class Scene:
     joint_q: np.ndarray
     continuous: np.ndarray
     foot_geoms: np.ndarray
+    foot_contacts: np.ndarray
     sites: dict
     surfaces: list = field(default_factory=list)
 
@@ -217,18 +234,67 @@ def _frame_site(bodies, model, name: str) -> None:
                   quat=_fmt(_quat_wxyz(frame.placement.rotation)), size="0.01")
 
 
-def _foot_geoms(bodies, model, plan, radius: float) -> None:
-    """One sphere per contact, tangent to its surface at the contact point in the first knot."""
+@dataclass
+class FootSphere:
+    """One foot sphere: its contact, where it sits on the leg, the solids it meets and their friction.
+
+    Attributes
+    ----------
+    contact : int
+    name : str
+        Geom name.
+    joint : int
+        Pinocchio joint the sphere moves with.
+    centre : ndarray, shape (3,)
+        Centre in that joint's frame [m].
+    solids : list of int
+        Indices of the terrain solids it collides with.
+    friction : list of float
+        Full friction coefficient of each of those pairs.
+    """
+
+    contact: int
+    name: str
+    joint: int
+    centre: np.ndarray
+    solids: list
+    friction: list
+
+
+def foot_spheres(plan, model, surfaces, radius: float) -> list:
+    """The foot spheres of ``plan`` on ``surfaces`` (see the module notes), full friction per pair."""
     data = model.createData()
-    pin.framesForwardKinematics(model, data, plan.q[0])
-    normals = np.array(plan.meta["contact_normals"], float).reshape(-1, 3)
-    for name, normal in zip(plan.meta["contact_frames"], normals):
-        fid = model.getFrameId(name)
-        frame = model.frames[fid]
-        joint_rot = data.oMi[frame.parentJoint].rotation
-        centre = frame.placement.translation + (radius - PRELOAD) * joint_rot.T @ normal
-        ET.SubElement(bodies[frame.parentJoint], "geom", name=f"foot:{name}", type="sphere", size=f"{radius:.12g}",
-                      pos=_fmt(centre), contype="0", conaffinity="0", mass="0", group="1",
+    intervals = stance_intervals(plan)
+    out = []
+    for c, name in enumerate(plan.meta["contact_frames"]):
+        frame = model.frames[model.getFrameId(name)]
+        own = [s for s in intervals if s.contact == c]
+        first_mu = own[0].friction if own else float(np.ravel(plan.meta["friction"])[c])
+        solids = {}
+        for s in own:
+            j = surface_under(surfaces, s.foothold) if surfaces else -1
+            solids.setdefault(j, []).append(s)
+        if not solids:
+            solids[-1] = []
+        unused = [j for j in range(len(surfaces)) if j not in solids]
+        for n, (j, stances) in enumerate(solids.items()):
+            first = stances[0] if stances else None
+            q = plan.q[first.first] if first else plan.q[0]
+            normal = first.normal if first else np.asarray(plan.meta["contact_normals"], float).reshape(-1, 3)[c]
+            pin.framesForwardKinematics(model, data, q)
+            joint_rot = data.oMi[frame.parentJoint].rotation
+            centre = frame.placement.translation + (radius - PRELOAD) * joint_rot.T @ normal
+            pairs = ([j] if j >= 0 else []) + (unused if n == 0 else [])
+            mu = [stances[-1].friction if stances and p == j else first_mu for p in pairs]
+            out.append(FootSphere(c, f"foot:{name}" + (f":{n}" if n else ""), frame.parentJoint, centre, pairs,
+                                  list(full_value(plan.meta, "friction_reserve", np.array(mu, float)))))
+    return out
+
+
+def _foot_geoms(bodies, spheres, radius: float) -> None:
+    for sphere in spheres:
+        ET.SubElement(bodies[sphere.joint], "geom", name=sphere.name, type="sphere", size=f"{radius:.12g}",
+                      pos=_fmt(sphere.centre), contype="0", conaffinity="0", mass="0", group="1",
                       rgba="0.9 0.4 0.1 1")
 
 
@@ -247,8 +313,8 @@ def _surface_geoms(world, surfaces) -> list:
     return names
 
 
-def scene_xml(plan, surfaces, settings: ContactSettings, frames, where="plan") -> tuple[str, object]:
-    """MJCF text of the plan's robot on ``surfaces``, and the Pinocchio model it was made from."""
+def scene_xml(plan, surfaces, settings: ContactSettings, frames, where="plan") -> tuple[str, object, list]:
+    """MJCF text of the plan's robot on ``surfaces``, the Pinocchio model it was made from, its foot spheres."""
     model = pin.buildModelFromXML(plan.meta["urdf"], pin.JointModelFreeFlyer())
     root = ET.Element("mujoco", model="brace-simulation")
     ET.SubElement(root, "compiler", angle="radian", autolimits="true")
@@ -260,22 +326,22 @@ def scene_xml(plan, surfaces, settings: ContactSettings, frames, where="plan") -
     bodies = _robot_bodies(world, model, where)
     for name in frames:
         _frame_site(bodies, model, name)
-    _foot_geoms(bodies, model, plan, settings.foot_radius)
+    spheres = foot_spheres(plan, model, surfaces, settings.foot_radius)
+    _foot_geoms(bodies, spheres, settings.foot_radius)
     contact = ET.SubElement(root, "contact")
     solref = _fmt([settings.time_constant, settings.damping_ratio])
-    for name, mu in zip(plan.meta["contact_frames"], full_value(plan.meta, "friction_reserve",
-                                                                np.asarray(plan.meta["friction"], float))):
-        for geom in terrain:
-            ET.SubElement(contact, "pair", geom1=f"foot:{name}", geom2=geom, condim="3",
+    for sphere in spheres:
+        for j, mu in zip(sphere.solids, sphere.friction):
+            ET.SubElement(contact, "pair", geom1=sphere.name, geom2=terrain[j], condim="3",
                           friction=_fmt([mu, mu, 0.0, 0.0, 0.0]), solref=solref, solimp=_fmt(settings.impedance))
-    return ET.tostring(root, encoding="unicode"), model
+    return ET.tostring(root, encoding="unicode"), model, spheres
 
 
 def build_scene(plan, surfaces, settings: ContactSettings | None = None, frames=(), where="plan") -> Scene:
     """Compile the scene of ``plan`` on ``surfaces``; ``frames`` get sites (contact frames always do)."""
     settings = settings or ContactSettings()
     wanted = list(dict.fromkeys(list(plan.meta["contact_frames"]) + list(frames)))
-    xml, pm = scene_xml(plan, surfaces, settings, wanted, where)
+    xml, pm, spheres = scene_xml(plan, surfaces, settings, wanted, where)
     model = mujoco.MjModel.from_xml_string(xml)
     data = mujoco.MjData(model)
     names = plan.meta["joint_names"]
@@ -287,8 +353,8 @@ def build_scene(plan, surfaces, settings: ContactSettings | None = None, frames=
         joint_dof=np.array([model.jnt_dofadr[j] for j in jids], int),
         joint_q=np.array([pm.idx_qs[i] for i in pin_ids], int),
         continuous=np.array([pm.joints[i].shortname().replace("JointModel", "") in CONTINUOUS for i in pin_ids]),
-        foot_geoms=np.array([mujoco.mj_name2id(model, mujoco.mjtObj.mjOBJ_GEOM, f"foot:{n}")
-                             for n in plan.meta["contact_frames"]], int),
+        foot_geoms=np.array([mujoco.mj_name2id(model, mujoco.mjtObj.mjOBJ_GEOM, s.name) for s in spheres], int),
+        foot_contacts=np.array([s.contact for s in spheres], int),
         sites={n: mujoco.mj_name2id(model, mujoco.mjtObj.mjOBJ_SITE, n) for n in wanted},
         surfaces=list(surfaces),
     )

@@ -8,9 +8,9 @@ opposite its normal), a box a solid box whose bottom reaches
 ``BLOCK_FOOTING`` lower (so a block standing on the floor overlaps it and
 no seam opens between the two).
 
-A task with explicit contacts (no terrain) gets one pad per contact: a box
-0.3 m square and 0.05 m thick whose top face holds the foothold, normal to
-the contact's normal. No MuJoCo here: shapes are plain data, world frame, m.
+A task with explicit contacts (no terrain) gets one pad per foothold (per
+stance interval): a box 0.3 m square and 0.05 m thick whose top face holds
+the foothold, normal to the interval's surface normal. No MuJoCo here: shapes are plain data, world frame, m.
 """
 from __future__ import annotations
 
@@ -22,6 +22,7 @@ from ..errors import TaskError
 from ..problem.friction import tangent_basis
 from ..problem.terrain import build_terrain
 from ..schema import Fields
+from .stances import stance_intervals
 
 BLOCK_FOOTING = 0.1  # m a block reaches below the floor, so block and floor overlap
 PAD_SIZE = (0.3, 0.3, 0.05)  # m, length, width and thickness of a pad under an explicit contact
@@ -51,6 +52,14 @@ class Surface:
     rotation: np.ndarray
     half_size: np.ndarray
 
+    def distance(self, point) -> float:
+        """Signed distance [m] of ``point`` (world) from the solid: positive outside, negative inside."""
+        local = self.rotation.T @ (np.asarray(point, float) - self.position)
+        if self.kind == "plane":
+            return float(local[2])
+        outside = np.abs(local) - self.half_size
+        return float(np.linalg.norm(np.maximum(outside, 0.0)) + min(outside.max(), 0.0))
+
 
 def frame_of_normal(normal) -> np.ndarray:
     """Rotation whose third column is the unit ``normal`` (first two: its tangents)."""
@@ -78,14 +87,22 @@ def terrain_surfaces(terrain_mapping: dict, file) -> list:
     return [solid(surface) for surface in terrain.geometry()]
 
 
-def contact_pads(footholds, normals) -> list:
-    """One box per contact under its foothold (explicit contacts, no terrain)."""
+def contact_pads(stances) -> list:
+    """One box under the foothold of every stance interval (explicit contacts, no terrain).
+
+    ``stances``: :class:`~optimizer.simulation.stances.Stance` (foothold and normal, world frame).
+    """
     out = []
     half = 0.5 * np.array(PAD_SIZE)
-    for c, (p, n) in enumerate(zip(footholds, normals)):
-        rot = frame_of_normal(n)
-        out.append(Surface(f"pad{c}", "box", np.asarray(p, float) - half[2] * rot[:, 2], rot, half))
+    for i, s in enumerate(stances):
+        rot = frame_of_normal(s.normal)
+        out.append(Surface(f"pad{i}", "box", np.asarray(s.foothold, float) - half[2] * rot[:, 2], rot, half))
     return out
+
+
+def surface_under(surfaces, foothold) -> int:
+    """Index of the solid of ``surfaces`` whose boundary lies nearest ``foothold`` [m, world]."""
+    return int(np.argmin([abs(s.distance(foothold)) for s in surfaces]))
 
 
 def scene_surfaces(plan, task=None) -> tuple[list, str]:
@@ -93,7 +110,7 @@ def scene_surfaces(plan, task=None) -> tuple[list, str]:
 
     ``task`` (a loaded :class:`~optimizer.problem.task.Task`) takes precedence;
     otherwise the task mapping stored in the plan's ``meta.task``; with no
-    terrain in either, one pad per contact at the plan's first footholds.
+    terrain in either, one pad under every stance interval's foothold.
     """
     if task is not None:
         stance, file = task.raw.get("stance", {}), task.path
@@ -101,5 +118,4 @@ def scene_surfaces(plan, task=None) -> tuple[list, str]:
         stance, file = (plan.meta.get("task") or {}).get("stance", {}), "plan meta.task"
     if isinstance(stance, dict) and isinstance(stance.get("terrain"), dict):
         return terrain_surfaces(stance["terrain"], file), f"terrain '{stance['terrain'].get('kind')}' of {file}"
-    normals = np.array(plan.meta["contact_normals"], float).reshape(-1, 3)
-    return contact_pads(plan.contact_targets[0], normals), "one pad per contact (no terrain in the task)"
+    return contact_pads(stance_intervals(plan)), "one pad per foothold (no terrain in the task)"

@@ -88,7 +88,7 @@ def initial_guess(task) -> dict[str, np.ndarray]:
     active = task.schedule.activity(times)
     for k in range(K):
         stance = [c for c, on in zip(contacts_at(task, times[k]), active[k]) if on]
-        support = static_support_lp(robot, q[:, k], stance, task.facets, task.min_normal_force)
+        support = static_support_lp(robot, q[:, k], stance, task.facets)
         if np.all(np.isfinite(support.forces)):
             lam[np.repeat(active[k], 3), k], tau[:, k] = support.forces.reshape(-1), support.tau
     tau = np.clip(tau, robot.torque_lower[:, None], robot.torque_upper[:, None])

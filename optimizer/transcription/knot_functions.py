@@ -91,7 +91,7 @@ class KnotFunctions:
         ``n . lam - f_min`` per contact); each is >= 0 when its limit holds.
         """
         nc, m, nj = self.structure.nc, self.structure.facets, self.nj
-        lam, f_min = self._sym("lam", 3 * nc), self._sym("f_min")
+        lam, f_min = self._sym("lam", 3 * nc), self._sym("f_min", nc)
         facets, normals = self._sym("facets", 3 * m, nc), self._sym("normals", 3, nc)
         zero = ca.SX.zeros(nj)
         rooms = self.limits.rooms(zero, lam, self._limit_values(facets, normals, f_min, zero, zero), CASADI_OPS)
@@ -117,12 +117,13 @@ class KnotFunctions:
 
         The rows of :mod:`optimizer.problem.limits` in its order (2 nj + nc m +
         nc,): ``tau_upper - tau``, ``tau - tau_lower`` [N m], then per
-        contact ``-g . lam`` for each facet, then ``n . lam - f_min`` [N].
+        contact ``-g . lam`` for each facet, then ``n . lam - f_min`` [N], ``f_min`` (nc,) each contact's
+        minimum normal force.
         Every entry is >= 0 exactly when the plain limits hold.
         """
         nc, m, nj = self.structure.nc, self.structure.facets, self.nj
         tau, lam = self._sym("tau", nj), self._sym("lam", 3 * nc)
-        facets, normals, f_min = self._sym("facets", 3 * m, nc), self._sym("normals", 3, nc), self._sym("f_min")
+        facets, normals, f_min = self._sym("facets", 3 * m, nc), self._sym("normals", 3, nc), self._sym("f_min", nc)
         lower, upper = self._sym("tau_lower", nj), self._sym("tau_upper", nj)
         rooms = self.limits.rooms(tau, lam, self._limit_values(facets, normals, f_min, lower, upper), CASADI_OPS)
         return ca.Function("limit_rooms", [tau, lam, facets, normals, f_min, lower, upper], [rooms],

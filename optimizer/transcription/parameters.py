@@ -21,7 +21,7 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     ``normals`` (3, nc K) and ``facets`` (3 m, nc K), knot k's in columns
     ``k nc .. k nc + nc - 1`` as the footholds: the unit normal and the
     pyramid rows (stacked) of the surface each contact presses on at that
-    knot (numbers, so a foot may move from the floor onto a wall); ``min_normal_force`` [N]; ``tau_lower``/``tau_upper`` (nj,) [N m];
+    knot (numbers, so a foot may move from the floor onto a wall); ``min_normal_force`` (nc,) [N], each contact's; ``tau_lower``/``tau_upper`` (nj,) [N m];
     ``target_position`` (3, n_slots) [m]; ``target_rotation`` (9, n_slots),
     column-major rotation matrices; ``shape<p>`` (d*d,) per disturbance;
     ``point_weights`` (P,), the points' normalized objective weights;
@@ -37,7 +37,7 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     layout.add("swing_heights", len(structure.swings))
     layout.add("normals", 3, structure.nc * structure.knots)
     layout.add("facets", 3 * structure.facets, structure.nc * structure.knots)
-    layout.add("min_normal_force")
+    layout.add("min_normal_force", structure.nc)
     layout.add("tau_lower", robot.nj)
     layout.add("tau_upper", robot.nj)
     layout.add("target_position", 3, len(structure.targets))
@@ -72,7 +72,7 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
     rows = [pyramid_facets(n, t, mu, structure.facets).reshape(-1)
             for n, t, mu in zip(normals.reshape(-1, 3), tangents.reshape(-1, 2, 3), friction.reshape(-1))]
     layout.set(values, "facets", np.array(rows).T)
-    layout.set(values, "min_normal_force", task.min_normal_force)
+    layout.set(values, "min_normal_force", task.min_normal_forces())
     layout.set(values, "tau_lower", robot.torque_lower)
     layout.set(values, "tau_upper", robot.torque_upper)
     if structure.targets:
