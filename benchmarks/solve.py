@@ -3,6 +3,7 @@
     python benchmarks/solve.py [--tasks steep_ramp,crawl_space] [--knots 30,60,120]
                                [--objective robust] [--evaluation compiled,expanded,mapped]
                                [--again] [--compare 60] [--torque-gains variables]
+                               [--strategy direct,coarse-3,warm-start] [--warm-only]
                                [--write benchmarks/RESULTS.md]
 
 Every measurement runs in a child process of its own (``python benchmarks/solve.py --child ...``),
@@ -21,7 +22,11 @@ cache that run left, as every later process finds it), ``expanded`` (one scalar 
 ``expand=True``: faster iterations, slow build) or ``mapped`` (the knot functions interpreted,
 mapped over the knots, ``expand=False``: fast build, slower iterations). ``--compare K`` also solves
 ``robust``, ``robust-min`` and ``robust-sum`` from one seed per task at K knots and reports
-their certified margins. Prints Markdown; ``--write`` replaces the "## Solve" section of the
+their certified margins. ``--strategy`` lists how the robust stage starts: ``direct`` (from the seed
+with its starting gains), ``coarse-R`` (``Planner(continuation=R)``: seed and objective first on
+about K/R knots, that plan moved onto the K knots as the objective's start), ``warm-start``
+(``Planner(warm_start=True)``: from the seed with its multipliers); ``--warm-only`` measures compiled evaluation
+only with a warm cache (one cache folder per task, filled by an unrecorded first plan). Prints Markdown; ``--write`` replaces the "## Solve" section of the
 results file (``--section`` names another). Record the machine's load with the figures: timings on a busy machine are slow.
 """
 from __future__ import annotations
@@ -49,7 +54,22 @@ COMPILED_LABELS = ["compiled, empty cache", "compiled, warm cache"]
 
 
 # -- child process: one measurement ---------------------------------------------------------
-def child(task_name: str, knots: int, objective: str, evaluation: str, torque_gains: str, again: bool) -> dict:
+STRATEGIES = ("direct", "coarse-R", "warm-start")
+
+
+def strategy_settings(strategy: str) -> dict:
+    """``Planner`` keywords of a ``--strategy`` entry."""
+    if strategy == "direct":
+        return {}
+    if strategy == "warm-start":
+        return {"warm_start": True}
+    if strategy.startswith("coarse-") and strategy[7:].isdigit():
+        return {"continuation": int(strategy[7:])}
+    raise SystemExit(f"--strategy: unknown entry '{strategy}' (known: {', '.join(STRATEGIES)})")
+
+
+def child(task_name: str, knots: int, objective: str, evaluation: str, torque_gains: str, again: bool,
+          strategy: str = "direct") -> dict:
     """Plan once from a fresh process and, with ``again``, once more with the built solvers kept."""
     started = time.perf_counter()
     from optimizer.planner import Planner
@@ -57,18 +77,19 @@ def child(task_name: str, knots: int, objective: str, evaluation: str, torque_ga
     imported = time.perf_counter() - started
     task = load_task(ROOT / "tasks" / f"{task_name}.yaml")
     runs = []
-    with Planner(knots=knots, evaluation=evaluation, torque_gains=torque_gains) as planner:
+    with Planner(knots=knots, evaluation=evaluation, torque_gains=torque_gains,
+                 **strategy_settings(strategy)) as planner:
         for _ in range(2 if again else 1):
             began = time.perf_counter()
             outcome = planner.solve(task, objective)
             runs.append(_run_figures(outcome, time.perf_counter() - began))
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux: kB
     return {"task": task_name, "knots": knots, "objective": objective, "evaluation": evaluation,
-            "import": imported, "fresh": runs[0], "built": runs[1] if again else None, "peak_mb": peak_mb}
+            "strategy": strategy, "import": imported, "fresh": runs[0], "built": runs[1] if again else None, "peak_mb": peak_mb}
 
 
 def _run_figures(outcome, wall: float) -> dict:
-    stages = [{"objective": s.objective, "status": s.status, "iterations": s.iterations,
+    stages = [{"objective": s.objective, "status": s.status, "iterations": s.iterations, "knots": s.knots,
                "solve": s.solve_time, "eval": s.eval_time, "build": s.build_time} for s in outcome.stages]
     margin = outcome.plan.margin if outcome.plan is not None else None
     return {"wall": wall, "stages": stages,
@@ -107,9 +128,15 @@ def in_child(*args: str, cache: str | None = None) -> dict:
 
 
 # -- tables ---------------------------------------------------------------------------------
-def stage_text(stage: dict) -> str:
+def stage_text(stage: dict, knots: int | None = None) -> str:
     share = stage["eval"] / stage["solve"] if stage["solve"] > 0 else 0.0
-    return f"{stage['iterations']} it, {stage['solve']:.1f} s ({share:.0%} eval)"
+    at = f" at {stage['knots']} knots" if knots is not None and stage.get("knots") not in (None, knots) else ""
+    return f"{stage['iterations']} it, {stage['solve']:.1f} s ({share:.0%} eval){at}"
+
+
+def stages_text(stages: list[dict], knots: int) -> str:
+    """The stages of one plan, ``+`` between them: more than one when a continuation ran."""
+    return " + ".join(stage_text(stage, knots) for stage in stages) if stages else "-"
 
 
 def run_rows(result: dict) -> list[str]:
@@ -120,21 +147,27 @@ def run_rows(result: dict) -> list[str]:
             continue
         stages = run["stages"]
         build = sum(s["build"] for s in stages)
-        seed, main = stages[0], stages[-1] if len(stages) > 1 else None
+        seeds = [s for s in stages if s["objective"] == "feasible"]
+        mains = [s for s in stages if s["objective"] != "feasible"]
+        seed_time = sum(s["solve"] for s in seeds)
         figures = "failed" if run["margin_min"] is None else f"{run['margin_min']:.3g} / {run['margin_mean']:.3g}"
-        ratio = f"{main['solve'] / seed['solve']:.2f}" if main and seed["solve"] > 0 else "-"
+        ratio = f"{sum(s['solve'] for s in mains) / seed_time:.2f}" if mains and seed_time > 0 else "-"
         whole = run["wall"] + (result["import"] if label == "fresh" else 0.0)
-        rows.append(f"| {result['task']} | {result['knots']} | {result['evaluation']} | "
+        evaluation = result["evaluation"] + (f", {result['strategy']}"
+                                             if result.get("strategy", "direct") != "direct" else "")
+        rows.append(f"| {result['task']} | {result['knots']} | {evaluation} | "
                     f"{'fresh process' if label == 'fresh' else 'built kept'} | {whole:.1f} | {build:.1f} | "
-                    f"{stage_text(seed)} | {stage_text(main) if main else '-'} | {ratio} | "
+                    f"{stages_text(seeds, result['knots'])} | {stages_text(mains, result['knots'])} | {ratio} | "
                     f"{result['peak_mb'] / 1024:.2f} | {figures} |")
     return rows
 
 
-def growth_exponent(results: list[dict], task: str, evaluation: str, label: str) -> float | None:
+def growth_exponent(results: list[dict], task: str, evaluation: str, label: str,
+                    strategy: str = "direct") -> float | None:
     import numpy as np
     points = [(r["knots"], r[label]["wall"]) for r in results
-              if r["task"] == task and r["evaluation"] == evaluation and r[label] and r[label]["wall"] > 0]
+              if r["task"] == task and r["evaluation"] == evaluation and r.get("strategy", "direct") == strategy
+              and r[label] and r[label]["wall"] > 0]
     if len(points) < 2:
         return None
     k, t = np.log([p[0] for p in points]), np.log([p[1] for p in points])
@@ -158,6 +191,8 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
         + (" --again" if args.again else "")
         + (f" --compare {args.compare}" if args.compare else "")
         + (f" --compare-tasks {args.compare_tasks}" if args.compare and args.compare_tasks else "")
+        + (f" --strategy {args.strategy}" if args.strategy != "direct" else "")
+        + (" --warm-only" if args.warm_only else "")
         + (f" --section '{args.section}'" if args.section != "Solve" else "") + "` "
         f"({datetime.date.today().isoformat()}, {os.cpu_count()} cores, {cpu}, Python "
         f"{platform.python_version()}, `OPENBLAS_NUM_THREADS=1`, Ipopt + MUMPS through CasADi); "
@@ -173,7 +208,12 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
         "\"robust / feasible\" divides the objective stage's solve time by the seed's; peak is the "
         "process's peak resident memory. \"compiled, empty cache\" starts from an empty cache folder, "
         "so its build includes generating and compiling the knot functions' C code; \"compiled, warm "
-        "cache\" is the next fresh process, which loads the libraries the first one left.", "",
+        "cache\" is the next fresh process, which loads the libraries the first one left."
+        + (" \"coarse-R\" plans coarse to fine (`Planner(continuation=R)`): its feasible stage is the "
+           "seed on the coarse knots, its objective stages the coarse one and then the full one from the "
+           "coarse plan moved onto the full knots (the knot count of a coarse stage is given); robust / "
+           "feasible divides their sum by the coarse seed's time. \"warm-start\" starts the robust stage "
+           "from the seed's multipliers (`Planner(warm_start=True)`)." if args.strategy != "direct" else ""), "",
         "| task | knots | evaluation | plan | whole [s] | build [s] | feasible stage | objective stage | "
         "robust / feasible | peak [GB] | margin min / mean [N] |",
         "| --- | ---: | --- | --- | ---: | ---: | --- | --- | ---: | ---: | --- |"]
@@ -203,12 +243,18 @@ def fmt(value) -> str:
     return "-" if value is None else f"{value:.2f}"
 
 
-def measured(task: str, knots: int, evaluation: str, args) -> list[dict]:
-    """One fresh-process measurement; for ``compiled`` two: an empty cache folder, then the one it left."""
+def measured(task: str, knots: int, evaluation: str, args, strategy: str = "direct",
+             cache: str | None = None) -> list[dict]:
+    """One fresh-process measurement; for ``compiled`` two: an empty cache folder, then the one it left
+    (one, with the folder ``cache``, when that is given)."""
     child = ["--child", task, str(knots), args.objective, evaluation, args.torque_gains,
-             "again" if args.again else "once"]
+             "again" if args.again else "once", strategy]
     if evaluation != "compiled":
         return [in_child(*child)]
+    if cache is not None:
+        warm = in_child(*child, cache=cache)
+        warm["evaluation"] = "compiled, warm cache"
+        return [warm]
     folder = tempfile.mkdtemp(prefix="brace-bench-cache-")
     try:
         empty, warm = in_child(*child, cache=folder), in_child(*child, cache=folder)
@@ -232,13 +278,18 @@ def main(argv=None) -> int:
                         help="joint-torque gains in closed form (default) or as decision variables (ablation)")
     parser.add_argument("--again", action="store_true",
                         help="plan each task a second time in the same process, built solvers kept")
-    parser.add_argument("--child", nargs=6, metavar=("TASK", "KNOTS", "OBJECTIVE", "EVALUATION", "GAINS", "AGAIN"),
-                        help=argparse.SUPPRESS)
+    parser.add_argument("--strategy", default="direct", metavar="S,...",
+                        help="robust-stage starts to measure: direct, coarse-R, warm-start (default direct)")
+    parser.add_argument("--warm-only", action="store_true",
+                        help="compiled evaluation with a warm cache only (one folder per task, filled first)")
+    parser.add_argument("--child", nargs=7, metavar=("TASK", "KNOTS", "OBJECTIVE", "EVALUATION", "GAINS", "AGAIN",
+                                                     "STRATEGY"), help=argparse.SUPPRESS)
     parser.add_argument("--compare-child", nargs=2, metavar=("TASK", "KNOTS"), help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.child:
-        task, knots, objective, evaluation, gains, again = args.child
-        print(json.dumps(child(task, int(knots), objective, evaluation, gains, again == "again")), flush=True)
+        task, knots, objective, evaluation, gains, again, strategy = args.child
+        print(json.dumps(child(task, int(knots), objective, evaluation, gains, again == "again", strategy)),
+              flush=True)
         return 0
     if args.compare_child:
         print(json.dumps(compare_child(args.compare_child[0], int(args.compare_child[1]))), flush=True)
@@ -246,15 +297,32 @@ def main(argv=None) -> int:
     started, loads = time.perf_counter(), [load_text()]
     results, comparison, growth = [], [], []
     tasks, evaluations = args.tasks.split(","), args.evaluation.split(",")
+    strategies = args.strategy.split(",")
+    for strategy in strategies:
+        strategy_settings(strategy)   # a wrong entry stops here, before any measurement
     for task in tasks:
+        cache = tempfile.mkdtemp(prefix="brace-bench-cache-") if args.warm_only else None
+        try:
+            if cache is not None and "compiled" in evaluations:  # fills the cache; not recorded
+                in_child("--child", task, args.knots.split(",")[0], args.objective, "compiled", args.torque_gains,
+                         "once", "direct", cache=cache)
+            for evaluation in evaluations:
+                for knots in (int(k) for k in args.knots.split(",")):
+                    for strategy in strategies:
+                        for result in measured(task, knots, evaluation, args, strategy, cache):
+                            results.append(result)
+                            print("\n".join(run_rows(result)), flush=True)
+        finally:
+            if cache is not None:
+                shutil.rmtree(cache, ignore_errors=True)
         for evaluation in evaluations:
-            for knots in (int(k) for k in args.knots.split(",")):
-                for result in measured(task, knots, evaluation, args):
-                    results.append(result)
-                    print("\n".join(run_rows(result)), flush=True)
             for label in COMPILED_LABELS if evaluation == "compiled" else [evaluation]:
-                growth.append((task, label, growth_exponent(results, task, label, "fresh"),
-                               growth_exponent(results, task, label, "built")))
+                for strategy in strategies:
+                    name = label + (f", {strategy}" if strategy != "direct" else "")
+                    exponents = (growth_exponent(results, task, label, "fresh", strategy),
+                                 growth_exponent(results, task, label, "built", strategy))
+                    if any(e is not None for e in exponents):
+                        growth.append((task, name, *exponents))
     if args.compare:
         for task in (args.compare_tasks or args.tasks).split(","):
             comparison.append(in_child("--compare-child", task, str(args.compare)))

@@ -45,6 +45,7 @@ from .transcription.guess import initial_guess
 from .transcription.nlp import INTEGRATOR, Transcription
 from .transcription.objectives import OBJECTIVES, POINT_FLOOR, objective_named
 from .transcription.parameters import parameter_values, separating_planes
+from .transcription.resample import resampled
 from .transcription.structure import structure_of
 
 
@@ -71,7 +72,7 @@ def take_notice() -> list[str]:
 
 @dataclass
 class StageReport:
-    """One solver run: objective, neutral status, iterations, times [s], violation.
+    """One solver run: objective, neutral status, iterations, times [s], violation, knot count.
 
     ``eval_time`` is the part of ``solve_time`` spent evaluating the NLP's
     functions and derivatives.
@@ -86,6 +87,7 @@ class StageReport:
     max_violation: float
     message: str
     eval_time: float = 0.0
+    knots: int = 0
 
     def as_dict(self) -> dict:
         return dict(self.__dict__)
@@ -99,7 +101,8 @@ class SolveOutcome:
     physical arrays where the last solver run stopped, ``violations`` its
     largest violation per constraint group and knot, ``transcription`` the
     NLP of that run, ``parameters`` its parameter vector and ``multipliers`` the solver's
-    constraint multipliers there, one per row of g (for diagnosis).
+    constraint multipliers there, one per row of g (for diagnosis); ``bound_multipliers``
+    those of the variable bounds, one per entry of x.
     """
 
     task: object
@@ -111,6 +114,7 @@ class SolveOutcome:
     transcription: object = field(default=None, repr=False)
     multipliers: np.ndarray | None = field(default=None, repr=False)
     parameters: np.ndarray | None = field(default=None, repr=False)
+    bound_multipliers: np.ndarray | None = field(default=None, repr=False)
 
     @property
     def success(self) -> bool:
@@ -184,6 +188,18 @@ class Planner:
     torque_gains : str
         ``"eliminated"`` (the closed form, default) or ``"variables"`` (joint
         torque gains as decision variables with the full balance; ablation).
+    continuation : int, optional
+        Coarse-to-fine continuation for robust objectives in :meth:`solve`:
+        the seed and the objective are first solved on about
+        ``1/continuation`` of the knots (:func:`coarse_knots`), that plan is
+        moved onto the full grid (:mod:`optimizer.transcription.resample`)
+        and the objective solved there from it, without a full-grid seed.
+        None (default) solves directly on the full grid.
+    warm_start : bool
+        A robust objective's stage starts from the seed's multipliers (those
+        of the constraints and variable bounds both NLPs have; zero for the
+        robustness rows) with the backend's warm-start settings
+        (:data:`optimizer.solver.ipopt.WARM_START_OPTIONS`). Off by default.
 
     A planner serializes its own solves (one lock per planner): use one
     planner per thread to solve in parallel.
@@ -191,7 +207,7 @@ class Planner:
 
     def __init__(self, objective: str | None = None, knots: int | None = None, backend: str = DEFAULT_BACKEND,
                  options: dict | None = None, *, evaluation: str = DEFAULT_EVALUATION,
-                 torque_gains: str = "eliminated"):
+                 torque_gains: str = "eliminated", continuation: int | None = None, warm_start: bool = False):
         if objective is not None:
             objective_named(objective)
         if evaluation not in EVALUATIONS:
@@ -200,6 +216,10 @@ class Planner:
         self.backend = backend_named(backend)
         self.options = dict(options or {})
         self.evaluation, self.torque_gains = evaluation, torque_gains
+        if continuation is not None and (isinstance(continuation, bool) or not isinstance(continuation, int)
+                                         or continuation < 2):
+            raise ValueError(f"continuation must be a whole number >= 2 or None, not {continuation!r}")
+        self.continuation, self.warm_start = continuation, bool(warm_start)
         self._symbolic: dict[str, SymbolicRobot] = {}
         self._transcriptions: dict[tuple, Transcription] = {}
         self._built: dict[tuple, BuiltNLP] = {}
@@ -246,10 +266,10 @@ class Planner:
         """Everything a transcription reads that is not a parameter: robot, structure, objective, gain form, evaluation."""
         return (robot_key(task.robot), structure_of(task), objective, self.torque_gains, self.evaluation)
 
-    def build_key(self, task, objective: str) -> tuple:
-        """:meth:`transcription_key` plus what the built solver reads: backend, expansion, options."""
+    def build_key(self, task, objective: str, warm: bool = False) -> tuple:
+        """:meth:`transcription_key` plus what the built solver reads: backend, expansion, options, warm start."""
         options = tuple(sorted((k, repr(v)) for k, v in self.solver_options(task).items()))
-        return self.transcription_key(task, objective) + (self.backend.name, options)
+        return self.transcription_key(task, objective) + (self.backend.name, options, warm)
 
     def symbolic_robot(self, robot) -> SymbolicRobot:
         """The robot's CasADi twin, built once per URDF text."""
@@ -273,9 +293,10 @@ class Planner:
                 self._transcriptions[key] = transcription
             return self._transcriptions[key]
 
-    def built(self, task, objective: str) -> BuiltNLP:
-        """The transcription with its built solver, built once per :meth:`build_key`."""
-        key = self.build_key(task, objective)
+    def built(self, task, objective: str, warm: bool = False) -> BuiltNLP:
+        """The transcription with its built solver (``warm``: one that starts from given multipliers),
+        built once per :meth:`build_key`."""
+        key = self.build_key(task, objective, warm)
         with self._lock:
             if key not in self._built:
                 supervisor.phase(f"building the {objective} solver")
@@ -283,7 +304,7 @@ class Planner:
                 log = self._folder / f"solver-{len(self._built)}.log"
                 solver = self.backend.build(transcription.nlp, self.solver_options(task),
                                             expand=self.evaluation == "expanded",
-                                            log_file=log, progress=self._relay)
+                                            log_file=log, progress=self._relay, warm_start=warm)
                 paid = solver.build_time + transcription.compile_time
                 transcription.compile_time = 0.0  # counted once, with the first solver built on it
                 self._built[key] = BuiltNLP(transcription, solver, log, paid)
@@ -300,13 +321,15 @@ class Planner:
         ``start`` (physical arrays by block name, e.g. a solved neighbouring
         task's) replaces the initial guess; limit rooms are recomputed.
         """
-        task = self.prepared(task)
         with self._lock:
-            outcome = SolveOutcome(task, "feasible", None)
-            supervisor.phase("computing the starting point")
-            first = initial_guess(task) if start is None else _without_rooms(start)
-            arrays, result = self._run_stage(task, "feasible", first, outcome, progress, log_path)
-            return Seed(task, arrays if result.success else {}, outcome)
+            return self._seed(self.prepared(task), progress, log_path, start)
+
+    def _seed(self, task, progress, log_path, start) -> Seed:
+        outcome = SolveOutcome(task, "feasible", None)
+        supervisor.phase("computing the starting point")
+        first = initial_guess(task) if start is None else _without_rooms(start)
+        arrays, result = self._run_stage(task, "feasible", first, outcome, progress, log_path)
+        return Seed(task, arrays if result.success else {}, outcome)
 
     def solve_from_seed(self, seed: Seed, objective: str | None = None, *, progress=None,
                         log_path=None, start: dict | None = None) -> SolveOutcome:
@@ -318,30 +341,74 @@ class Planner:
         task = seed.task
         objective = self.objective_for(task, objective)
         with self._lock:
-            outcome = SolveOutcome(task, objective, None, stages=list(seed.outcome.stages),
-                                   last=seed.outcome.last, violations=seed.outcome.violations,
-                                   transcription=seed.outcome.transcription, multipliers=seed.outcome.multipliers,
-                                   parameters=seed.outcome.parameters)
+            outcome = _outcome_after(seed, task, objective)
             if not seed.success:
                 return outcome
             arrays = seed.arrays
             if objective != "feasible":
-                if start is not None:
-                    arrays = _without_rooms(start)
-                elif objective_named(objective).robust:
-                    supervisor.phase("computing the starting gains")
-                    arrays = dict(arrays, **_initial_gains(task, arrays))
-                arrays, result = self._run_stage(task, objective, arrays, outcome, progress, log_path)
+                arrays, result = self._objective_stage(seed, objective, outcome, progress, log_path, start)
                 if not result.success:
                     return outcome
             outcome.plan = _finished_plan(task, objective, arrays, outcome, self.backend.name)
             return outcome
 
+    def _objective_stage(self, seed: Seed, objective, outcome, progress, log_path, start):
+        """The objective's stage from ``start`` or, without it, from the seed (robust: with its starting gains)."""
+        if start is not None:
+            arrays = _without_rooms(start)
+        elif objective_named(objective).robust:
+            supervisor.phase("computing the starting gains")
+            arrays = dict(seed.arrays, **_initial_gains(seed.task, seed.arrays))
+        else:
+            arrays = seed.arrays
+        carried = self.warm_start and start is None and objective_named(objective).robust
+        return self._run_stage(seed.task, objective, arrays, outcome, progress, log_path,
+                               seed.outcome if carried else None)
+
     def solve(self, task, objective: str | None = None, *, progress=None, log_path=None) -> SolveOutcome:
-        """Plan ``task``: its feasibility seed, then ``objective`` (see :func:`solve`)."""
+        """Plan ``task``: its feasibility seed, then ``objective`` (see :func:`solve`).
+
+        With :attr:`continuation`, a robust objective is planned coarse to
+        fine (:meth:`coarse_to_fine`).
+        """
         with self._lock:
-            seed = self.seed(task, progress=progress, log_path=log_path)
-            return self.solve_from_seed(seed, objective, progress=progress, log_path=log_path)
+            task = self.prepared(task)
+            name = self.objective_for(task, objective)
+            if self.continuation is not None and objective_named(name).robust:
+                return self.coarse_to_fine(task, name, coarse_knots(task.knots, self.continuation),
+                                           progress=progress, log_path=log_path)
+            seed = self._seed(task, progress, log_path, None)
+            return self.solve_from_seed(seed, name, progress=progress, log_path=log_path)
+
+    def coarse_to_fine(self, task, objective: str, knots: int, *, progress=None, log_path=None) -> SolveOutcome:
+        """Plan ``task`` (at its own knot count) with robust ``objective``, first on ``knots`` knots.
+
+        The seed and the objective are solved on ``knots`` knots; that plan,
+        moved onto the task's grid (:func:`~optimizer.transcription.resample.resampled`),
+        starts the objective's stage there, without a seed on the task's grid.
+        The outcome's stages are the coarse ones and the full one (each with
+        its knot count). When a coarse stage fails, the task is planned
+        directly from its own seed after them.
+        """
+        with self._lock:
+            coarse_seed = self._seed(task.with_knots(knots), progress, log_path, None)
+            outcome = _outcome_after(coarse_seed, task, objective)
+            result = None
+            if coarse_seed.success:
+                coarse, result = self._objective_stage(coarse_seed, objective, outcome, progress, log_path, None)
+            if result is not None and result.success:
+                start = resampled(task.robot.model, coarse, coarse_seed.task.times, task.times)
+                arrays, result = self._run_stage(task, objective, start, outcome, progress, log_path)
+            else:
+                seed = self._seed(task, progress, log_path, None)
+                outcome.stages += seed.outcome.stages
+                outcome.last, outcome.violations = seed.outcome.last, seed.outcome.violations
+                if not seed.success:
+                    return outcome
+                arrays, result = self._objective_stage(seed, objective, outcome, progress, log_path, None)
+            if result.success:
+                outcome.plan = _finished_plan(task, objective, arrays, outcome, self.backend.name)
+            return outcome
 
     def solve_objectives(self, task, objectives, *, progress=None, log_path=None) -> dict:
         """Several objectives for one task from one feasibility seed: ``{objective: SolveOutcome}``."""
@@ -350,8 +417,9 @@ class Planner:
             return {name: self.solve_from_seed(seed, name, progress=progress, log_path=log_path)
                     for name in objectives}
 
-    def _run_stage(self, task, objective, start, outcome, progress, log_path):
-        built = self.built(task, objective)
+    def _run_stage(self, task, objective, start, outcome, progress, log_path, carried: SolveOutcome | None = None):
+        """One solver run from the physical arrays ``start`` (and ``carried``'s multipliers, when given)."""
+        built = self.built(task, objective, warm=carried is not None)
         transcription = built.transcription
         layout = transcription.variables
         x0 = layout.pack(start)
@@ -365,21 +433,57 @@ class Planner:
         self._listener = None if progress is None else _listener(progress, objective, transcription)
         supervisor.phase(f"solving the {objective} stage")
         log_start = built.log.stat().st_size if built.log.exists() else 0
+        multipliers = () if carried is None else carried_multipliers(carried, transcription)
         try:
             result: SolverResult = built.solver.solve(np.clip(x0, lbx, ubx), p, lbx, ubx, transcription.lbg,
-                                                      transcription.ubg)
+                                                      transcription.ubg, *multipliers)
         finally:
             self._listener = None
             _append_log(built.log, log_start, log_path, objective)
         outcome.stages.append(StageReport(objective, result.status, result.success, result.iterations,
                                           result.wall_time, built.unreported_build_time, result.max_violation,
-                                          result.message, result.eval_time))
+                                          result.message, result.eval_time, task.knots))
         built.unreported_build_time = 0.0  # reported once, with the first solve that paid for it
         outcome.last = layout.unpack(result.x)
         outcome.violations = transcription.constraints.violations(result.g, transcription.lbg, transcription.ubg)
         outcome.transcription, outcome.parameters = transcription, p
-        outcome.multipliers = result.lam_g
+        outcome.multipliers, outcome.bound_multipliers = result.lam_g, result.lam_x
         return outcome.last, result
+
+
+def coarse_knots(knots: int, ratio: int) -> int:
+    """Knots of the coarse solve of a coarse-to-fine continuation: about ``knots / ratio``, at least 4."""
+    return max(4, min(knots, round((knots - 1) / ratio) + 1))
+
+
+def _outcome_after(seed: Seed, task, objective: str) -> SolveOutcome:
+    """A new outcome for ``task`` and ``objective`` whose stages and last point so far are the seed's."""
+    seed_outcome = seed.outcome
+    return SolveOutcome(task, objective, None, stages=list(seed_outcome.stages), last=seed_outcome.last,
+                        violations=seed_outcome.violations, transcription=seed_outcome.transcription,
+                        multipliers=seed_outcome.multipliers, parameters=seed_outcome.parameters,
+                        bound_multipliers=seed_outcome.bound_multipliers)
+
+
+def carried_multipliers(previous: SolveOutcome, transcription) -> tuple[np.ndarray, np.ndarray]:
+    """``(lam_x, lam_g)`` for ``transcription`` from where ``previous`` stopped (scaled NLP units).
+
+    Variable blocks and constraint groups of one name and size take the
+    previous run's multipliers; the others (gains, margins, rooms, the
+    robustness rows) start at zero.
+    """
+    before = previous.transcription
+    lam_x, lam_g = np.zeros(transcription.variables.size), np.zeros(len(transcription.lbg))
+    for block in transcription.variables.blocks:
+        if block.name in before.variables and before.variables[block.name].size == block.size:
+            old = before.variables[block.name]
+            lam_x[block.offset:block.stop] = previous.bound_multipliers[old.offset:old.stop]
+    groups = {group.name: group for group in before.constraints.groups}
+    for group in transcription.constraints.groups:
+        old = groups.get(group.name)
+        if old is not None and old.size == group.size:
+            lam_g[group.slice()] = previous.multipliers[old.slice()]
+    return lam_x, lam_g
 
 
 def _without_rooms(arrays: dict) -> dict:

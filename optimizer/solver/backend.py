@@ -58,8 +58,9 @@ class BuiltSolver(Protocol):
 
     build_time: float
 
-    def solve(self, x0, p, lbx, ubx, lbg, ubg) -> SolverResult:
-        """Solve from ``x0``; never raises on solver failure (see ``status``); Ctrl-C raises KeyboardInterrupt."""
+    def solve(self, x0, p, lbx, ubx, lbg, ubg, lam_x0=None, lam_g0=None) -> SolverResult:
+        """Solve from ``x0`` (and, for a solver built with ``warm_start``, the multipliers ``lam_x0``,
+        ``lam_g0``); never raises on solver failure (see ``status``); Ctrl-C raises KeyboardInterrupt."""
 
 
 class SolverBackend(Protocol):
@@ -73,13 +74,15 @@ class SolverBackend(Protocol):
         """Why the backend refuses ``options`` (one short line), or None when it accepts them."""
 
     def build(self, nlp: dict, options: dict | None = None, *, expand: bool = True, log_file=None,
-              progress: Callable | None = None, defaults: bool = True) -> BuiltSolver:
+              progress: Callable | None = None, defaults: bool = True, warm_start: bool = False) -> BuiltSolver:
         """Build once for ``nlp``.
 
         ``options`` override the backend's defaults (or stand alone with
         ``defaults=False``); ``expand`` evaluates the NLP as one scalar graph;
         ``log_file`` receives the full iteration log; ``progress(iteration, x,
-        f, g)`` is called at every iteration.
+        f, g)`` is called at every iteration; ``warm_start`` starts every
+        solve from the multipliers handed to :meth:`BuiltSolver.solve` (the
+        backend's own warm-start settings, under ``options``).
         """
 
 

@@ -55,6 +55,16 @@ DEFAULT_OPTIONS = {
     "honor_original_bounds": "yes",  # the final point lies inside the bounds, not 1e-8 outside
 }
 
+# A solver built with ``warm_start``: the start's multipliers are used, the start and the bound
+# multipliers pushed at least 1e-3 inside, and the barrier begins at 1e-3 (1e-6 pushes took 3 times the
+# iterations, 1e-2 more on the steep ramp; benchmarks/RESULTS.md, "Robust-stage iterations").
+WARM_START_OPTIONS = {
+    "warm_start_init_point": "yes",
+    "warm_start_bound_push": 1e-3,
+    "warm_start_mult_bound_push": 1e-3,
+    "mu_init": 1e-3,
+}
+
 
 class _Progress(ca.Callback):
     """Ipopt iteration callback: hands (iteration, x, f, g) to a Python function."""
@@ -136,10 +146,14 @@ class IpoptSolver:
         Ipopt's full iteration log is written there.
     progress : callable(iteration, x, f, g), optional
         Called at every Ipopt iteration.
+    warm_start : bool
+        Start from the multipliers given to :meth:`solve` (:data:`WARM_START_OPTIONS`).
     """
 
-    def __init__(self, nlp, options=None, expand=True, log_file=None, progress=None, defaults=True):
+    def __init__(self, nlp, options=None, expand=True, log_file=None, progress=None, defaults=True,
+                 warm_start=False):
         ipopt = dict(DEFAULT_OPTIONS) if defaults else {"sb": "yes"}
+        ipopt.update(WARM_START_OPTIONS if warm_start else {})
         ipopt.update(options or {})
         if log_file is not None:
             ipopt.update({"output_file": str(log_file), "file_print_level": 5})
@@ -153,13 +167,15 @@ class IpoptSolver:
         self.solver = ca.nlpsol("brace_nlp", "ipopt", nlp, opts)
         self.build_time = time.perf_counter() - started
 
-    def solve(self, x0, p, lbx, ubx, lbg, ubg) -> SolverResult:
-        """Solve from ``x0``; never raises on solver failure (see ``status``)."""
+    def solve(self, x0, p, lbx, ubx, lbg, ubg, lam_x0=None, lam_g0=None) -> SolverResult:
+        """Solve from ``x0`` (and the multipliers ``lam_x0``, ``lam_g0``, used with Ipopt's warm start);
+        never raises on solver failure (see ``status``)."""
         if self.callback is not None:
             self.callback.iteration, self.callback.interrupted = 0, False
         started = time.perf_counter()
+        multipliers = {name: value for name, value in (("lam_x0", lam_x0), ("lam_g0", lam_g0)) if value is not None}
         with _ctrl_c_stops(self.callback):
-            out = self.solver(x0=x0, p=p, lbx=lbx, ubx=ubx, lbg=lbg, ubg=ubg)
+            out = self.solver(x0=x0, p=p, lbx=lbx, ubx=ubx, lbg=lbg, ubg=ubg, **multipliers)
         wall = time.perf_counter() - started
         if self.callback is not None and self.callback.interrupted:
             raise KeyboardInterrupt
@@ -182,8 +198,10 @@ class IpoptBackend:
     build_bytes_per_node = BUILD_BYTES_PER_NODE
     title = "Ipopt"
 
-    def build(self, nlp, options=None, *, expand=True, log_file=None, progress=None, defaults=True) -> IpoptSolver:
-        return IpoptSolver(nlp, options, expand=expand, log_file=log_file, progress=progress, defaults=defaults)
+    def build(self, nlp, options=None, *, expand=True, log_file=None, progress=None, defaults=True,
+              warm_start=False) -> IpoptSolver:
+        return IpoptSolver(nlp, options, expand=expand, log_file=log_file, progress=progress, defaults=defaults,
+                           warm_start=warm_start)
 
     def check_options(self, options: dict) -> str | None:
         """Try ``options`` on a one-variable NLP: why Ipopt refuses them (a short text), or None.

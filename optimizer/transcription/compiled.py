@@ -35,7 +35,9 @@ from ..cache import entry_lock, entry_path, new_entry, valid_entry
 
 COMPILER_ENVIRONMENT = "BRACE_CC"
 DEFAULT_COMPILER = "cc"
-# No optimization: -O1 makes the library's code faster by little and takes several times longer to compile.
+# No optimization: -O2 evaluates the knot functions alone faster (0.64-0.92 of the time) but left the
+# robust stage's evaluation time unchanged and compiles about 15 times longer (-O1: 3-4 times);
+# benchmarks/RESULTS.md, "Robust-stage iterations, per-iteration cost".
 FLAGS = ("-shared", "-fPIC", "-O0")
 SECTION = "compiled"
 
