@@ -1,0 +1,128 @@
+"""Stepping demos: what a foot preload does to both plans of landing_pick and wall_brace.
+
+    python benchmarks/stepping_preload.py [--knots 20] [--tasks landing_pick,wall_brace]
+                                          [--variants none,all-30,...] [--write benchmarks/RESULTS.md]
+
+The torque-optimal plans of the stepping demos nearly unload a rear foot
+while a front foot swings, and their nominal replay in MuJoCo falls. Each
+variant gives some feet of ``tasks/<task>.yaml`` a ``preload`` (the task
+file's own preloads removed first), solves the torque and the robust plan,
+replays both without a push (``brace simulate`` defaults) and certifies the
+robust plan (smallest and mean certified margin over the knots), as
+``crawl_preload.py`` does for the crawl space. Prints Markdown; ``--write``
+replaces the "## Stepping demos preload" section of the results file.
+"""
+from __future__ import annotations
+
+import argparse
+import copy
+import datetime
+import os
+import platform
+import sys
+import time
+from pathlib import Path
+
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+ROOT = Path(__file__).resolve().parent.parent
+
+import mujoco  # noqa: E402
+import numpy as np  # noqa: E402
+
+from crawl_preload import replay  # noqa: E402
+from optimizer.analysis.certify import certify_plan  # noqa: E402
+from optimizer.errors import TaskError  # noqa: E402
+from optimizer.files import read_yaml_mapping  # noqa: E402
+from optimizer.planner import solve  # noqa: E402
+from optimizer.problem.task import task_from_mapping  # noqa: E402
+from results_file import publish
+
+TASKS = ("landing_pick", "wall_brace")
+ALL_FEET = ("foot_fl", "foot_fr", "foot_rl", "foot_rr")
+REAR_FEET = ("foot_rl", "foot_rr")
+# label -> (feet given the preload, preload [N])
+VARIANTS = {
+    "none": ((), 0.0),
+    "all feet 20 N": (ALL_FEET, 20.0),
+    "all feet 30 N": (ALL_FEET, 30.0),
+    "all feet 40 N": (ALL_FEET, 40.0),
+    "rear feet 30 N": (REAR_FEET, 30.0),
+    "rear feet 40 N": (REAR_FEET, 40.0),
+}
+
+
+def variant_task(name: str, label: str, knots: int):
+    """Task ``name`` with ``label``'s preloads (its own removed first), at ``knots`` knots."""
+    feet, preload = VARIANTS[label]
+    path = ROOT / "tasks" / f"{name}.yaml"
+    data = copy.deepcopy(read_yaml_mapping(path, TaskError))
+    table = data["stance"]["feet"]
+    for frame, foot in list(table.items()):
+        entry = dict(foot) if isinstance(foot, dict) else {"xy": list(foot)}
+        entry.pop("preload", None)
+        if frame in feet:
+            entry["preload"] = preload
+        table[frame] = entry
+    return task_from_mapping(data, path).with_knots(knots)
+
+
+def row(name: str, label: str, knots: int) -> str:
+    cells = [name, label]
+    margins = None
+    for objective in ("torque", "robust"):
+        outcome = solve(variant_task(name, label, knots), objective)
+        if outcome.plan is None:
+            cells += ["solve failed"] * 4
+            continue
+        r = replay(outcome.plan)
+        cells += [f"{1e3 * r['feet']:.1f}", f"{1e3 * r['hand']:.1f}", str(r["losses"]), "yes" if r["ok"] else "no"]
+        if objective == "robust":
+            margins = np.array([k.rho for k in certify_plan(outcome.plan).knots])
+    cells.append("-" if margins is None else f"{margins.min():.1f} / {margins.mean():.1f}")
+    print(f"{name} {label} done", file=sys.stderr, flush=True)
+    return "| " + " | ".join(cells) + " |"
+
+
+def section(args, rows, elapsed, load_before, load_after) -> str:
+    cpu = platform.processor() or platform.machine()
+    return "\n".join([
+        "## Stepping demos preload", "",
+        f"Script: `python benchmarks/stepping_preload.py --knots {args.knots} --tasks {args.tasks} "
+        f"--variants '{args.variants}'` "
+        f"({datetime.date.today().isoformat()}, {os.cpu_count()} cores, {cpu}, Python "
+        f"{platform.python_version()}, MuJoCo {mujoco.__version__}, `OPENBLAS_NUM_THREADS=1`); whole run "
+        f"{elapsed / 60:.1f} min, load average (1 min) {load_before:.1f} before and {load_after:.1f} after "
+        "(shared machine; no timing is read from this run).", "",
+        f"Each task at {args.knots} knots with a `preload` on the feet of each row (the task's own preloads "
+        "removed first). Nominal replay in MuJoCo, `brace simulate` defaults: feet = largest distance of a "
+        "stance foot from its interval's foothold, hand = largest hand-target error, losses = contact losses "
+        "over 5 ms; passes = feet within 5 mm, hand targets within 20 mm, no contact lost, no torque clipped "
+        "over 20 ms. Robust margin: the robust plan's exact certified margin, smallest / mean over the knots "
+        "(`brace certify`).", "",
+        "| task | variant | torque plan: feet [mm] | hand [mm] | losses | passes | robust plan: feet [mm] | "
+        "hand [mm] | losses | passes | robust margin, smallest / mean [N] |",
+        "| --- | --- | ---: | ---: | ---: | --- | ---: | ---: | ---: | --- | ---: |",
+        *rows, ""])
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--knots", type=int, default=20)
+    parser.add_argument("--tasks", default=",".join(TASKS))
+    parser.add_argument("--variants", default=",".join(VARIANTS), help="comma-separated labels of VARIANTS")
+    parser.add_argument("--write", metavar="RESULTS.md")
+    args = parser.parse_args(argv)
+    names = [t.strip() for t in args.tasks.split(",") if t.strip()]
+    labels = [v.strip() for v in args.variants.split(",") if v.strip()]
+    unknown = [v for v in labels if v not in VARIANTS] + [t for t in names if t not in TASKS]
+    if unknown:
+        parser.error(f"unknown variants or tasks {unknown}; known: {list(VARIANTS)}, {list(TASKS)}")
+    started, load_before = time.perf_counter(), os.getloadavg()[0]
+    rows = [row(name, label, args.knots) for name in names for label in labels]
+    publish(section(args, rows, time.perf_counter() - started, load_before, os.getloadavg()[0]), args.write,
+            "Stepping demos preload")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
