@@ -64,6 +64,14 @@ VARIANTS = {
 }
 
 
+# What the cells of plan_cells hold, for a section's text.
+CELLS_NOTE = ("Nominal replay in MuJoCo, `brace simulate` defaults: feet = largest distance of a stance foot "
+              "from its interval's foothold, hand = largest hand-target error, losses = contact losses over 5 ms; "
+              "passes = feet within 5 mm, hand targets within 20 mm, no contact lost, no torque clipped over "
+              "20 ms. Robust margin: the robust plan's exact certified margin, smallest / mean over the knots "
+              "(`brace certify`).")
+
+
 def variant_task(label: str, knots: int):
     """The crawl space task with ``label``'s changes, at ``knots`` knots."""
     feet_keys, top_keys = VARIANTS[label]
@@ -88,11 +96,12 @@ def replay(plan) -> dict:
             "losses": sum(f["contact_losses"] for f in n["feet"]), "ok": bool(n["ok"])}
 
 
-def row(label: str, knots: int) -> str:
-    cells = [label]
-    margins = None
+def plan_cells(task) -> list:
+    """Solve ``task``'s torque and robust plans: each one's replay cells (feet, hand [mm], losses, passes)
+    and the robust plan's certified margin, smallest / mean over the knots [N]."""
+    cells, margins = [], None
     for objective in ("torque", "robust"):
-        outcome = solve(variant_task(label, knots), objective)
+        outcome = solve(task, objective)
         if outcome.plan is None:
             cells += ["solve failed"] * 4
             continue
@@ -100,7 +109,11 @@ def row(label: str, knots: int) -> str:
         cells += [f"{1e3 * r['feet']:.1f}", f"{1e3 * r['hand']:.1f}", str(r["losses"]), "yes" if r["ok"] else "no"]
         if objective == "robust":
             margins = np.array([k.rho for k in certify_plan(outcome.plan).knots])
-    cells.append("-" if margins is None else f"{margins.min():.1f} / {margins.mean():.1f}")
+    return cells + ["-" if margins is None else f"{margins.min():.1f} / {margins.mean():.1f}"]
+
+
+def row(label: str, knots: int) -> str:
+    cells = [label] + plan_cells(variant_task(label, knots))
     print(f"{label} done", file=sys.stderr, flush=True)
     return "| " + " | ".join(cells) + " |"
 
@@ -116,11 +129,7 @@ def section(args, rows, elapsed, load_before, load_after) -> str:
         "(shared machine; no timing is read from this run).", "",
         f"`tasks/crawl_space.yaml` at {args.knots} knots with the ceiling feet's (foot_fl, foot_fr) own "
         "minimum normal force or preload, or the task-wide minimum, and the friction reserve (fr) of each row "
-        "(the task's own choice of these removed first). Nominal replay in MuJoCo, `brace simulate` defaults: "
-        "feet = largest distance from a foothold, hand = largest hand-target error, losses = contact losses "
-        "over 5 ms; passes = feet within 5 mm, hand targets within 20 mm, no contact lost, no torque clipped "
-        "over 20 ms. Robust margin: the robust plan's exact certified margin, smallest / mean over the knots "
-        "(`brace certify`).", "",
+        "(the task's own choice of these removed first). " + CELLS_NOTE, "",
         "| variant | torque plan: feet [mm] | hand [mm] | losses | passes | robust plan: feet [mm] | hand [mm] | "
         "losses | passes | robust margin, smallest / mean [N] |",
         "| --- | ---: | ---: | ---: | --- | ---: | ---: | ---: | --- | ---: |",

@@ -27,13 +27,10 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 ROOT = Path(__file__).resolve().parent.parent
 
 import mujoco  # noqa: E402
-import numpy as np  # noqa: E402
 
-from crawl_preload import replay  # noqa: E402
-from optimizer.analysis.certify import certify_plan  # noqa: E402
+from crawl_preload import CELLS_NOTE, plan_cells  # noqa: E402
 from optimizer.errors import TaskError  # noqa: E402
 from optimizer.files import read_yaml_mapping  # noqa: E402
-from optimizer.planner import solve  # noqa: E402
 from optimizer.problem.task import task_from_mapping  # noqa: E402
 from results_file import publish
 
@@ -67,18 +64,7 @@ def variant_task(name: str, label: str, knots: int):
 
 
 def row(name: str, label: str, knots: int) -> str:
-    cells = [name, label]
-    margins = None
-    for objective in ("torque", "robust"):
-        outcome = solve(variant_task(name, label, knots), objective)
-        if outcome.plan is None:
-            cells += ["solve failed"] * 4
-            continue
-        r = replay(outcome.plan)
-        cells += [f"{1e3 * r['feet']:.1f}", f"{1e3 * r['hand']:.1f}", str(r["losses"]), "yes" if r["ok"] else "no"]
-        if objective == "robust":
-            margins = np.array([k.rho for k in certify_plan(outcome.plan).knots])
-    cells.append("-" if margins is None else f"{margins.min():.1f} / {margins.mean():.1f}")
+    cells = [name, label] + plan_cells(variant_task(name, label, knots))
     print(f"{name} {label} done", file=sys.stderr, flush=True)
     return "| " + " | ".join(cells) + " |"
 
@@ -94,11 +80,7 @@ def section(args, rows, elapsed, load_before, load_after) -> str:
         f"{elapsed / 60:.1f} min, load average (1 min) {load_before:.1f} before and {load_after:.1f} after "
         "(shared machine; no timing is read from this run).", "",
         f"Each task at {args.knots} knots with a `preload` on the feet of each row (the task's own preloads "
-        "removed first). Nominal replay in MuJoCo, `brace simulate` defaults: feet = largest distance of a "
-        "stance foot from its interval's foothold, hand = largest hand-target error, losses = contact losses "
-        "over 5 ms; passes = feet within 5 mm, hand targets within 20 mm, no contact lost, no torque clipped "
-        "over 20 ms. Robust margin: the robust plan's exact certified margin, smallest / mean over the knots "
-        "(`brace certify`).", "",
+        "removed first). " + CELLS_NOTE, "",
         "| task | variant | torque plan: feet [mm] | hand [mm] | losses | passes | robust plan: feet [mm] | "
         "hand [mm] | losses | passes | robust margin, smallest / mean [N] |",
         "| --- | --- | ---: | ---: | ---: | --- | ---: | ---: | ---: | --- | ---: |",
