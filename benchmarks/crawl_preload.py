@@ -19,9 +19,7 @@ from __future__ import annotations
 
 import argparse
 import copy
-import datetime
 import os
-import platform
 import sys
 import time
 from pathlib import Path
@@ -40,7 +38,7 @@ from optimizer.planner import solve  # noqa: E402
 from optimizer.problem.task import task_from_mapping  # noqa: E402
 from optimizer.simulation.inputs import simulation_inputs  # noqa: E402
 from optimizer.simulation.pushes import Simulator  # noqa: E402
-from results_file import publish
+from results_file import publish, simulation_run_line
 
 TASK = ROOT / "tasks" / "crawl_space.yaml"
 CEILING_FEET = ("foot_fl", "foot_fr")
@@ -119,13 +117,10 @@ def row(label: str, knots: int) -> str:
 
 
 def section(args, rows, elapsed, load_before, load_after) -> str:
-    cpu = platform.processor() or platform.machine()
     return "\n".join([
         "## Crawl space preload", "",
-        f"Script: `python benchmarks/crawl_preload.py --knots {args.knots}` "
-        f"({datetime.date.today().isoformat()}, {os.cpu_count()} cores, {cpu}, Python "
-        f"{platform.python_version()}, MuJoCo {mujoco.__version__}, `OPENBLAS_NUM_THREADS=1`); whole run "
-        f"{elapsed / 60:.1f} min, load average (1 min) {load_before:.1f} before and {load_after:.1f} after "
+        simulation_run_line(f"python benchmarks/crawl_preload.py --knots {args.knots}", elapsed, load_before,
+                            load_after) + " "
         "(shared machine; no timing is read from this run).", "",
         f"`tasks/crawl_space.yaml` at {args.knots} knots with the ceiling feet's (foot_fl, foot_fr) own "
         "minimum normal force or preload, or the task-wide minimum, and the friction reserve (fr) of each row "

@@ -19,3 +19,17 @@ def publish(text: str, path, heading: str) -> None:
     print(text)
     if path:
         write_section(Path(path), heading, text)
+
+
+def simulation_run_line(command: str, elapsed: float, load_before: float, load_after: float) -> str:
+    """The opening line of a simulation section: command, date, machine, versions, run time [min], load."""
+    import datetime
+    import os
+    import platform
+
+    import mujoco
+
+    cpu = platform.processor() or platform.machine()
+    return (f"Script: `{command}` ({datetime.date.today().isoformat()}, {os.cpu_count()} cores, {cpu}, Python "
+            f"{platform.python_version()}, MuJoCo {mujoco.__version__}, `OPENBLAS_NUM_THREADS=1`); whole run "
+            f"{elapsed / 60:.1f} min, load average (1 min) {load_before:.1f} before and {load_after:.1f} after")

@@ -21,9 +21,7 @@ agree with the certificate: the settings are the command's defaults.
 from __future__ import annotations
 
 import argparse
-import datetime
 import os
-import platform
 import sys
 import time
 from pathlib import Path
@@ -40,7 +38,7 @@ from optimizer.problem.task import load_task  # noqa: E402
 from optimizer.report.simulation import write_push_figure  # noqa: E402
 from optimizer.simulation.inputs import simulation_inputs  # noqa: E402
 from optimizer.simulation.pushes import Simulator  # noqa: E402
-from results_file import publish
+from results_file import publish, simulation_run_line
 
 TASKS = sorted(path.stem for path in (ROOT / "tasks").glob("*.yaml"))    # every demo task
 OBJECTIVES = ["robust", "torque"]
@@ -113,13 +111,10 @@ def rows(names, knots, folder):
 
 
 def section(args, nominal, pushes, elapsed, load_before, load_after) -> str:
-    cpu = platform.processor() or platform.machine()
     return "\n".join([
         "## Simulation", "",
-        f"Script: `python benchmarks/simulate.py --knots {args.knots}` "
-        f"({datetime.date.today().isoformat()}, {os.cpu_count()} cores, {cpu}, Python "
-        f"{platform.python_version()}, MuJoCo {mujoco.__version__}, `OPENBLAS_NUM_THREADS=1`); whole run "
-        f"{elapsed / 60:.1f} min, load average (1 min) {load_before:.1f} before and {load_after:.1f} after: the "
+        simulation_run_line(f"python benchmarks/simulate.py --knots {args.knots}", elapsed, load_before,
+                            load_after) + ": the "
         "machine was shared with other work, so no timing is read from this run.", "",
         f"Demo plans at {args.knots} knots, `brace simulate` defaults (0.5 ms step, elliptic cones, 5 mm foot "
         "spheres; push held 0.2 s with 20 ms ramps, watched 0.3 s after; survived = no stance foot slips over "

@@ -16,9 +16,7 @@ from __future__ import annotations
 
 import argparse
 import copy
-import datetime
 import os
-import platform
 import sys
 import time
 from pathlib import Path
@@ -32,7 +30,7 @@ from crawl_preload import CELLS_NOTE, plan_cells  # noqa: E402
 from optimizer.errors import TaskError  # noqa: E402
 from optimizer.files import read_yaml_mapping  # noqa: E402
 from optimizer.problem.task import task_from_mapping  # noqa: E402
-from results_file import publish
+from results_file import publish, simulation_run_line
 
 TASKS = ("landing_pick", "wall_brace")
 ALL_FEET = ("foot_fl", "foot_fr", "foot_rl", "foot_rr")
@@ -70,14 +68,10 @@ def row(name: str, label: str, knots: int) -> str:
 
 
 def section(args, rows, elapsed, load_before, load_after) -> str:
-    cpu = platform.processor() or platform.machine()
     return "\n".join([
         "## Stepping demos preload", "",
-        f"Script: `python benchmarks/stepping_preload.py --knots {args.knots} --tasks {args.tasks} "
-        f"--variants '{args.variants}'` "
-        f"({datetime.date.today().isoformat()}, {os.cpu_count()} cores, {cpu}, Python "
-        f"{platform.python_version()}, MuJoCo {mujoco.__version__}, `OPENBLAS_NUM_THREADS=1`); whole run "
-        f"{elapsed / 60:.1f} min, load average (1 min) {load_before:.1f} before and {load_after:.1f} after "
+        simulation_run_line(f"python benchmarks/stepping_preload.py --knots {args.knots} --tasks {args.tasks} "
+                            f"--variants '{args.variants}'", elapsed, load_before, load_after) + " "
         "(shared machine; no timing is read from this run).", "",
         f"Each task at {args.knots} knots with a `preload` on the feet of each row (the task's own preloads "
         "removed first). " + CELLS_NOTE, "",
