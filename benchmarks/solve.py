@@ -21,8 +21,8 @@ in a fresh process: first with an empty cache folder, which pays the compiler, t
 cache that run left, as every later process finds it), ``expanded`` (one scalar graph, CasADi
 ``expand=True``: faster iterations, slow build) or ``mapped`` (the knot functions interpreted,
 mapped over the knots, ``expand=False``: fast build, slower iterations). ``--compare K`` also solves
-``robust``, ``robust-min`` and ``robust-sum`` from one seed per task at K knots and reports
-their certified margins. ``--strategy`` lists how the robust stage starts: ``direct`` (from the seed
+``robust``, ``robust-min`` and ``robust-sum`` from one seed per task at K knots (compiled evaluation) and
+reports their certified margins (``--compare-only``: nothing else). ``--strategy`` lists how the robust stage starts: ``direct`` (from the seed
 with its starting gains), ``coarse-R`` (``Planner(continuation=R)``: seed and objective first on
 about K/R knots, that plan moved onto the K knots as the objective's start), ``warm-start``
 (``Planner(warm_start=True)``: from the seed with its multipliers); ``--warm-only`` measures compiled evaluation
@@ -221,6 +221,7 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
         + (" --again" if args.again else "")
         + (f" --compare {args.compare}" if args.compare else "")
         + (f" --compare-tasks {args.compare_tasks}" if args.compare and args.compare_tasks else "")
+        + (" --compare-only" if args.compare_only else "")
         + (f" --strategy {args.strategy}" if args.strategy != "direct" else "")
         + (" --warm-only" if args.warm_only else "")
         + (f" --section '{args.section}'" if args.section != "Solve" else "") + "` "
@@ -247,6 +248,8 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
         "| task | knots | evaluation | plan | whole [s] | build [s] | feasible stage | objective stage | "
         "robust / feasible | peak [GB] | margin min / mean [N] |",
         "| --- | ---: | --- | --- | ---: | ---: | --- | --- | ---: | ---: | --- |"]
+    if not results:   # --compare-only: the opening lines, then the comparison
+        lines = lines[:5]
     for result in results:
         lines += run_rows(result)
     if growth:
@@ -262,6 +265,7 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
                   "| task | evaluation | time per iteration | exponent |", "| --- | --- | --- | ---: |"]
         lines += iteration_rows
     if comparison:
+        lines += [] if results else ["Iterations and certified margins do not depend on the load."]
         lines += ["", f"Robust objectives from one seed at {args.compare} knots (compiled evaluation), certified "
                   "margins min / mean [N] and the objective stage's iterations:", "",
                   "| task | robust | robust-min | robust-sum | robust min / robust-min min | "
@@ -310,6 +314,7 @@ def main(argv=None) -> int:
     parser.add_argument("--evaluation", default="compiled,expanded,mapped")
     parser.add_argument("--compare", type=int, default=0, metavar="K")
     parser.add_argument("--compare-tasks", metavar="TASKS", help="tasks of --compare (default: --tasks)")
+    parser.add_argument("--compare-only", action="store_true", help="only the --compare solves, no plan timings")
     parser.add_argument("--write", metavar="RESULTS.md")
     parser.add_argument("--section", default="Solve", help="heading of the results section written (default Solve)")
     parser.add_argument("--torque-gains", default="eliminated", choices=["eliminated", "variables"],
@@ -338,7 +343,7 @@ def main(argv=None) -> int:
     strategies = args.strategy.split(",")
     for strategy in strategies:
         strategy_settings(strategy)   # a wrong entry stops here, before any measurement
-    for task in tasks:
+    for task in [] if args.compare_only else tasks:
         cache = tempfile.mkdtemp(prefix="brace-bench-cache-") if args.warm_only else None
         try:
             if cache is not None and "compiled" in evaluations:  # fills the cache; not recorded
