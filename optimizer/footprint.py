@@ -6,7 +6,11 @@ the knot count. The estimate measures the transcription itself: it builds
 the NLP of each stage at two tiny knot counts (a fraction of a second),
 expands it and counts its nodes, which gives the nodes per knot and the
 nodes independent of knots; each node costs the solver backend's
-``build_bytes_per_node`` once built (Ipopt: ``solver.ipopt.BUILD_BYTES_PER_NODE``). A solve keeps every stage's
+``build_bytes_per_node`` once built, which depends on whether the planner's
+evaluation expands the NLP (Ipopt: ``solver.ipopt.BUILD_BYTES_PER_NODE``
+for ``expanded``, ``COMPILED_BUILD_BYTES_PER_NODE`` for ``compiled`` and
+``mapped``, whose solvers keep the knot functions mapped and need several
+times less). A solve keeps every stage's
 solver (the feasibility seed and the objective), so the stages add up, on
 top of what the process holds already.
 """
@@ -140,4 +144,4 @@ def estimate_memory(task, objective: str | None = None, planner: Planner | None 
     planner = planner or shared_planner()
     objective = objective or task.objective
     stages = tuple(stage_size(task, name, planner) for name in stages_of(objective))
-    return MemoryEstimate(task.knots, resident_size(), stages, planner.backend.build_bytes_per_node)
+    return MemoryEstimate(task.knots, resident_size(), stages, planner.backend.build_bytes_per_node(planner.expands))

@@ -228,6 +228,11 @@ class Planner:
         self._folder = supervisor.scratch_dir("planner")
         self._cleanup = weakref.finalize(self, shutil.rmtree, str(self._folder), True)
 
+    @property
+    def expands(self) -> bool:
+        """Whether solvers are built on the NLP expanded into one scalar graph (the ``expanded`` evaluation)."""
+        return self.evaluation == "expanded"
+
     # -- lifetime --------------------------------------------------------------
     @property
     def folder(self) -> Path:
@@ -303,7 +308,7 @@ class Planner:
                 transcription = self.transcription(task, objective)
                 log = self._folder / f"solver-{len(self._built)}.log"
                 solver = self.backend.build(transcription.nlp, self.solver_options(task),
-                                            expand=self.evaluation == "expanded",
+                                            expand=self.expands,
                                             log_file=log, progress=self._relay, warm_start=warm)
                 paid = solver.build_time + transcription.compile_time
                 transcription.compile_time = 0.0  # counted once, with the first solver built on it

@@ -138,3 +138,32 @@ def test_memory_the_process_holds_is_not_counted_twice_against_what_is_available
     monkeypatch.setattr(solve_cli, "available_memory", lambda: Available(adds - 32 * 2**20, "available here"))
     with pytest.raises(TooLargeForMemory, match="available here"):
         solve_cli.check_memory(task, "feasible", None)
+
+
+@pytest.mark.parametrize("evaluation", ["expanded", "compiled", "mapped"])
+def test_the_estimate_takes_the_figure_of_the_planners_evaluation(evaluation):
+    """An expanded build is measured at BUILD_BYTES_PER_NODE, the builds that keep the knot functions
+    mapped (compiled, mapped) at COMPILED_BUILD_BYTES_PER_NODE (benchmarks/memory.py, benchmarks/RESULTS.md
+    "Memory" and "Memory, compiled evaluation"); the nodes counted are the same either way."""
+    from optimizer.solver.ipopt import BUILD_BYTES_PER_NODE, COMPILED_BUILD_BYTES_PER_NODE
+
+    task = load_task(RAMP).with_knots(40)
+    expected = BUILD_BYTES_PER_NODE if evaluation == "expanded" else COMPILED_BUILD_BYTES_PER_NODE
+    estimate = estimate_memory(task, "robust", shared_planner(evaluation))
+    reference = estimate_memory(task, "robust", shared_planner("expanded"))
+    assert estimate.bytes_per_node == expected
+    assert [s.nodes_per_knot for s in estimate.stages] == [s.nodes_per_knot for s in reference.stages]
+    adds, adds_expanded = estimate.at(80) - estimate.at(40), reference.at(80) - reference.at(40)
+    assert adds == pytest.approx(adds_expanded * expected / BUILD_BYTES_PER_NODE, rel=1e-6)
+
+
+def test_brace_solve_estimates_for_the_evaluation_it_is_given(tmp_path):
+    """At 120 knots the expanded robust build of the ramp was measured at 3.4 GB (benchmarks/RESULTS.md,
+    "Memory"), the compiled one at a fraction of it: under a 2 GB limit `brace solve` refuses the first and
+    lets the second through (--check-only: nothing is built)."""
+    argv = ["solve", str(RAMP), "--knots", "120", "--memory-limit", "2G", "--check-only", "--skip-checks"]
+    refused = run_cli(argv, tmp_path)
+    assert refused.returncode == 2 and "more than the 2.0 GB set as the memory limit" in refused.stderr, refused.stderr
+    done = run_cli([*argv, "--evaluation", "compiled"], tmp_path)
+    assert done.returncode == 0, done.stderr
+    assert "brace solve: memory: about" in done.stdout and "for 120 knots" in done.stdout

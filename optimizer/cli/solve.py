@@ -87,7 +87,7 @@ def _run(args) -> int:
     run_checks(task, args.skip_checks)
     if not args.skip_checks and not requirement_reachable(task):
         return 1
-    check_memory(task, objective, limit)
+    check_memory(task, objective, limit, args.evaluation)
     if args.check_only:
         print(f"brace solve: task '{task.name}' is valid" + ("" if args.skip_checks else "; pre-solve checks passed"))
         return 0
@@ -203,8 +203,11 @@ def memory_limit(args, task) -> int | None:
 CLOSE = 0.8  # warn when the estimate takes more than this share of the ceiling
 
 
-def check_memory(task, objective: str, limit: int | None) -> None:
+def check_memory(task, objective: str, limit: int | None, evaluation: str | None = None) -> None:
     """Refuse, before building anything, a solve whose estimated memory exceeds the ceiling; warn when close.
+
+    The estimate is for the solvers ``evaluation`` builds (default: the
+    planner's default evaluation).
 
     The ceiling is ``limit`` when given (the most the whole process may
     hold), else the memory available now plus what the process holds already
@@ -212,9 +215,10 @@ def check_memory(task, objective: str, limit: int | None) -> None:
     estimate counts).
     """
     from ..footprint import estimate_memory
+    from ..planner import DEFAULT_EVALUATION, shared_planner
 
     supervisor.phase("estimating the memory the solve needs")
-    estimate = estimate_memory(task, objective)
+    estimate = estimate_memory(task, objective, shared_planner(evaluation or DEFAULT_EVALUATION))
     available = available_memory()
     if limit is not None:
         ceiling, what = limit, "set as the memory limit"

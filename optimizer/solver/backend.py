@@ -68,10 +68,13 @@ class SolverBackend(Protocol):
 
     name: str      # registry key
     title: str     # how reports spell it
-    build_bytes_per_node: float  # memory a built solver takes per node of the expanded NLP [bytes] (estimates)
 
     def check_options(self, options: dict) -> str | None:
         """Why the backend refuses ``options`` (one short line), or None when it accepts them."""
+
+    def build_bytes_per_node(self, expand: bool) -> float:
+        """Memory a solver built with (or without) ``expand`` takes per node of the expanded NLP [bytes]: what
+        memory estimates multiply the node count by."""
 
     def build(self, nlp: dict, options: dict | None = None, *, expand: bool = True, log_file=None,
               progress: Callable | None = None, defaults: bool = True, warm_start: bool = False) -> BuiltSolver:

@@ -39,6 +39,14 @@ STATUS = {
 # the growth of the expanded NLP's nodes per knot (benchmarks/memory.py,
 # results in benchmarks/RESULTS.md); re-measure when the build changes.
 BUILD_BYTES_PER_NODE = 2400
+# The same for a solver built with ``expand=False`` (the compiled and mapped
+# evaluations: the knot functions stay mapped over the knots, derivatives per
+# knot), still per node of the expanded NLP, which the estimate counts either
+# way. Measured the same way on the compiled evaluation, steep ramp, robust,
+# 60 and 240 knots: 317 bytes per node, 4.8 MB per knot (benchmarks/memory.py
+# --evaluation compiled, benchmarks/RESULTS.md "Memory, compiled evaluation").
+# The mapped evaluation is not measured separately and uses the same figure.
+COMPILED_BUILD_BYTES_PER_NODE = 320
 
 DEFAULT_OPTIONS = {
     "tol": 1e-6,
@@ -195,8 +203,11 @@ class IpoptBackend:
     """Ipopt as a :class:`~optimizer.solver.backend.SolverBackend`."""
 
     name = "ipopt"
-    build_bytes_per_node = BUILD_BYTES_PER_NODE
     title = "Ipopt"
+
+    def build_bytes_per_node(self, expand: bool) -> float:
+        """Memory a solver built with or without ``expand`` takes per expanded NLP node [bytes]."""
+        return BUILD_BYTES_PER_NODE if expand else COMPILED_BUILD_BYTES_PER_NODE
 
     def build(self, nlp, options=None, *, expand=True, log_file=None, progress=None, defaults=True,
               warm_start=False) -> IpoptSolver:
