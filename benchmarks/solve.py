@@ -215,8 +215,9 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
     cpu = platform.processor() or platform.machine()
     lines = [
         f"## {args.section}", "",
-        f"Script: `python benchmarks/solve.py --tasks {args.tasks} --knots {args.knots} --objective "
-        f"{args.objective} --evaluation {args.evaluation}"
+        f"Script: `python benchmarks/solve.py --tasks {args.tasks}"
+        + ("" if args.compare_only else f" --knots {args.knots} --objective {args.objective} --evaluation "
+           f"{args.evaluation}")
         + (" --torque-gains variables" if args.torque_gains == "variables" else "")
         + (" --again" if args.again else "")
         + (f" --compare {args.compare}" if args.compare else "")
@@ -229,8 +230,9 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
         f"{platform.python_version()}, `OPENBLAS_NUM_THREADS=1`, Ipopt + MUMPS through CasADi); "
         f"whole run {elapsed / 60:.1f} min.", "",
         "Machine load (`uptime`) at the start and the end of the run: " + " / ".join(f"`{x}`" for x in loads)
-        + ". The machine was shared with other jobs while this ran, so absolute times are slow and "
-        "noisy; ratios within one row (robust / feasible, evaluation share) are the steadier figures.", "",
+        + (". Iterations and certified margins do not depend on the load." if args.compare_only else
+           ". The machine was shared with other jobs while this ran, so absolute times are slow and "
+           "noisy; ratios within one row (robust / feasible, evaluation share) are the steadier figures."), "",
         "Each row pair is one fresh process: \"fresh process\" is its first plan (imports, solver "
         "builds, seed, both stages, certified margins); \"built kept\" plans the same task again in "
         "that process with the built solvers kept. \"whole\" is the wall time of the plan "
@@ -248,7 +250,7 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
         "| task | knots | evaluation | plan | whole [s] | build [s] | feasible stage | objective stage | "
         "robust / feasible | peak [GB] | margin min / mean [N] |",
         "| --- | ---: | --- | --- | ---: | ---: | --- | --- | ---: | ---: | --- |"]
-    if not results:   # --compare-only: the opening lines, then the comparison
+    if args.compare_only:   # the opening lines, then the comparison
         lines = lines[:5]
     for result in results:
         lines += run_rows(result)
@@ -265,7 +267,6 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
                   "| task | evaluation | time per iteration | exponent |", "| --- | --- | --- | ---: |"]
         lines += iteration_rows
     if comparison:
-        lines += [] if results else ["Iterations and certified margins do not depend on the load."]
         lines += ["", f"Robust objectives from one seed at {args.compare} knots (compiled evaluation), certified "
                   "margins min / mean [N] and the objective stage's iterations:", "",
                   "| task | robust | robust-min | robust-sum | robust min / robust-min min | "
