@@ -248,12 +248,17 @@ class Transcription:
             self.constraints.add(f"mid-swing {frame}@{swing.mid}", positions[2, swing.contact] - P["swing_heights"][i],
                                  [swing.mid], 0.0, INF, unit="m", family="swing", who=[f"{frame} mid-swing height"])
         for r, row in enumerate(self.structure.swing_rows):
-            contact = self.structure.swings[row.swing].contact
+            swing = self.structure.swings[row.swing]
+            frame = frames[swing.contact]
             positions, _ = self.functions.foot_motion(V["q"][:, row.knot], V["v"][:, row.knot])
             plane = P["swing_planes"][:, r]
-            self.constraints.add(f"approach {frames[contact]}@{row.knot}",
-                                 ca.dot(plane[:3], positions[:, contact]) - plane[3], [row.knot], 0.0, INF,
-                                 unit="m", family="swing", who=[f"{frames[contact]} off the {row.side} surface"])
+            distance = ca.dot(plane[:3], positions[:, swing.contact]) - plane[3]
+            who = [f"{frame} off the {row.side} surface"]
+            if row.knot == swing.touch - 1:  # the last step lands from between one and two clearances
+                distance = ca.vertcat(distance, P["approach_band"] - distance)
+                who.append(f"{frame} within twice the approach clearance before touchdown")
+            self.constraints.add(f"approach {frame}@{row.knot}", distance, [row.knot], 0.0, INF, unit="m",
+                                 family="swing", who=who)
 
     def _hand_targets(self, V, P):
         for i, slot in enumerate(self.structure.targets):

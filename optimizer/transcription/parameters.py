@@ -23,6 +23,9 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     robot, ``offset`` its foothold's ``n . f`` plus the approach clearance);
     ``touchdown_tangents`` (6, swings): the landing surface's ``t1, t2``
     stacked (unit, world), along which the foot has no velocity at touchdown;
+    ``approach_band`` [m], how far beyond the approach clearance the foot may
+    be at the knot before touchdown (the clearance itself: it lands from
+    between one and two clearances, at most twice the clearance per step);
     ``normals`` (3, nc K) and ``facets`` (3 m, nc K), knot k's in columns
     ``k nc .. k nc + nc - 1`` as the footholds: the unit normal and the
     pyramid rows (stacked) of the surface each contact presses on at that
@@ -43,6 +46,7 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     layout.add("swing_heights", len(structure.swings))
     layout.add("swing_planes", 4, len(structure.swing_rows))
     layout.add("touchdown_tangents", 6, len(structure.swings))
+    layout.add("approach_band")
     layout.add("normals", 3, structure.nc * structure.knots)
     layout.add("facets", 3 * structure.facets, structure.nc * structure.knots)
     layout.add("min_normal_force", structure.nc)
@@ -80,6 +84,7 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
         layout.set(values, "swing_planes", swing_planes(task, structure))
         landings = [schedule.side_of(s, "landing", task.contacts).tangents.reshape(-1) for s in structure.swings]
         layout.set(values, "touchdown_tangents", np.array(landings).T)
+        layout.set(values, "approach_band", schedule.approach_clearance)
     normals, tangents, friction = task.schedule.surfaces(task.contacts, task.times)
     layout.set(values, "normals", normals.reshape(-1, 3).T)
     rows = [pyramid_facets(n, t, mu, structure.facets).reshape(-1)
