@@ -84,7 +84,8 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
         layout.set(values, "swing_planes", swing_planes(task, structure))
         landings = [schedule.side_of(s, "landing", task.contacts).tangents.reshape(-1) for s in structure.swings]
         layout.set(values, "touchdown_tangents", np.array(landings).T)
-        layout.set(values, "approach_band", schedule.approach_clearance)
+        # the rows' back-off on both sides: a solved plan keeps within twice the clearance exactly
+        layout.set(values, "approach_band", max(schedule.approach_clearance - 2 * CLEARANCE_BACKOFF, 0.0))
     normals, tangents, friction = task.schedule.surfaces(task.contacts, task.times)
     layout.set(values, "normals", normals.reshape(-1, 3).T)
     rows = [pyramid_facets(n, t, mu, structure.facets).reshape(-1)
