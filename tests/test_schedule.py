@@ -314,6 +314,17 @@ def test_a_swing_faster_than_the_legs_can_move_is_refused():
     assert findings[0].shortfall == pytest.approx(np.hypot(0.40, 0.12) / 17.2 - 0.01, rel=1e-3)
 
 
+def test_an_approach_clearance_the_leg_cannot_cover_in_one_knot_step_is_refused():
+    # Same bound as above (17.2 m/s on the demo robot): at 2000 knots over 4 s the knot step is
+    # 4 / 1999 s, in which the foot covers at most 17.2 * 4 / 1999 = 0.034 m; 0.5 m cannot be.
+    data, path = landing_mapping()
+    data["stance"]["schedule"]["approach_clearance"] = 0.5
+    data["horizon"]["knots"] = 2000
+    findings = [f for f in run_checks(task_from_mapping(data, path)) if f.check == "swing time"]
+    assert findings and findings[0].impossible and "approach_clearance" in findings[0].what
+    assert findings[0].shortfall == pytest.approx(0.5 / 17.2 - 4.0 / 1999, rel=1e-3)
+
+
 def test_export_flags_every_sample_with_its_step_and_keeps_swing_forces_at_zero():
     # Reference: the plan file's own contact_active (docs/plan-files.md) and the export rule
     # (docs/export.md): a sample between knots k and k + 1 carries knot k's stance flags, and
