@@ -46,7 +46,7 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     layout.add("swing_heights", len(structure.swings))
     layout.add("swing_planes", 4, len(structure.swing_rows))
     layout.add("touchdown_tangents", 6, len(structure.swings))
-    layout.add("approach_band")
+    layout.add("approach_band", 1 if structure.swings else 0)
     layout.add("normals", 3, structure.nc * structure.knots)
     layout.add("facets", 3 * structure.facets, structure.nc * structure.knots)
     layout.add("min_normal_force", structure.nc)
