@@ -8,7 +8,8 @@ stays a unit quaternion); every other per-knot block (velocities,
 accelerations, torques, contact forces, gains, margins, margin floors) is
 linear in time; one-column blocks (a horizon-wide floor) are kept. Blocks
 that the planner recomputes for any start (limit rooms, separating planes)
-are left out.
+are left out. With a warm start, the coarse solve's multipliers move too
+(:func:`resampled_multipliers`).
 """
 from __future__ import annotations
 
