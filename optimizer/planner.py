@@ -393,9 +393,11 @@ class Planner:
         starts the objective's stage there, without a seed on the task's grid.
         With :attr:`warm_start`, that stage also starts from the coarse
         stage's multipliers, moved onto the task's grid
-        (:func:`~optimizer.transcription.resample.resampled_multipliers`); the
-        coarse stage itself starts cold (from the seed's multipliers it took
-        more iterations: 55 against 23 and 83 against 60 at 11 knots).
+        (:func:`~optimizer.transcription.resample.resampled_multipliers`), and
+        the moved plan's velocities and accelerations meet the integration
+        rule (``resampled(..., integrated=True)``); the coarse stage itself
+        starts cold (from the seed's multipliers it took more iterations: 55
+        against 23 and 83 against 60 at 11 knots).
         The outcome's stages are the coarse ones and the full one (each with
         its knot count). When a coarse stage fails, the task is planned
         directly from its own seed after them.
@@ -408,7 +410,8 @@ class Planner:
                 coarse, result = self._objective_stage(coarse_seed, objective, outcome, progress, log_path, None,
                                                        carry=False)
             if result is not None and result.success:
-                start = resampled(task.robot.model, coarse, coarse_seed.task.times, task.times)
+                start = resampled(task.robot.model, coarse, coarse_seed.task.times, task.times,
+                                  integrated=self.warm_start)
                 carried = None
                 if self.warm_start:
                     carried = resampled_multipliers(outcome.transcription, outcome.bound_multipliers,

@@ -73,6 +73,22 @@ def test_moved_orientations_follow_scipy_slerp(moved):
         np.testing.assert_allclose(out["tau"][row], np.interp(fine_times, coarse_times, arrays["tau"][row]))
 
 
+def test_integrated_move_meets_the_integration_rule_by_pinocchio(moved, ramp):
+    arrays, coarse_times, fine_times, _ = moved
+    model = ramp.robot.model
+    out = resampled(model, arrays, coarse_times, fine_times, integrated=True)
+    h = fine_times[1] - fine_times[0]
+    # Pinocchio's integrate on the free-flyer model: q[k+1] = integrate(q[k], h v[k+1]) at every step,
+    # and v[k+1] = v[k] + h a[k] (the semi-implicit Euler rule of the plan files), at rest at both ends.
+    # Configurations are compared by Pinocchio's difference (q and -q are one base orientation).
+    for k in range(fine_times.size - 2):
+        step = pin.integrate(model, out["q"][:, k], h * out["v"][:, k + 1])
+        np.testing.assert_allclose(pin.difference(model, step, out["q"][:, k + 1]), 0.0, atol=1e-9)
+    np.testing.assert_allclose(out["v"][:, 1:] - out["v"][:, :-1], h * out["a"][:, :-1], atol=1e-9)
+    assert not out["v"][:, 0].any() and not out["v"][:, -1].any() and not out["a"][:, -1].any()
+    np.testing.assert_array_equal(out["q"], resampled(model, arrays, coarse_times, fine_times)["q"])
+
+
 def test_a_block_of_another_width_is_refused(ramp):
     with pytest.raises(ValueError, match="columns"):
         resampled(ramp.robot.model, {"G0": np.zeros((3, 7))}, np.linspace(0, 1, 4), np.linspace(0, 1, 10))

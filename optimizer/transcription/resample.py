@@ -8,8 +8,9 @@ stays a unit quaternion); every other per-knot block (velocities,
 accelerations, torques, contact forces, gains, margins, margin floors) is
 linear in time; one-column blocks (a horizon-wide floor) are kept. Blocks
 that the planner recomputes for any start (limit rooms, separating planes)
-are left out. With a warm start, the coarse solve's multipliers move too
-(:func:`resampled_multipliers`).
+are left out. With a warm start, velocities and accelerations follow from
+the moved configurations by the integration rule instead, and the coarse
+solve's multipliers move too (:func:`resampled_multipliers`).
 """
 from __future__ import annotations
 
@@ -17,17 +18,20 @@ import re
 
 import numpy as np
 
-from .guess import interpolate
+from .guess import integrated_rates, interpolate
 
 RECOMPUTED = ("rooms", "separation")
 
 
-def resampled(model, arrays: dict, times, new_times) -> dict:
+def resampled(model, arrays: dict, times, new_times, integrated: bool = False) -> dict:
     """Physical arrays of a point on knot ``times`` (K,) [s] moved onto ``new_times`` (K',) [s].
 
     ``arrays`` maps block names to (rows, K) arrays (``q`` of ``model``'s
     configuration space, (nq, K)); the result has (rows, K') arrays for the
     same names, less :data:`RECOMPUTED`. Both grids span the same horizon.
+    With ``integrated``, velocities and accelerations are not moved but
+    recomputed from the moved configurations by the integration rule
+    (:func:`~optimizer.transcription.guess.integrated_rates`).
     """
     times, new_times = np.asarray(times, float), np.asarray(new_times, float)
     out = {}
@@ -44,6 +48,8 @@ def resampled(model, arrays: dict, times, new_times) -> dict:
         else:
             raise ValueError(f"block '{name}' has {value.shape[1]} columns, neither one nor one per knot "
                              f"({times.size})")
+    if integrated and "q" in out:
+        out["v"], out["a"] = integrated_rates(model, out["q"], new_times)
     return out
 
 
