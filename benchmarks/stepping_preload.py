@@ -43,6 +43,8 @@ VARIANTS = {
     "all feet 40 N": (ALL_FEET, 40.0),
     "rear feet 30 N": (REAR_FEET, 30.0),
     "rear feet 40 N": (REAR_FEET, 40.0),
+    "rear feet 80 N": (REAR_FEET, 80.0),
+    "rear feet 100 N": (REAR_FEET, 100.0),
 }
 
 

@@ -242,6 +242,8 @@ def _sizes_from_meta(path: Path, meta: dict) -> dict:
     _check_min_normal_force(f, nc)
     if f.has("contact_preload"):
         _check_preload(f, nc)
+    if f.has("approach_clearance"):
+        f.number("approach_clearance", lo=0.0)
     limits = f.sub("torque_limits")
     for side in ("lower", "upper"):
         _limit_vector(limits, side, nj)

@@ -681,6 +681,7 @@ def plan_meta(task, objective: str, solver_meta: dict) -> dict:
                              "tangents": [np.asarray(c.tangents, float).tolist() for c in task.contacts]},
         "min_normal_force": min_normal_force_meta(task.min_normal_forces()),
         **preload_meta(task),
+        **({"approach_clearance": float(task.schedule.approach_clearance)} if task.schedule.steps else {}),
         "torque_limits": {"lower": robot.torque_lower.tolist(), "upper": robot.torque_upper.tolist()},
         **reserves_meta(task),
         "joint_velocity_limits": robot.velocity_limit.tolist(),

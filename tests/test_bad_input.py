@@ -236,6 +236,8 @@ CASES = {
                                   r"field 'solver.memory_limit': expected a size with a unit, like 8G or 512M, got 4"),
     "task-solver-out-of-range": (task_case(changed(TASK, solver={"tol": -1})),
                                  r"field 'solver.tol'.*not a valid setting for Option: tol"),
+    "task-approach-clearance-negative": (task_case(changed(TASK, stance__schedule={"approach_clearance": -0.01})),
+                                         r"field 'stance.schedule.approach_clearance'.*a number >= 0"),
     "cli-out-is-directory": (lambda tmp: ["solve", str(write_task(tmp, TASK)), "--check-only", "--out", str(tmp)],
                              r"command line: field '--out'.*a file path for the plan"),
     # plan files

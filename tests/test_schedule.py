@@ -14,6 +14,7 @@ from optimizer.analysis.presolve import run_checks
 from optimizer.errors import PlanFileError, TaskError
 from optimizer.files import read_yaml_mapping
 from optimizer.planfile import load_plan, save_plan
+from optimizer.planner import Planner
 from optimizer.problem.task import load_task, task_from_mapping
 from optimizer.transcription.structure import structure_of
 from stepping_plans import OBJECTIVES, STEPPING, stepping_plan
@@ -43,6 +44,77 @@ def test_stepping_plan_passes_the_pinocchio_recheck(name, objective):
     assert np.all(np.isnan(plan.contact_targets[~plan.contact_active]))
 
 
+# The surfaces the stepping demos' front feet leave and land on, read from the task files'
+# numbers: (unit normal into the robot, a point of the plane) [m]. Both lift off the floor
+# (z = 0); landing_pick lands on the landing's top (z = 0.12), wall_brace on the wall's
+# face (y = 0.40, block0 centred at y = 0.55, 0.30 deep).
+FLOOR = (np.array([0.0, 0.0, 1.0]), np.zeros(3))
+LANDING_PLANES = {"landing_pick": (np.array([0.0, 0.0, 1.0]), np.array([0.0, 0.0, 0.12])),
+                  "wall_brace": (np.array([0.0, -1.0, 0.0]), np.array([0.0, 0.40, 0.0]))}
+DEFAULT_APPROACH = 0.02   # m, stance.schedule.approach_clearance's default (docs/task-files.md)
+
+
+def approach_distances(name, task, plan):
+    """Per swing knot with an approach row: (side, knot, the foot's distance [m] off that plane), by
+    Pinocchio forward kinematics of the plan file (tests/test_schedule.py:foot_kinematics)."""
+    out = []
+    for swing in structure_of(task).swings:
+        frame = plan.meta["contact_frames"][swing.contact]
+        for side, knots, (normal, point) in (("lift-off", swing.leaving, FLOOR),
+                                             ("landing", swing.approaching, LANDING_PLANES[name])):
+            out += [(side, k, float(normal @ (foot_kinematics(plan, k, frame)[0] - point))) for k in knots]
+    return out
+
+
+@pytest.mark.parametrize("objective", OBJECTIVES)
+@pytest.mark.parametrize("name", STEPPING)
+def test_swinging_feet_keep_the_approach_clearance_until_touchdown(name, objective):
+    # Reference: Pinocchio forward kinematics of the plan's URDF against the planes read from
+    # the task files (LANDING_PLANES); the rule is docs/task-files.md's stance.schedule.approach_clearance.
+    task, plan = stepping_plan(name, objective)
+    clearance = task.schedule.approach_clearance
+    assert clearance == DEFAULT_APPROACH
+    rows = approach_distances(name, task, plan)
+    assert any(side == "landing" for side, _, _ in rows)
+    for side, k, distance in rows:
+        assert distance >= clearance - 1e-7, (side, k, distance)
+    # the knot before each touchdown: between one and two clearances off the landing surface
+    for swing in structure_of(task).swings:
+        last = [d for side, k, d in rows if k == swing.touch - 1 and side == "landing"]
+        assert len(last) == 1 and last[0] <= 2 * clearance + 1e-7, last
+
+
+def test_without_an_approach_clearance_the_foot_reaches_the_wall_a_knot_early():
+    # The same check can fail: with approach_clearance 0 (the rule off) the torque plan of
+    # wall_brace puts the foot on the wall's face at the knot before touchdown, below the
+    # default clearance (Pinocchio forward kinematics against the task file's wall plane).
+    path = "tasks/wall_brace.yaml"
+    data = copy.deepcopy(read_yaml_mapping(path, TaskError))
+    data["stance"]["schedule"]["approach_clearance"] = 0.0
+    task = task_from_mapping(data, path).with_knots(10)
+    with Planner() as planner:
+        outcome = planner.solve_from_seed(planner.seed(task), "torque")
+    assert outcome.success
+    swing = structure_of(task).swings[0]
+    last = [d for side, k, d in approach_distances("wall_brace", task, outcome.plan) if k == swing.touch - 1]
+    assert len(last) == 1 and abs(last[0]) < 1e-4 < DEFAULT_APPROACH, last
+
+
+def test_the_plan_check_names_a_swing_foot_that_reaches_its_landing_surface_early(tmp_path):
+    # The plan check's approach rule, on a plan whose meta claims more clearance than it keeps:
+    # the wall_brace robust plan keeps 20-40 mm before touchdown; claiming 0.5 m must fail at that
+    # knot, naming the swinging foot.
+    _, plan = stepping_plan("wall_brace", "robust")
+    assert check_plan(plan).passed
+    path = tmp_path / "claimed.npz"
+    save_plan(plan, path)
+    claimed = load_plan(path)
+    claimed.meta["approach_clearance"] = 0.5
+    result = next(r for r in check_plan(claimed).results if r.name == "approach")
+    touch = int(np.flatnonzero(~plan.contact_active[:-1, 0] & plan.contact_active[1:, 0])[0]) + 1
+    assert not result.passed and result.knot == touch - 1 and result.where == "foot_fl", result
+
+
 @pytest.mark.parametrize("objective", OBJECTIVES)
 @pytest.mark.parametrize("name", STEPPING)
 def test_swing_feet_carry_no_force_and_clear_the_terrain(name, objective):
@@ -62,9 +134,11 @@ def test_swing_feet_carry_no_force_and_clear_the_terrain(name, objective):
         assert not plan.contact_active[list(swing.knots), swing.contact].any()
         height = max(foot_kinematics(plan, k, frame)[0][2] for k in swing.knots)
         assert height >= tops[name] + swing_height - 1e-6, (frame, height)
-        # touchdown: the foot arrives at rest (J v = 0) on its new foothold
+        # touchdown: on its new foothold, without velocity along the landing surface (it comes
+        # in along the normal: the landing top faces +z, the wall's face -y, from the task files)
         position, velocity = foot_kinematics(plan, swing.touch, frame)
-        assert np.linalg.norm(velocity) < 1e-5
+        normal = LANDING_PLANES[name][0]
+        assert np.linalg.norm(velocity - (velocity @ normal) * normal) < 1e-5
         assert np.allclose(position, plan.contact_targets[swing.touch, swing.contact], atol=1e-5)
         # lift-off: the last step before it moved the foot by nothing (stance at both ends)
         before, _ = foot_kinematics(plan, swing.lift - 1, frame)
@@ -238,6 +312,17 @@ def test_a_swing_faster_than_the_legs_can_move_is_refused():
     assert findings and findings[0].impossible
     assert "stance.schedule.foot_fl[1]" in findings[0].what
     assert findings[0].shortfall == pytest.approx(np.hypot(0.40, 0.12) / 17.2 - 0.01, rel=1e-3)
+
+
+def test_an_approach_clearance_the_leg_cannot_cover_in_one_knot_step_is_refused():
+    # Same bound as above (17.2 m/s on the demo robot): at 2000 knots over 4 s the knot step is
+    # 4 / 1999 s, in which the foot covers at most 17.2 * 4 / 1999 = 0.034 m; 0.5 m cannot be.
+    data, path = landing_mapping()
+    data["stance"]["schedule"]["approach_clearance"] = 0.5
+    data["horizon"]["knots"] = 2000
+    findings = [f for f in run_checks(task_from_mapping(data, path)) if f.check == "swing time"]
+    assert findings and findings[0].impossible and "approach_clearance" in findings[0].what
+    assert findings[0].shortfall == pytest.approx(0.5 / 17.2 - 4.0 / 1999, rel=1e-3)
 
 
 def test_export_flags_every_sample_with_its_step_and_keeps_swing_forces_at_zero():

@@ -206,6 +206,27 @@ def measure_swing_forces(facts: PlanFacts) -> Worst:
     return worst_entry(np.where(plan.contact_active, -np.inf, size), facts.contact_names)
 
 
+def measure_approach(facts: PlanFacts) -> Worst:
+    """Shortfall [m] of a swinging foot's distance from its landing surface, at the knot before its
+    touchdown, below ``meta.approach_clearance``: the clearance minus ``n . (p - f)``, with ``f`` the
+    touchdown knot's foothold and ``n`` its surface normal (``contact_knot_surfaces``).
+
+    The knot before a touchdown is the one every approach rule binds whatever the swing's middle;
+    a plan without ``approach_clearance`` has nothing to check.
+    """
+    plan = facts.plan
+    active = np.asarray(plan.contact_active, bool)
+    shortfall = np.full(active.shape, -np.inf)
+    if "approach_clearance" not in facts.meta:
+        return worst_entry(shortfall[:, :0], [])
+    clearance = float(facts.meta["approach_clearance"])
+    normals = knot_surfaces(facts.meta, active.shape[0]).normals
+    for k, c in zip(*np.nonzero(active[1:] & ~active[:-1])):
+        n = normals[k + 1, c]
+        shortfall[k, c] = clearance - n @ (facts.positions[k, c] - plan.contact_targets[k + 1, c])
+    return worst_entry(shortfall, facts.contact_names)
+
+
 def _limit_vector(values, sign: float) -> np.ndarray:
     return np.array([sign * np.inf if x is None else x for x in values], float)
 
@@ -355,6 +376,8 @@ CHECKS: list[Check] = [
     Check("friction", "stance forces inside their friction pyramids", "N", 1e-6, measure_friction),
     Check("normal-force", "stance normal forces at or above the minimum (and preload)", "N", 1e-6, measure_normal_force),
     Check("swing-forces", "no force at contacts out of stance", "N", 1e-9, measure_swing_forces),
+    Check("approach", "swinging feet at least meta.approach_clearance off the landing surface a knot before "
+          "touchdown", "m", 1e-9, measure_approach),
     Check("torque", "joint torques within their limits", "N m", 1e-6, measure_torque),
     Check("joint-position", "joint positions within the URDF limits", "rad", 1e-6, measure_joint_positions),
     Check("joint-velocity", "joint speeds within their limits", "rad/s", 1e-6, measure_joint_velocities),

@@ -3,8 +3,11 @@
 A task may give, per contact, a list of stance intervals (``stance.schedule``
 in docs/task-files.md): time windows [s] with a foothold each. Between two
 intervals the contact swings: it carries no force, clears the terrain under
-its path by ``swing_height`` at mid-swing, and lands with zero velocity.
-Contacts the schedule does not name stay in stance over the whole horizon.
+its path by ``swing_height`` at mid-swing, keeps ``approach_clearance`` off
+the surface it left (before mid-swing) and off the one it lands on (from
+mid-swing until touchdown), and lands along that surface's normal (no
+sliding at touchdown). Contacts the schedule does not name stay in stance
+over the whole horizon.
 
 Which knots are in stance is structure (it fixes the NLP's sparsity); the
 footholds and the heights to clear are numbers (parameters). The knots a
@@ -21,6 +24,7 @@ import numpy as np
 from ..errors import TaskError
 
 DEFAULT_SWING_HEIGHT = 0.05   # m above the terrain under the swing path, at mid-swing
+DEFAULT_APPROACH_CLEARANCE = 0.02  # m off the lift-off and landing surfaces' planes at the swing's knots
 EDGE_TOUCH = 1e-3             # m: a swing path ending this close to a block's outline does not cross it
 MIN_SWING_KNOTS = 2           # the mid-swing knot, and one more to land softly from
 
@@ -73,6 +77,38 @@ class Swing:
         """The knots in the air."""
         return range(self.lift + 1, self.touch)
 
+    @property
+    def leaving(self) -> range:
+        """Knots in the air before mid-swing: kept off the lift-off surface."""
+        return range(self.lift + 1, self.mid)
+
+    @property
+    def approaching(self) -> range:
+        """Knots from mid-swing to the last before touchdown: kept off the landing surface."""
+        return range(self.mid, self.touch)
+
+
+@dataclass(frozen=True)
+class SwingRow:
+    """One approach row: the swinging foot of ``swings[swing]`` at knot ``knot`` kept off a surface's plane.
+
+    ``side`` is ``"lift-off"`` (the surface the foot left) or ``"landing"``
+    (the one it lands on).
+    """
+
+    swing: int
+    knot: int
+    side: str
+
+
+def swing_rows(swings) -> list[SwingRow]:
+    """The approach rows of ``swings`` (a sequence of :class:`Swing`), in swing then knot order."""
+    out = []
+    for i, s in enumerate(swings):
+        out += [SwingRow(i, k, "lift-off") for k in s.leaving]
+        out += [SwingRow(i, k, "landing") for k in s.approaching]
+    return out
+
 
 @dataclass
 class Schedule:
@@ -85,12 +121,18 @@ class Schedule:
         and the last ending at the horizon's end.
     swing_height : float
         m the swinging foot must be above the terrain under its path at mid-swing.
+    approach_clearance : float
+        m the swinging foot keeps, along the surface's normal, off the plane
+        of the surface it left (knots before mid-swing) and of the one it
+        lands on (mid-swing to the knot before touchdown), both planes
+        through the stance's foothold.
     path : path-like
         The task file (for error messages).
     """
 
     intervals: list
     swing_height: float = DEFAULT_SWING_HEIGHT
+    approach_clearance: float = DEFAULT_APPROACH_CLEARANCE
     path: object = None
     field_name: str = "stance.schedule"
     frames: list = field(default_factory=list)
@@ -163,6 +205,12 @@ class Schedule:
         """The stance intervals a swing leaves and lands in."""
         intervals = self.intervals[swing.contact]
         return intervals[swing.landing - 1], intervals[swing.landing]
+
+    def side_of(self, swing: Swing, side: str, contacts):
+        """The contact (a ContactSpec from ``contacts``, the task's) as it stands on the surface a swing
+        leaves (``side`` ``"lift-off"``) or lands on (``"landing"``): foothold, normal, tangents, friction."""
+        before, after = self.ends(swing)
+        return (before if side == "lift-off" else after).on(contacts[swing.contact])
 
     def phases(self) -> list[tuple[float, float, tuple]]:
         """Time windows with one set of contacts in stance: ``(t0, t1, (contact indices in stance))``.

@@ -31,7 +31,7 @@ from .point_weights import COMBINATIONS, DEFAULT_COMBINATION
 from .push_shape import shape_from_directions, wrench_shape
 from .requirement import horizon_requirement, read_requirements
 from .reserve import planned_value, read_reserve
-from .schedule import DEFAULT_SWING_HEIGHT, Schedule, StanceInterval
+from .schedule import DEFAULT_APPROACH_CLEARANCE, DEFAULT_SWING_HEIGHT, Schedule, StanceInterval
 from .stance import foot_residuals, solve_stance
 from .terrain import build_terrain
 
@@ -390,8 +390,11 @@ def with_friction_reserve(contacts, schedule: Schedule, reserve: float) -> list[
     return [dataclasses.replace(c, friction=planned_value(c.friction, reserve)) for c in contacts]
 
 
+SCHEDULE_NUMBERS = {"swing_height", "approach_clearance"}   # stance.schedule keys that are not contact frames
+
+
 def read_schedule(stance: Fields, contacts, terrain, duration: float) -> Schedule:
-    """``stance.schedule``: ``{swing_height: m, <frame>: [{window: [t0, t1] s, xy | position}, ...]}``.
+    """``stance.schedule``: ``{swing_height: m, approach_clearance: m, <frame>: [{window: [t0, t1] s, xy | position}, ...]}``.
 
     Each entry is a stance interval; a foothold is ``xy`` on the terrain (with
     an optional ``surface``) or an explicit ``position`` (explicit contacts);
@@ -411,11 +414,12 @@ def read_schedule(stance: Fields, contacts, terrain, duration: float) -> Schedul
         return schedule
     section = stance.sub("schedule")
     frames = {c.frame: i for i, c in enumerate(contacts)}
-    section.allow_only(set(frames) | {"swing_height"})
+    section.allow_only(set(frames) | SCHEDULE_NUMBERS)
     schedule.swing_height = section.number("swing_height", DEFAULT_SWING_HEIGHT, lo=0.0, hi=1.0)
+    schedule.approach_clearance = section.number("approach_clearance", DEFAULT_APPROACH_CLEARANCE, lo=0.0, hi=0.5)
     for key in section.data:
         require_text_key(section, key)
-        if key != "swing_height":
+        if key not in SCHEDULE_NUMBERS:
             c = frames[key]
             intervals[c] = read_intervals(section, key, contacts[c], terrain, duration)
     return schedule

@@ -26,7 +26,9 @@ def keyframes(task) -> list[tuple[float, np.ndarray]]:
     Each keyframe is the stance IK from the previous one with every contact on
     its foothold of that time (the one it lands on while swinging; at
     mid-swing, that foothold's midpoint with the one it left, raised by the
-    swing height) and the hand on the target whose window holds the time.
+    swing height; at the knots after lift-off and before touchdown, off the
+    surface by the approach clearance: :func:`approach_points`) and the hand
+    on the target whose window holds the time.
     """
     robot, schedule = task.robot, task.schedule
     times = {0.0}
@@ -40,6 +42,9 @@ def keyframes(task) -> list[tuple[float, np.ndarray]]:
             point = 0.5 * (before.foothold + after.foothold)
             point[2] = max(before.foothold[2], after.foothold[2]) + schedule.swing_height
             lifted[(c, middle)] = point
+    for (c, t), point in approach_points(task).items():
+        times.add(t)
+        lifted[(c, t)] = point
     q = task.initial_posture if task.initial_posture is not None else solve_stance(
         robot, task.contacts, clearance=task.clearance)
     frames = [(0.0, q)]
@@ -52,6 +57,21 @@ def keyframes(task) -> list[tuple[float, np.ndarray]]:
         q = solve_stance(robot, contacts, q_guess=q, hand_target=target, clearance=task.clearance)
         frames.append((t, q))
     return frames
+
+
+def approach_points(task) -> dict:
+    """``{(contact, knot time [s]): point (3,) m}``: the foot one knot after each lift-off and one
+    knot before each touchdown, off its stance foothold along the surface normal by the approach
+    clearance and a centimetre (when that knot is not the swing's middle, which has its own keyframe)."""
+    schedule, times, out = task.schedule, task.times, {}
+    step = 0.01  # m beyond the clearance, so the guess starts inside the approach rows
+    for swing in schedule.swings(times):
+        for knot, side in ((swing.lift + 1, "lift-off"), (swing.touch - 1, "landing")):
+            if knot == swing.mid or (side == "lift-off" and knot > swing.mid):
+                continue
+            stance = schedule.side_of(swing, side, task.contacts)
+            out[(swing.contact, float(times[knot]))] = stance.foothold + (schedule.approach_clearance + step) * stance.normal
+    return out
 
 
 def interpolate(model, frames, times) -> np.ndarray:

@@ -38,9 +38,10 @@ LIMIT_BACKOFF = 1e-6
 # rho, so the margin certified from the solved gains meets it despite round-off.
 REQUIREMENT_BACKOFF = 1e-6
 
-register_family("swing", "swinging feet: touchdown at rest and the height at mid-swing",
-                "give the swing more time (a later touchdown), a lower stance.schedule.swing_height, or a "
-                "foothold nearer the body")
+register_family("swing", "swinging feet: touchdown along the surface normal, the height at mid-swing and "
+                "the approach clearance off the lift-off and landing surfaces",
+                "give the swing more time (a later touchdown), a lower stance.schedule.swing_height or "
+                "approach_clearance, or a foothold nearer the body")
 register_family("terrain clearance", "clearance: collision shapes kept away from the terrain (link vs surface)",
                 "move the hand targets or footholds away from the named surface, or lower clearance.distance")
 register_family("self clearance", "self-collision: shapes of the robot kept apart (shape vs shape)",
@@ -229,19 +230,35 @@ class Transcription:
                          LIMIT_BACKOFF, INF, unit="m g", who=list(self.structure.contact_frames))
 
     def _swings(self, V, P):
-        """Per swing: the foot at rest at touchdown (``J_c v = 0``, 3 rows) and, at mid-swing, its height
-        (world z) at least the swing's parameter (terrain top under the path plus the swing height)."""
+        """Per swing: the foot without velocity along the landing surface at touchdown (``t_i . J_c v = 0``,
+        2 rows; along the normal it arrives from the approach clearance), at mid-swing its height (world z)
+        at least the swing's parameter (terrain top under the path plus the swing height), and at every
+        approach row its distance off the row's surface plane at least the approach clearance."""
         frames = self.structure.contact_frames
         for i, swing in enumerate(self.structure.swings):
             frame = frames[swing.contact]
             rows = slice(3 * swing.contact, 3 * swing.contact + 3)
             if swing.touch < self.structure.knots - 1:  # the last knot is at rest by its bounds
                 _, velocity = self.functions.foot_motion(V["q"][:, swing.touch], V["v"][:, swing.touch])
-                self.constraints.add(f"touchdown {frame}@{swing.touch}", velocity[rows], [swing.touch], unit="m/s",
-                                     family="swing", who=[f"{frame} touchdown velocity"] * 3)
+                tangents = P["touchdown_tangents"][:, i]
+                along = ca.vertcat(ca.dot(tangents[:3], velocity[rows]), ca.dot(tangents[3:], velocity[rows]))
+                self.constraints.add(f"touchdown {frame}@{swing.touch}", along, [swing.touch], unit="m/s",
+                                     family="swing", who=[f"{frame} touchdown velocity along t{j}" for j in (1, 2)])
             positions, _ = self.functions.foot_motion(V["q"][:, swing.mid], V["v"][:, swing.mid])
             self.constraints.add(f"mid-swing {frame}@{swing.mid}", positions[2, swing.contact] - P["swing_heights"][i],
                                  [swing.mid], 0.0, INF, unit="m", family="swing", who=[f"{frame} mid-swing height"])
+        for r, row in enumerate(self.structure.swing_rows):
+            swing = self.structure.swings[row.swing]
+            frame = frames[swing.contact]
+            positions, _ = self.functions.foot_motion(V["q"][:, row.knot], V["v"][:, row.knot])
+            plane = P["swing_planes"][:, r]
+            distance = ca.dot(plane[:3], positions[:, swing.contact]) - plane[3]
+            who = [f"{frame} off the {row.side} surface"]
+            if row.knot == swing.touch - 1:  # the last step lands from between one and two clearances
+                distance = ca.vertcat(distance, P["approach_band"] - distance)
+                who.append(f"{frame} within twice the approach clearance before touchdown")
+            self.constraints.add(f"approach {frame}@{row.knot}", distance, [row.knot], 0.0, INF, unit="m",
+                                 family="swing", who=who)
 
     def _hand_targets(self, V, P):
         for i, slot in enumerate(self.structure.targets):

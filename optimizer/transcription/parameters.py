@@ -18,6 +18,14 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     k's footholds in columns ``k nc .. k nc + nc - 1`` (a swinging contact's
     is the one it lands on; no row uses it); ``swing_heights`` (swings,) [m],
     the height above z = 0 each swing's foot must reach at mid-swing;
+    ``swing_planes`` (4, swing rows): per approach row the plane ``(n, offset)``
+    with ``n . p >= offset`` [m] (``n`` the surface's unit normal into the
+    robot, ``offset`` its foothold's ``n . f`` plus the approach clearance);
+    ``touchdown_tangents`` (6, swings): the landing surface's ``t1, t2``
+    stacked (unit, world), along which the foot has no velocity at touchdown;
+    ``approach_band`` [m], how far beyond the approach clearance the foot may
+    be at the knot before touchdown (the clearance itself: it lands from
+    between one and two clearances, at most twice the clearance per step);
     ``normals`` (3, nc K) and ``facets`` (3 m, nc K), knot k's in columns
     ``k nc .. k nc + nc - 1`` as the footholds: the unit normal and the
     pyramid rows (stacked) of the surface each contact presses on at that
@@ -36,6 +44,9 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     layout.add("step")
     layout.add("footholds", 3, structure.nc * structure.knots)
     layout.add("swing_heights", len(structure.swings))
+    layout.add("swing_planes", 4, len(structure.swing_rows))
+    layout.add("touchdown_tangents", 6, len(structure.swings))
+    layout.add("approach_band", 1 if structure.swings else 0)
     layout.add("normals", 3, structure.nc * structure.knots)
     layout.add("facets", 3 * structure.facets, structure.nc * structure.knots)
     layout.add("min_normal_force", structure.nc)
@@ -69,6 +80,12 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
     heights = [terrain_top(surfaces, *(iv.foothold for iv in schedule.ends(s))) + schedule.swing_height
                for s in structure.swings]
     layout.set(values, "swing_heights", np.array(heights))
+    if structure.swings:
+        layout.set(values, "swing_planes", swing_planes(task, structure))
+        landings = [schedule.side_of(s, "landing", task.contacts).tangents.reshape(-1) for s in structure.swings]
+        layout.set(values, "touchdown_tangents", np.array(landings).T)
+        # the rows' back-off on both sides: a solved plan keeps within twice the clearance exactly
+        layout.set(values, "approach_band", max(schedule.approach_clearance - 2 * CLEARANCE_BACKOFF, 0.0))
     normals, tangents, friction = task.schedule.surfaces(task.contacts, task.times)
     layout.set(values, "normals", normals.reshape(-1, 3).T)
     rows = [pyramid_facets(n, t, mu, structure.facets).reshape(-1)
@@ -97,6 +114,17 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
 def point_weights(task, structure: Structure) -> np.ndarray:
     """The disturbance points' objective weights, normalized for ``structure.combine_points``, shape (P,)."""
     return normalized_weights([d.objective_weight for d in task.disturbances], structure.combine_points)
+
+
+def swing_planes(task, structure: Structure) -> np.ndarray:
+    """(4, swing rows): per approach row the unit normal and ``n . foothold + approach_clearance`` [m]
+    (raised by the clearance rows' back-off, so a solved plan keeps the full clearance)."""
+    schedule, columns = task.schedule, []
+    for row in structure.swing_rows:
+        stance = schedule.side_of(structure.swings[row.swing], row.side, task.contacts)
+        normal = np.asarray(stance.normal, float)
+        columns.append(np.append(normal, normal @ stance.foothold + schedule.approach_clearance + CLEARANCE_BACKOFF))
+    return np.array(columns).T.reshape(4, len(structure.swing_rows))
 
 
 def knot_footholds(task) -> np.ndarray:

@@ -10,6 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from ..problem.point_weights import DEFAULT_COMBINATION
+from ..problem.schedule import swing_rows
 from ..problem.timing import window_knots
 
 
@@ -78,6 +79,10 @@ class Structure:
     swings : tuple of Swing
         Each swing's lift-off, touchdown and mid-swing knots
         (:mod:`optimizer.problem.schedule`).
+    swing_rows : tuple of SwingRow
+        The approach rows of the swings (a swinging foot kept off the plane
+        of the surface it left or lands on, at one knot); each row's plane
+        and clearance are a parameter.
     preloaded : tuple of int
         Contacts whose preload exceeds their minimum normal force: each gets
         a ``preload`` row per stance knot (the plan's own force only, not its
@@ -97,6 +102,7 @@ class Structure:
     self_labels: tuple = ()
     activity: tuple = ()
     swings: tuple = ()
+    swing_rows: tuple = ()
     preloaded: tuple = ()
 
     def active(self, k: int) -> tuple:
@@ -138,9 +144,11 @@ def structure_of(task) -> Structure:
     last = task.knots - 1
     slots = [s for s in slots if not (s.knot == last and (last - 1, s.frame) in taken)]
     activity = task.schedule.activity(times)
+    swings = tuple(task.schedule.swings(times))
     return Structure(
         activity=tuple(tuple(bool(x) for x in row) for row in activity) if not activity.all() else (),
-        swings=tuple(task.schedule.swings(times)),
+        swings=swings,
+        swing_rows=tuple(swing_rows(swings)),
         preloaded=tuple(c for c, contact in enumerate(task.contacts) if contact.preload > contact.min_normal_force),
         knots=task.knots,
         contact_frames=tuple(c.frame for c in task.contacts),
