@@ -3,7 +3,7 @@
     python benchmarks/solve.py [--tasks steep_ramp,crawl_space] [--knots 30,60,120]
                                [--objective robust] [--evaluation compiled,expanded,mapped]
                                [--again] [--compare 60] [--torque-gains variables]
-                               [--strategy direct,coarse-3,warm-start] [--warm-only]
+                               [--strategy direct,coarse-3,coarse-warm-3,warm-start] [--warm-only]
                                [--write benchmarks/RESULTS.md]
 
 Every measurement runs in a child process of its own (``python benchmarks/solve.py --child ...``),
@@ -24,7 +24,9 @@ mapped over the knots, ``expand=False``: fast build, slower iterations). ``--com
 ``robust``, ``robust-min`` and ``robust-sum`` from one seed per task at K knots (compiled evaluation) and
 reports their certified margins (``--compare-only``: nothing else). ``--strategy`` lists how the robust stage starts: ``direct`` (from the seed
 with its starting gains), ``coarse-R`` (``Planner(continuation=R)``: seed and objective first on
-about K/R knots, that plan moved onto the K knots as the objective's start), ``warm-start``
+about K/R knots, that plan moved onto the K knots as the objective's start), ``coarse-warm-R``
+(``Planner(continuation=R, warm_start=True)``: the same, the full stage also warm-started from the
+coarse stage's multipliers moved onto the K knots), ``warm-start``
 (``Planner(warm_start=True)``: from the seed with its multipliers); ``--warm-only`` measures compiled evaluation
 only with a warm cache (one cache folder per task, filled by an unrecorded first plan). Prints Markdown; ``--write`` replaces the "## Solve" section of the
 results file (``--section`` names another). Record the machine's load with the figures: timings on a busy machine are slow.
@@ -54,7 +56,7 @@ COMPILED_LABELS = ["compiled, empty cache", "compiled, warm cache"]
 
 
 # -- child process: one measurement ---------------------------------------------------------
-STRATEGIES = ("direct", "coarse-R", "warm-start")
+STRATEGIES = ("direct", "coarse-R", "coarse-warm-R", "warm-start")
 
 
 def strategy_settings(strategy: str) -> dict:
@@ -65,6 +67,8 @@ def strategy_settings(strategy: str) -> dict:
         return {"warm_start": True}
     if strategy.startswith("coarse-") and strategy[7:].isdigit():
         return {"continuation": int(strategy[7:])}
+    if strategy.startswith("coarse-warm-") and strategy[12:].isdigit():
+        return {"continuation": int(strategy[12:]), "warm_start": True}
     raise SystemExit(f"--strategy: unknown entry '{strategy}' (known: {', '.join(STRATEGIES)})")
 
 
@@ -246,7 +250,9 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
            "seed on the coarse knots, its objective stages the coarse one and then the full one from the "
            "coarse plan moved onto the full knots (the knot count of a coarse stage is given); robust / "
            "feasible divides their sum by the coarse seed's time. \"warm-start\" starts the robust stage "
-           "from the seed's multipliers (`Planner(warm_start=True)`)." if args.strategy != "direct" else ""), "",
+           "from the seed's multipliers (`Planner(warm_start=True)`). \"coarse-warm-R\" is coarse-R with the "
+           "full stage also started from the coarse robust stage's multipliers moved onto the full knots "
+           "(`Planner(continuation=R, warm_start=True)`)." if args.strategy != "direct" else ""), "",
         "| task | knots | evaluation | plan | whole [s] | build [s] | feasible stage | objective stage | "
         "robust / feasible | peak [GB] | margin min / mean [N] |",
         "| --- | ---: | --- | --- | ---: | ---: | --- | --- | ---: | ---: | --- |"]
@@ -323,7 +329,8 @@ def main(argv=None) -> int:
     parser.add_argument("--again", action="store_true",
                         help="plan each task a second time in the same process, built solvers kept")
     parser.add_argument("--strategy", default="direct", metavar="S,...",
-                        help="robust-stage starts to measure: direct, coarse-R, warm-start (default direct)")
+                        help="robust-stage starts to measure: direct, coarse-R, coarse-warm-R, warm-start "
+                             "(default direct)")
     parser.add_argument("--warm-only", action="store_true",
                         help="compiled evaluation with a warm cache only (one folder per task, filled first)")
     parser.add_argument("--child", nargs=7, metavar=("TASK", "KNOTS", "OBJECTIVE", "EVALUATION", "GAINS", "AGAIN",

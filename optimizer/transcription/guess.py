@@ -92,18 +92,27 @@ def interpolate(model, frames, times) -> np.ndarray:
     return np.array(out).T
 
 
+def integrated_rates(model, q, times) -> tuple[np.ndarray, np.ndarray]:
+    """Velocities and accelerations (nv, K) that meet the integration rule exactly for the
+    configurations ``q`` (nq, K) at the uniform knot ``times`` [s]: ``v[k+1]`` from ``q[k]`` to
+    ``q[k+1]`` [m/s, rad/s], ``a[k] = (v[k+1] - v[k]) / h`` [m/s^2, rad/s^2]; at rest at both ends
+    (``v`` zero at the first and last knot, ``a`` at the last)."""
+    K, h = q.shape[1], times[1] - times[0]
+    v = np.zeros((model.nv, K))
+    for k in range(K - 1):
+        v[:, k + 1] = pin.difference(model, q[:, k], q[:, k + 1]) / h
+    v[:, -1] = 0.0
+    a = np.zeros((model.nv, K))
+    a[:, :-1] = (v[:, 1:] - v[:, :-1]) / h
+    return v, a
+
+
 def initial_guess(task) -> dict[str, np.ndarray]:
     """Physical arrays ``q`` (nq, K), ``v``, ``a`` (nv, K), ``tau`` (nj, K), ``lam`` (3 nc, K)."""
     robot, times = task.robot, task.times
     model, K = robot.model, task.knots
     q = interpolate(model, keyframes(task), times)
-    h = times[1] - times[0]
-    v = np.zeros((robot.nv, K))
-    for k in range(K - 1):
-        v[:, k + 1] = pin.difference(model, q[:, k], q[:, k + 1]) / h
-    v[:, -1] = 0.0
-    a = np.zeros((robot.nv, K))
-    a[:, :-1] = (v[:, 1:] - v[:, :-1]) / h
+    v, a = integrated_rates(model, q, times)
     tau, lam = np.zeros((robot.nj, K)), np.zeros((3 * len(task.contacts), K))
     active = task.schedule.activity(times)
     for k in range(K):
