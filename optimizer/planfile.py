@@ -244,6 +244,8 @@ def _sizes_from_meta(path: Path, meta: dict) -> dict:
         _check_preload(f, nc)
     if f.has("approach_clearance"):
         f.number("approach_clearance", lo=0.0)
+    if f.has("touchdown_speed"):
+        f.number("touchdown_speed", lo=0.0, lo_open=True)
     limits = f.sub("torque_limits")
     for side in ("lower", "upper"):
         _limit_vector(limits, side, nj)

@@ -238,6 +238,8 @@ CASES = {
                                  r"field 'solver.tol'.*not a valid setting for Option: tol"),
     "task-approach-clearance-negative": (task_case(changed(TASK, stance__schedule={"approach_clearance": -0.01})),
                                          r"field 'stance.schedule.approach_clearance'.*a number >= 0"),
+    "task-touchdown-speed-zero": (task_case(changed(TASK, stance__schedule={"touchdown_speed": 0.0})),
+                                  r"field 'stance.schedule.touchdown_speed'.*a number > 0"),
     "cli-out-is-directory": (lambda tmp: ["solve", str(write_task(tmp, TASK)), "--check-only", "--out", str(tmp)],
                              r"command line: field '--out'.*a file path for the plan"),
     # plan files

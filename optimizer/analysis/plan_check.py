@@ -206,25 +206,64 @@ def measure_swing_forces(facts: PlanFacts) -> Worst:
     return worst_entry(np.where(plan.contact_active, -np.inf, size), facts.contact_names)
 
 
-def measure_approach(facts: PlanFacts) -> Worst:
-    """Shortfall [m] of a swinging foot's distance from its landing surface, at the knot before its
-    touchdown, below ``meta.approach_clearance``: the clearance minus ``n . (p - f)``, with ``f`` the
-    touchdown knot's foothold and ``n`` its surface normal (``contact_knot_surfaces``).
+def _touchdowns(active):
+    """(knot, contact) of every touchdown: a contact in stance at ``knot`` and not at the knot before."""
+    return list(zip(*np.nonzero(active[1:] & ~active[:-1])))
 
-    The knot before a touchdown is the one every approach rule binds whatever the swing's middle;
-    a plan without ``approach_clearance`` has nothing to check.
+
+def _last_stance_knot(active, touch: int, c: int) -> int:
+    """The last knot before ``touch`` with contact ``c`` in stance (the lift-off knot)."""
+    return int(np.flatnonzero(active[:touch, c])[-1])
+
+
+def measure_approach(facts: PlanFacts) -> Worst:
+    """Shortfall [m] of a swinging foot's distance off its landing surface: ``n . (p - f)``, with ``f``
+    the touchdown knot's foothold and ``n`` its surface normal (``contact_knot_surfaces``), below
+    ``meta.approach_clearance`` at swing knots at least ``approach_clearance / touchdown_speed`` s before
+    touchdown, and below zero on the final approach (the foot through the surface); both at the knot
+    before touchdown and at swing knots a knot step past the middle of the swing (so past its
+    mid-swing knot, whichever knot the planner chose).
+
+    A plan without ``approach_clearance`` has nothing to check; one without ``touchdown_speed`` (older
+    plans) is checked at the knot before touchdown only.
     """
     plan = facts.plan
     active = np.asarray(plan.contact_active, bool)
     shortfall = np.full(active.shape, -np.inf)
     if "approach_clearance" not in facts.meta:
         return worst_entry(shortfall[:, :0], [])
-    clearance = float(facts.meta["approach_clearance"])
+    clearance, t = float(facts.meta["approach_clearance"]), np.asarray(plan.t, float)
+    speed = facts.meta.get("touchdown_speed")
     normals = knot_surfaces(facts.meta, active.shape[0]).normals
-    for k, c in zip(*np.nonzero(active[1:] & ~active[:-1])):
-        n = normals[k + 1, c]
-        shortfall[k, c] = clearance - n @ (facts.positions[k, c] - plan.contact_targets[k + 1, c])
+    for k, c in _touchdowns(active):
+        touch, n = k + 1, normals[k + 1, c]
+        lift = _last_stance_knot(active, touch, c)
+        step = t[touch] - t[touch - 1]
+        final = 0.0 if speed is None else clearance / float(speed)
+        for j in range(lift + 1, touch):
+            distance = n @ (facts.positions[j, c] - plan.contact_targets[touch, c])
+            if speed is None:
+                shortfall[j, c] = clearance - distance if j == touch - 1 else -np.inf
+            elif j == touch - 1 or t[j] >= 0.5 * (t[lift] + t[touch]) + step:
+                shortfall[j, c] = (0.0 if t[touch] - t[j] < final - 1e-12 else clearance) - distance
     return worst_entry(shortfall, facts.contact_names)
+
+
+def measure_touchdown_speed(facts: PlanFacts) -> Worst:
+    """Excess [m/s] of a foot's speed along its landing surface's normal at touchdown over
+    ``meta.touchdown_speed`` (the foot's velocity by Pinocchio's frame Jacobian, world-aligned)."""
+    plan = facts.plan
+    active = np.asarray(plan.contact_active, bool)
+    excess = np.full(active.shape, -np.inf)
+    if "touchdown_speed" not in facts.meta:
+        return worst_entry(excess[:, :0], [])
+    limit = float(facts.meta["touchdown_speed"])
+    normals = knot_surfaces(facts.meta, active.shape[0]).normals
+    for k, c in _touchdowns(active):
+        touch = k + 1
+        velocity = facts.jacobians[touch, c] @ plan.v[touch]
+        excess[touch, c] = abs(normals[touch, c] @ velocity) - limit
+    return worst_entry(excess, facts.contact_names)
 
 
 def _limit_vector(values, sign: float) -> np.ndarray:
@@ -376,8 +415,10 @@ CHECKS: list[Check] = [
     Check("friction", "stance forces inside their friction pyramids", "N", 1e-6, measure_friction),
     Check("normal-force", "stance normal forces at or above the minimum (and preload)", "N", 1e-6, measure_normal_force),
     Check("swing-forces", "no force at contacts out of stance", "N", 1e-9, measure_swing_forces),
-    Check("approach", "swinging feet at least meta.approach_clearance off the landing surface a knot before "
-          "touchdown", "m", 1e-9, measure_approach),
+    Check("approach", "swinging feet at least meta.approach_clearance off the landing surface until the "
+          "final approach, and never through it", "m", 1e-9, measure_approach),
+    Check("touchdown-speed", "feet land at most meta.touchdown_speed along the surface normal", "m/s", 1e-6,
+          measure_touchdown_speed),
     Check("torque", "joint torques within their limits", "N m", 1e-6, measure_torque),
     Check("joint-position", "joint positions within the URDF limits", "rad", 1e-6, measure_joint_positions),
     Check("joint-velocity", "joint speeds within their limits", "rad/s", 1e-6, measure_joint_velocities),

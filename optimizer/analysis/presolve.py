@@ -390,27 +390,7 @@ def swing_time_findings(task) -> list[Finding]:
                                    f"is at least {path:.2f} m and the leg moves the foot at most {speed:.1f} m/s "
                                    f"(joint velocity limits), so it needs {needed:.3f} s", "start that stance later",
                                    needed - given, "s"))
-        out += _approach_step_findings(task, c, speed)
     return out
-
-
-def _approach_step_findings(task, c: int, speed: float) -> list[Finding]:
-    """The last step of every swing of contact ``c`` covers at least the approach clearance in one knot
-    step (``approach_clearance`` off the landing surface at the knot before touchdown, on it at
-    touchdown); relative to the body the foot moves at most ``speed`` m/s (proof, body still)."""
-    schedule, times = task.schedule, task.times
-    if len(schedule.intervals[c]) < 2 or len(times) < 2:
-        return []
-    step = float(times[1] - times[0])
-    needed = schedule.approach_clearance / speed
-    if needed <= step:
-        return []
-    frame = task.contacts[c].frame
-    return [Finding("swing time", True, f"{schedule.field_name}.approach_clearance: {frame} must come "
-                    f"{schedule.approach_clearance * 100:.1f} cm to its landing surface in one knot step of "
-                    f"{step:.3f} s and the leg moves the foot at most {speed:.1f} m/s (joint velocity limits), "
-                    f"so the step needs {needed:.3f} s", "lower stance.schedule.approach_clearance or use fewer knots",
-                    needed - step, "s")]
 
 
 # ---------------------------------------------------------------- estimates at stance postures

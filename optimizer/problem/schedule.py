@@ -5,8 +5,11 @@ in docs/task-files.md): time windows [s] with a foothold each. Between two
 intervals the contact swings: it carries no force, clears the terrain under
 its path by ``swing_height`` at mid-swing, keeps ``approach_clearance`` off
 the surface it left (before mid-swing) and off the one it lands on (from
-mid-swing until touchdown), and lands along that surface's normal (no
-sliding at touchdown). Contacts the schedule does not name stay in stance
+mid-swing until its final approach), and lands along that surface's normal
+(no sliding at touchdown) at no more than ``touchdown_speed``. The final
+approach is the last ``approach_clearance / touchdown_speed`` seconds before
+touchdown: there the foot only stays on the robot's side of the landing
+plane, so the rule is a time, not a number of knots. Contacts the schedule does not name stay in stance
 over the whole horizon.
 
 Which knots are in stance is structure (it fixes the NLP's sparsity); the
@@ -25,6 +28,9 @@ from ..errors import TaskError
 
 DEFAULT_SWING_HEIGHT = 0.05   # m above the terrain under the swing path, at mid-swing
 DEFAULT_APPROACH_CLEARANCE = 0.02  # m off the lift-off and landing surfaces' planes at the swing's knots
+# m/s along the landing surface's normal at touchdown: a soft landing (an order of magnitude common in
+# legged-robot practice, from memory; a demo default, not a measured figure).
+DEFAULT_TOUCHDOWN_SPEED = 0.1
 EDGE_TOUCH = 1e-3             # m: a swing path ending this close to a block's outline does not cross it
 MIN_SWING_KNOTS = 2           # the mid-swing knot, and one more to land softly from
 
@@ -63,7 +69,10 @@ class Swing:
     ``contact`` index; ``lift`` the last stance knot before, ``touch`` the
     first after; ``mid`` the mid-swing knot (nearest the swing's middle time,
     never the last swing knot); ``landing`` the index of the interval it
-    lands in (footholds are numbers, not structure: see :meth:`Schedule.ends`).
+    lands in (footholds are numbers, not structure: see :meth:`Schedule.ends`);
+    ``final`` the first knot of the final approach (less than
+    ``approach_clearance / touchdown_speed`` s before touchdown; ``touch``
+    when none is).
     """
 
     contact: int
@@ -71,6 +80,12 @@ class Swing:
     touch: int
     mid: int
     landing: int
+    final: int = -1
+
+    @property
+    def final_knot(self) -> int:
+        """First knot of the final approach (never before mid-swing)."""
+        return self.touch if self.final < 0 else max(self.final, self.mid)
 
     @property
     def knots(self) -> range:
@@ -84,16 +99,22 @@ class Swing:
 
     @property
     def approaching(self) -> range:
-        """Knots from mid-swing to the last before touchdown: kept off the landing surface."""
-        return range(self.mid, self.touch)
+        """Knots from mid-swing to the final approach: kept off the landing surface by the clearance."""
+        return range(self.mid, self.final_knot)
+
+    @property
+    def settling(self) -> range:
+        """Knots of the final approach before touchdown: on the robot's side of the landing plane."""
+        return range(self.final_knot, self.touch)
 
 
 @dataclass(frozen=True)
 class SwingRow:
     """One approach row: the swinging foot of ``swings[swing]`` at knot ``knot`` kept off a surface's plane.
 
-    ``side`` is ``"lift-off"`` (the surface the foot left) or ``"landing"``
-    (the one it lands on).
+    ``side`` is ``"lift-off"`` (the surface the foot left), ``"landing"``
+    (the one it lands on, by the approach clearance) or ``"final"`` (the one
+    it lands on, by nothing: the foot may come to it, never through it).
     """
 
     swing: int
@@ -107,6 +128,7 @@ def swing_rows(swings) -> list[SwingRow]:
     for i, s in enumerate(swings):
         out += [SwingRow(i, k, "lift-off") for k in s.leaving]
         out += [SwingRow(i, k, "landing") for k in s.approaching]
+        out += [SwingRow(i, k, "final") for k in s.settling]
     return out
 
 
@@ -124,8 +146,12 @@ class Schedule:
     approach_clearance : float
         m the swinging foot keeps, along the surface's normal, off the plane
         of the surface it left (knots before mid-swing) and of the one it
-        lands on (mid-swing to the knot before touchdown), both planes
-        through the stance's foothold.
+        lands on (mid-swing to the final approach), both planes through the
+        stance's foothold.
+    touchdown_speed : float
+        m/s: the largest speed of the foot along the landing surface's
+        normal at touchdown; with ``approach_clearance`` it sets the final
+        approach, ``approach_clearance / touchdown_speed`` s long.
     path : path-like
         The task file (for error messages).
     """
@@ -133,6 +159,7 @@ class Schedule:
     intervals: list
     swing_height: float = DEFAULT_SWING_HEIGHT
     approach_clearance: float = DEFAULT_APPROACH_CLEARANCE
+    touchdown_speed: float = DEFAULT_TOUCHDOWN_SPEED
     path: object = None
     field_name: str = "stance.schedule"
     frames: list = field(default_factory=list)
@@ -198,8 +225,15 @@ class Schedule:
                                     f"{len(air)} knot(s) between {before.t_end} s and {after.t_start} s")
                 middle = 0.5 * (before.t_end + after.t_start)
                 mid = min(air[:-1], key=lambda k: abs(times[k] - middle))
-                out.append(Swing(c, air[0] - 1, air[-1] + 1, mid, i))
+                touch = air[-1] + 1
+                final = next((k for k in air if times[touch] - times[k] < self.final_approach - 1e-12), touch)
+                out.append(Swing(c, air[0] - 1, touch, mid, i, final))
         return out
+
+    @property
+    def final_approach(self) -> float:
+        """Seconds before a touchdown in which the foot may come closer than ``approach_clearance``."""
+        return self.approach_clearance / self.touchdown_speed
 
     def ends(self, swing: Swing) -> tuple[StanceInterval, StanceInterval]:
         """The stance intervals a swing leaves and lands in."""

@@ -31,7 +31,8 @@ from .point_weights import COMBINATIONS, DEFAULT_COMBINATION
 from .push_shape import shape_from_directions, wrench_shape
 from .requirement import horizon_requirement, read_requirements
 from .reserve import planned_value, read_reserve
-from .schedule import DEFAULT_APPROACH_CLEARANCE, DEFAULT_SWING_HEIGHT, Schedule, StanceInterval
+from .schedule import (DEFAULT_APPROACH_CLEARANCE, DEFAULT_SWING_HEIGHT, DEFAULT_TOUCHDOWN_SPEED, Schedule,
+                       StanceInterval)
 from .stance import foot_residuals, solve_stance
 from .terrain import build_terrain
 
@@ -390,11 +391,11 @@ def with_friction_reserve(contacts, schedule: Schedule, reserve: float) -> list[
     return [dataclasses.replace(c, friction=planned_value(c.friction, reserve)) for c in contacts]
 
 
-SCHEDULE_NUMBERS = {"swing_height", "approach_clearance"}   # stance.schedule keys that are not contact frames
+SCHEDULE_NUMBERS = {"swing_height", "approach_clearance", "touchdown_speed"}   # stance.schedule keys that are not contact frames
 
 
 def read_schedule(stance: Fields, contacts, terrain, duration: float) -> Schedule:
-    """``stance.schedule``: ``{swing_height: m, approach_clearance: m, <frame>: [{window: [t0, t1] s, xy | position}, ...]}``.
+    """``stance.schedule``: ``{swing_height: m, approach_clearance: m, touchdown_speed: m/s, <frame>: [{window: [t0, t1] s, xy | position}, ...]}``.
 
     Each entry is a stance interval; a foothold is ``xy`` on the terrain (with
     an optional ``surface``) or an explicit ``position`` (explicit contacts);
@@ -417,6 +418,8 @@ def read_schedule(stance: Fields, contacts, terrain, duration: float) -> Schedul
     section.allow_only(set(frames) | SCHEDULE_NUMBERS)
     schedule.swing_height = section.number("swing_height", DEFAULT_SWING_HEIGHT, lo=0.0, hi=1.0)
     schedule.approach_clearance = section.number("approach_clearance", DEFAULT_APPROACH_CLEARANCE, lo=0.0, hi=0.5)
+    schedule.touchdown_speed = section.number("touchdown_speed", DEFAULT_TOUCHDOWN_SPEED, lo=0.0, hi=5.0,
+                                              lo_open=True)
     for key in section.data:
         require_text_key(section, key)
         if key not in SCHEDULE_NUMBERS:

@@ -60,14 +60,15 @@ def keyframes(task) -> list[tuple[float, np.ndarray]]:
 
 
 def approach_points(task) -> dict:
-    """``{(contact, knot time [s]): point (3,) m}``: the foot one knot after each lift-off and one
-    knot before each touchdown, off its stance foothold along the surface normal by the approach
-    clearance and a centimetre (when that knot is not the swing's middle, which has its own keyframe)."""
+    """``{(contact, knot time [s]): point (3,) m}``: the foot one knot after each lift-off and at the
+    last knot before each final approach, off its stance foothold along the surface normal by the
+    approach clearance and a centimetre (when that knot is not the swing's middle, which has its own
+    keyframe); through the final approach the guess moves on to the touchdown keyframe."""
     schedule, times, out = task.schedule, task.times, {}
     step = 0.01  # m beyond the clearance, so the guess starts inside the approach rows
     for swing in schedule.swings(times):
-        for knot, side in ((swing.lift + 1, "lift-off"), (swing.touch - 1, "landing")):
-            if knot == swing.mid or (side == "lift-off" and knot > swing.mid):
+        for knot, side in ((swing.lift + 1, "lift-off"), (swing.final_knot - 1, "landing")):
+            if knot == swing.mid or (side == "lift-off" and knot > swing.mid) or (side == "landing" and knot < swing.mid):
                 continue
             stance = schedule.side_of(swing, side, task.contacts)
             out[(swing.contact, float(times[knot]))] = stance.foothold + (schedule.approach_clearance + step) * stance.normal

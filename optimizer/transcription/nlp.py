@@ -38,10 +38,10 @@ LIMIT_BACKOFF = 1e-6
 # rho, so the margin certified from the solved gains meets it despite round-off.
 REQUIREMENT_BACKOFF = 1e-6
 
-register_family("swing", "swinging feet: touchdown along the surface normal, the height at mid-swing and "
-                "the approach clearance off the lift-off and landing surfaces",
+register_family("swing", "swinging feet: touchdown along the surface normal and at most the touchdown speed, "
+                "the height at mid-swing and the approach clearance off the lift-off and landing surfaces",
                 "give the swing more time (a later touchdown), a lower stance.schedule.swing_height or "
-                "approach_clearance, or a foothold nearer the body")
+                "approach_clearance, a higher touchdown_speed, or a foothold nearer the body")
 register_family("terrain clearance", "clearance: collision shapes kept away from the terrain (link vs surface)",
                 "move the hand targets or footholds away from the named surface, or lower clearance.distance")
 register_family("self clearance", "self-collision: shapes of the robot kept apart (shape vs shape)",
@@ -230,10 +230,11 @@ class Transcription:
                          LIMIT_BACKOFF, INF, unit="m g", who=list(self.structure.contact_frames))
 
     def _swings(self, V, P):
-        """Per swing: the foot without velocity along the landing surface at touchdown (``t_i . J_c v = 0``,
-        2 rows; along the normal it arrives from the approach clearance), at mid-swing its height (world z)
-        at least the swing's parameter (terrain top under the path plus the swing height), and at every
-        approach row its distance off the row's surface plane at least the approach clearance."""
+        """Per swing: the foot at touchdown without velocity along the landing surface (``t_i . J_c v = 0``,
+        2 rows) and along its normal at most the touchdown speed (``|n . J_c v| <= s``, 2 rows); at
+        mid-swing its height (world z) at least the swing's parameter (terrain top under the path plus the
+        swing height); at every approach row its distance off the row's surface plane at least the row's
+        offset (the approach clearance, none on the final approach)."""
         frames = self.structure.contact_frames
         for i, swing in enumerate(self.structure.swings):
             frame = frames[swing.contact]
@@ -244,6 +245,12 @@ class Transcription:
                 along = ca.vertcat(ca.dot(tangents[:3], velocity[rows]), ca.dot(tangents[3:], velocity[rows]))
                 self.constraints.add(f"touchdown {frame}@{swing.touch}", along, [swing.touch], unit="m/s",
                                      family="swing", who=[f"{frame} touchdown velocity along t{j}" for j in (1, 2)])
+                normal = ca.dot(P["touchdown_normals"][:, i], velocity[rows])
+                speed = P["touchdown_speed"]
+                self.constraints.add(f"touchdown speed {frame}@{swing.touch}", ca.vertcat(speed + normal, speed - normal),
+                                     [swing.touch], 0.0, INF, unit="m/s", family="swing",
+                                     who=[f"{frame} touchdown speed into the surface",
+                                          f"{frame} touchdown speed away from the surface"])
             positions, _ = self.functions.foot_motion(V["q"][:, swing.mid], V["v"][:, swing.mid])
             self.constraints.add(f"mid-swing {frame}@{swing.mid}", positions[2, swing.contact] - P["swing_heights"][i],
                                  [swing.mid], 0.0, INF, unit="m", family="swing", who=[f"{frame} mid-swing height"])
@@ -253,12 +260,9 @@ class Transcription:
             positions, _ = self.functions.foot_motion(V["q"][:, row.knot], V["v"][:, row.knot])
             plane = P["swing_planes"][:, r]
             distance = ca.dot(plane[:3], positions[:, swing.contact]) - plane[3]
-            who = [f"{frame} off the {row.side} surface"]
-            if row.knot == swing.touch - 1:  # the last step lands from between one and two clearances
-                distance = ca.vertcat(distance, P["approach_band"] - distance)
-                who.append(f"{frame} within twice the approach clearance before touchdown")
+            where = "through the landing surface" if row.side == "final" else f"off the {row.side} surface"
             self.constraints.add(f"approach {frame}@{row.knot}", distance, [row.knot], 0.0, INF, unit="m",
-                                 family="swing", who=who)
+                                 family="swing", who=[f"{frame} {'not ' if row.side == 'final' else ''}{where}"])
 
     def _hand_targets(self, V, P):
         for i, slot in enumerate(self.structure.targets):

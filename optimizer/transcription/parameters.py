@@ -10,6 +10,10 @@ from ..problem.schedule import terrain_top
 from .layout import VectorLayout
 from .structure import Structure
 
+# The touchdown speed limit is lowered by this much [m/s], more than the solver's feasibility tolerance,
+# so a solved plan keeps the task's limit exactly.
+TOUCHDOWN_SPEED_BACKOFF = 1e-6
+
 
 def parameter_layout(structure: Structure, robot) -> VectorLayout:
     """Layout of the parameter vector for ``structure`` on ``robot``.
@@ -20,12 +24,13 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     the height above z = 0 each swing's foot must reach at mid-swing;
     ``swing_planes`` (4, swing rows): per approach row the plane ``(n, offset)``
     with ``n . p >= offset`` [m] (``n`` the surface's unit normal into the
-    robot, ``offset`` its foothold's ``n . f`` plus the approach clearance);
+    robot, ``offset`` its foothold's ``n . f`` plus the approach clearance,
+    or without it on the final approach's rows);
     ``touchdown_tangents`` (6, swings): the landing surface's ``t1, t2``
     stacked (unit, world), along which the foot has no velocity at touchdown;
-    ``approach_band`` [m], how far beyond the approach clearance the foot may
-    be at the knot before touchdown (the clearance itself: it lands from
-    between one and two clearances, at most twice the clearance per step);
+    ``touchdown_normals`` (3, swings): its unit normal into the robot;
+    ``touchdown_speed`` [m/s], the largest speed along it at touchdown (less
+    a back-off, so a solved plan keeps the full limit);
     ``normals`` (3, nc K) and ``facets`` (3 m, nc K), knot k's in columns
     ``k nc .. k nc + nc - 1`` as the footholds: the unit normal and the
     pyramid rows (stacked) of the surface each contact presses on at that
@@ -46,7 +51,8 @@ def parameter_layout(structure: Structure, robot) -> VectorLayout:
     layout.add("swing_heights", len(structure.swings))
     layout.add("swing_planes", 4, len(structure.swing_rows))
     layout.add("touchdown_tangents", 6, len(structure.swings))
-    layout.add("approach_band", 1 if structure.swings else 0)
+    layout.add("touchdown_normals", 3, len(structure.swings))
+    layout.add("touchdown_speed", 1 if structure.swings else 0)
     layout.add("normals", 3, structure.nc * structure.knots)
     layout.add("facets", 3 * structure.facets, structure.nc * structure.knots)
     layout.add("min_normal_force", structure.nc)
@@ -82,10 +88,10 @@ def parameter_values(task, structure: Structure, layout: VectorLayout, posture=N
     layout.set(values, "swing_heights", np.array(heights))
     if structure.swings:
         layout.set(values, "swing_planes", swing_planes(task, structure))
-        landings = [schedule.side_of(s, "landing", task.contacts).tangents.reshape(-1) for s in structure.swings]
-        layout.set(values, "touchdown_tangents", np.array(landings).T)
-        # the rows' back-off on both sides: a solved plan keeps within twice the clearance exactly
-        layout.set(values, "approach_band", max(schedule.approach_clearance - 2 * CLEARANCE_BACKOFF, 0.0))
+        landings = [schedule.side_of(s, "landing", task.contacts) for s in structure.swings]
+        layout.set(values, "touchdown_tangents", np.array([c.tangents.reshape(-1) for c in landings]).T)
+        layout.set(values, "touchdown_normals", np.array([np.asarray(c.normal, float) for c in landings]).T)
+        layout.set(values, "touchdown_speed", schedule.touchdown_speed - TOUCHDOWN_SPEED_BACKOFF)
     normals, tangents, friction = task.schedule.surfaces(task.contacts, task.times)
     layout.set(values, "normals", normals.reshape(-1, 3).T)
     rows = [pyramid_facets(n, t, mu, structure.facets).reshape(-1)
@@ -118,12 +124,15 @@ def point_weights(task, structure: Structure) -> np.ndarray:
 
 def swing_planes(task, structure: Structure) -> np.ndarray:
     """(4, swing rows): per approach row the unit normal and ``n . foothold + approach_clearance`` [m]
-    (raised by the clearance rows' back-off, so a solved plan keeps the full clearance)."""
+    (``n . foothold`` on the final approach's rows), raised by the clearance rows' back-off, so a solved
+    plan keeps the full clearance."""
     schedule, columns = task.schedule, []
     for row in structure.swing_rows:
-        stance = schedule.side_of(structure.swings[row.swing], row.side, task.contacts)
+        side = "lift-off" if row.side == "lift-off" else "landing"
+        stance = schedule.side_of(structure.swings[row.swing], side, task.contacts)
         normal = np.asarray(stance.normal, float)
-        columns.append(np.append(normal, normal @ stance.foothold + schedule.approach_clearance + CLEARANCE_BACKOFF))
+        kept = 0.0 if row.side == "final" else schedule.approach_clearance
+        columns.append(np.append(normal, normal @ stance.foothold + kept + CLEARANCE_BACKOFF))
     return np.array(columns).T.reshape(4, len(structure.swing_rows))
 
 
