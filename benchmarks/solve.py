@@ -94,7 +94,7 @@ def child(task_name: str, knots: int, objective: str, evaluation: str, torque_ga
             runs.append(_run_figures(outcome, time.perf_counter() - began))
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux: kB
     return {"task": task_name, "knots": knots, "objective": objective, "evaluation": evaluation,
-            "strategy": strategy, "threads": planner.threads, "import": imported, "fresh": runs[0],
+            "strategy": strategy, "threads": planner.threads_for(planner.prepared(task)), "import": imported, "fresh": runs[0],
             "built": runs[1] if again else None, "peak_mb": peak_mb}
 
 

@@ -54,8 +54,11 @@ from .transcription.structure import structure_of
 EVALUATIONS = ("compiled", "expanded", "mapped")
 DEFAULT_EVALUATION = "expanded"
 # Threads evaluating the mapped knot functions (compiled and mapped evaluations) when the planner is
-# not told: this environment variable, else every core the process may use; 1 is serial.
+# not told: this environment variable, else every core the process may use but no more than one per
+# KNOTS_PER_THREAD knots (short plans stay serial: at 8 knots two threads evaluated the robust stage
+# 1.27 times slower than one; benchmarks/RESULTS.md, "Threaded knot functions"); 1 is serial.
 THREADS_ENVIRONMENT = "BRACE_THREADS"
+KNOTS_PER_THREAD = 10
 _NOTICES: list[str] = []
 _SAID: set[str] = set()
 
@@ -75,15 +78,17 @@ def usable_cores() -> int:
         return max(1, os.cpu_count() or 1)
 
 
-def evaluation_threads(threads: int | None = None) -> int:
-    """Threads for the mapped knot functions: ``threads``, else ``$BRACE_THREADS``, else :func:`usable_cores`.
+def evaluation_threads(threads: int | None = None, knots: int | None = None) -> int:
+    """Threads for the mapped knot functions: ``threads``, else ``$BRACE_THREADS``, else
+    :func:`usable_cores`, then (the cores only) at most one per :data:`KNOTS_PER_THREAD` of ``knots``.
 
     A bad ``$BRACE_THREADS`` is an :class:`InputError`; a bad ``threads`` a ValueError.
     """
     if threads is None:
         text = os.environ.get(THREADS_ENVIRONMENT, "").strip()
         if not text:
-            return usable_cores()
+            cores = usable_cores()
+            return cores if knots is None else max(1, min(cores, knots // KNOTS_PER_THREAD))
         if not text.isdigit() or int(text) < 1:
             raise InputError(f"${THREADS_ENVIRONMENT}", "", "a whole number >= 1 (threads per solve)", text)
         return int(text)
@@ -238,9 +243,10 @@ class Planner:
         Threads evaluating the knot functions of the ``compiled`` and
         ``mapped`` evaluations (the knots split into that many blocks, never
         more blocks than knots; plans do not depend on it); 1 is serial. None
-        (default): ``$BRACE_THREADS``, else every usable core
-        (:func:`evaluation_threads`). The ``expanded`` evaluation is one
-        scalar graph and always serial.
+        (default): ``$BRACE_THREADS``, else every usable core but at most
+        one per :data:`KNOTS_PER_THREAD` knots (:func:`evaluation_threads`,
+        :meth:`threads_for`). The ``expanded`` evaluation is one scalar graph
+        and always serial.
 
     A planner serializes its own solves (one lock per planner): use one
     planner per thread to solve in parallel.
@@ -262,7 +268,9 @@ class Planner:
                                          or continuation < 2):
             raise ValueError(f"continuation must be a whole number >= 2 or None, not {continuation!r}")
         self.continuation, self.warm_start = continuation, bool(warm_start)
-        self.threads = 1 if evaluation == "expanded" else evaluation_threads(threads)
+        if threads is not None or evaluation != "expanded":
+            evaluation_threads(threads)   # a bad setting (or $BRACE_THREADS) stops here
+        self.threads = threads
         self._symbolic: dict[str, SymbolicRobot] = {}
         self._transcriptions: dict[tuple, Transcription] = {}
         self._built: dict[tuple, BuiltNLP] = {}
@@ -312,9 +320,13 @@ class Planner:
 
     def transcription_key(self, task, objective: str) -> tuple:
         """Everything a transcription reads that is not a parameter: robot, structure, objective, gain form,
-        evaluation, threads."""
+        evaluation, threads (:meth:`threads_for`)."""
         return (robot_key(task.robot), structure_of(task), objective, self.torque_gains, self.evaluation,
-                self.threads)
+                self.threads_for(task))
+
+    def threads_for(self, task) -> int:
+        """Threads evaluating the knot functions of ``task`` (at its own knot count); 1 when expanded."""
+        return 1 if self.expands else evaluation_threads(self.threads, task.knots)
 
     def build_key(self, task, objective: str, warm: bool = False) -> tuple:
         """:meth:`transcription_key` plus what the built solver reads: backend, expansion, options, warm start."""
@@ -336,7 +348,8 @@ class Planner:
             if key not in self._transcriptions:
                 transcription = Transcription(task.robot, self.symbolic_robot(task.robot), structure_of(task),
                                               objective_named(objective), torque_gains=self.torque_gains,
-                                              compiled=self.evaluation == "compiled", threads=self.threads)
+                                              compiled=self.evaluation == "compiled",
+                                              threads=self.threads_for(task))
                 if transcription.compile_failure is not None:
                     _notice(f"knot functions not compiled: {transcription.compile_failure}; "
                             "evaluating them uncompiled (slower iterations)")
@@ -566,11 +579,10 @@ _SHARED_LOCK = threading.Lock()
 def shared_planner(evaluation: str = DEFAULT_EVALUATION, torque_gains: str = "eliminated",
                    threads: int | None = None) -> Planner:
     """The planner :func:`solve` uses, one per setting (its files go when the interpreter exits)."""
-    count = 1 if evaluation == "expanded" else evaluation_threads(threads)
     with _SHARED_LOCK:
-        key = (evaluation, torque_gains, count)
+        key = (evaluation, torque_gains, threads)
         if key not in _SHARED:
-            _SHARED[key] = Planner(evaluation=evaluation, torque_gains=torque_gains, threads=count)
+            _SHARED[key] = Planner(evaluation=evaluation, torque_gains=torque_gains, threads=threads)
         return _SHARED[key]
 
 
