@@ -4,6 +4,7 @@
                                [--objective robust] [--evaluation compiled,expanded,mapped]
                                [--again] [--compare 60] [--torque-gains variables]
                                [--strategy direct,coarse-3,coarse-warm-3,warm-start] [--warm-only]
+                               [--threads 1,2]
                                [--write benchmarks/RESULTS.md]
 
 Every measurement runs in a child process of its own (``python benchmarks/solve.py --child ...``),
@@ -28,7 +29,11 @@ about K/R knots, that plan moved onto the K knots as the objective's start), ``c
 (``Planner(continuation=R, warm_start=True)``: the same, the full stage also warm-started from the
 coarse stage's multipliers moved onto the K knots), ``warm-start``
 (``Planner(warm_start=True)``: from the seed with its multipliers); ``--warm-only`` measures compiled evaluation
-only with a warm cache (one cache folder per task, filled by an unrecorded first plan). Prints Markdown; ``--write`` replaces the "## Solve" section of the
+only with a warm cache (one cache folder per task, filled by an unrecorded first plan). ``--threads``
+lists thread counts of the mapped knot functions (``Planner(threads=N)``; default: the planner's own
+choice) and adds a table of the objective stage per count: iterations, time, evaluation time per
+function (Hessian of the Lagrangian, constraint Jacobian, the rest), Ipopt's own time per iteration
+and the ratio to the first count listed. Prints Markdown; ``--write`` replaces the "## Solve" section of the
 results file (``--section`` names another). Record the machine's load with the figures: timings on a busy machine are slow.
 """
 from __future__ import annotations
@@ -73,7 +78,7 @@ def strategy_settings(strategy: str) -> dict:
 
 
 def child(task_name: str, knots: int, objective: str, evaluation: str, torque_gains: str, again: bool,
-          strategy: str = "direct") -> dict:
+          strategy: str = "direct", threads: int | None = None) -> dict:
     """Plan once from a fresh process and, with ``again``, once more with the built solvers kept."""
     started = time.perf_counter()
     from optimizer.planner import Planner
@@ -81,7 +86,7 @@ def child(task_name: str, knots: int, objective: str, evaluation: str, torque_ga
     imported = time.perf_counter() - started
     task = load_task(ROOT / "tasks" / f"{task_name}.yaml")
     runs = []
-    with Planner(knots=knots, evaluation=evaluation, torque_gains=torque_gains,
+    with Planner(knots=knots, evaluation=evaluation, torque_gains=torque_gains, threads=threads,
                  **strategy_settings(strategy)) as planner:
         for _ in range(2 if again else 1):
             began = time.perf_counter()
@@ -89,12 +94,14 @@ def child(task_name: str, knots: int, objective: str, evaluation: str, torque_ga
             runs.append(_run_figures(outcome, time.perf_counter() - began))
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0  # Linux: kB
     return {"task": task_name, "knots": knots, "objective": objective, "evaluation": evaluation,
-            "strategy": strategy, "import": imported, "fresh": runs[0], "built": runs[1] if again else None, "peak_mb": peak_mb}
+            "strategy": strategy, "threads": planner.threads_for(planner.prepared(task)), "import": imported, "fresh": runs[0],
+            "built": runs[1] if again else None, "peak_mb": peak_mb}
 
 
 def _run_figures(outcome, wall: float) -> dict:
     stages = [{"objective": s.objective, "status": s.status, "iterations": s.iterations, "knots": s.knots,
-               "solve": s.solve_time, "eval": s.eval_time, "build": s.build_time} for s in outcome.stages]
+               "solve": s.solve_time, "eval": s.eval_time, "build": s.build_time, "split": s.eval_split}
+              for s in outcome.stages]
     margin = outcome.plan.margin if outcome.plan is not None else None
     return {"wall": wall, "stages": stages,
             "margin_min": None if margin is None else float(margin.min()),
@@ -159,6 +166,8 @@ def run_rows(result: dict) -> list[str]:
         whole = run["wall"] + (result["import"] if label == "fresh" else 0.0)
         evaluation = result["evaluation"] + (f", {result['strategy']}"
                                              if result.get("strategy", "direct") != "direct" else "")
+        evaluation += f", {result['threads']} thread{'s' if result['threads'] != 1 else ''}" \
+            if result.get("threads_listed") else ""
         rows.append(f"| {result['task']} | {result['knots']} | {evaluation} | "
                     f"{'fresh process' if label == 'fresh' else 'built kept'} | {whole:.1f} | {build:.1f} | "
                     f"{stages_text(seeds, result['knots'])} | {stages_text(mains, result['knots'])} | {ratio} | "
@@ -208,6 +217,32 @@ def per_iteration_rows(results: list[dict], labels: list[tuple]) -> list[str]:
     return rows
 
 
+def objective_stage(result: dict) -> dict | None:
+    """The fresh plan's objective stage at the full knot count, or None (a feasibility plan)."""
+    mains = [s for s in result["fresh"]["stages"]
+             if s["objective"] != "feasible" and s.get("knots") in (None, result["knots"])]
+    return mains[-1] if mains else None
+
+
+def thread_rows(results: list[dict]) -> list[str]:
+    """Markdown rows: the objective stage per thread count, and its ratios to the first count of its group."""
+    rows, first = [], {}
+    for r in results:
+        stage = objective_stage(r)
+        if not r.get("threads_listed") or stage is None:
+            continue
+        split = stage.get("split", {})
+        hess, jac = split.get("hess_l", 0.0), split.get("jac_g", 0.0)
+        own = (stage["solve"] - stage["eval"]) / max(stage["iterations"], 1)
+        figures = (stage["solve"], stage["eval"], own)
+        base = first.setdefault((r["task"], r["knots"], r["evaluation"], r.get("strategy", "direct")), figures)
+        ratios = " | ".join(f"{a / b:.2f}" if b > 0 else "-" for a, b in zip(figures, base))
+        rows.append(f"| {r['task']} | {r['knots']} | {r['evaluation']} | {r['threads']} | {stage['iterations']} | "
+                    f"{stage['solve']:.2f} | {stage['eval']:.2f} ({hess:.2f} / {jac:.2f} / "
+                    f"{stage['eval'] - hess - jac:.2f}) | {own:.3f} | {ratios} |")
+    return rows
+
+
 def load_text() -> str:
     try:
         return os.popen("uptime").read().strip()
@@ -229,6 +264,7 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
         + (" --compare-only" if args.compare_only else "")
         + (f" --strategy {args.strategy}" if args.strategy != "direct" else "")
         + (" --warm-only" if args.warm_only else "")
+        + (f" --threads {args.threads}" if args.threads else "")
         + (f" --section '{args.section}'" if args.section != "Solve" else "") + "` "
         f"({datetime.date.today().isoformat()}, {os.cpu_count()} cores, {cpu}, Python "
         f"{platform.python_version()}, `OPENBLAS_NUM_THREADS=1`, Ipopt + MUMPS through CasADi); "
@@ -264,8 +300,20 @@ def section(args, results, growth, comparison, elapsed, loads) -> str:
         lines += ["", "Growth exponent of the whole-plan time against knots (fit over the knot counts above):", "",
                   "| task | evaluation | fresh process | built kept |", "| --- | --- | ---: | ---: |"]
         lines += [f"| {task} | {ev} | {fmt(a)} | {fmt(b)} |" for task, ev, a, b in growth]
-    iteration_rows = per_iteration_rows(results, sorted({(r["task"], r["evaluation"], r.get("strategy", "direct"))
-                                                        for r in results}))
+    several_threads = bool(args.threads) and "," in args.threads   # per-iteration fits would mix thread counts
+    iteration_rows = [] if several_threads else per_iteration_rows(
+        results, sorted({(r["task"], r["evaluation"], r.get("strategy", "direct")) for r in results}))
+    threaded = thread_rows(results)
+    if threaded:
+        lines += ["", "Objective stage per thread count of the knot functions (`Planner(threads=N)`, fresh "
+                  "process each): iterations, stage time, evaluation time (Hessian of the Lagrangian / "
+                  "constraint Jacobian / the rest), Ipopt's own time per iteration (stage time less "
+                  "evaluation, over iterations: factorizations, line search), and each of the three times "
+                  "divided by the first thread count's of the same task:", "",
+                  "| task | knots | evaluation | threads | iterations | stage [s] | eval [s] (hess_l / jac_g / "
+                  "other) | Ipopt own [s/it] | stage ratio | eval ratio | Ipopt own ratio |",
+                  "| --- | ---: | --- | ---: | ---: | ---: | --- | ---: | ---: | ---: | ---: |"]
+        lines += threaded
     if iteration_rows:
         lines += ["", "Objective stage's solve time per iteration against knots (fresh-process plans; knots: time "
                   "per iteration (iterations)) and its growth exponent: steadier than the whole time, which "
@@ -293,11 +341,11 @@ def fmt(value) -> str:
 
 
 def measured(task: str, knots: int, evaluation: str, args, strategy: str = "direct",
-             cache: str | None = None) -> list[dict]:
+             cache: str | None = None, threads: str = "default") -> list[dict]:
     """One fresh-process measurement; for ``compiled`` two: an empty cache folder, then the one it left
     (one, with the folder ``cache``, when that is given)."""
     child = ["--child", task, str(knots), args.objective, evaluation, args.torque_gains,
-             "again" if args.again else "once", strategy]
+             "again" if args.again else "once", strategy, threads]
     if evaluation != "compiled":
         return [in_child(*child)]
     if cache is not None:
@@ -333,14 +381,16 @@ def main(argv=None) -> int:
                              "(default direct)")
     parser.add_argument("--warm-only", action="store_true",
                         help="compiled evaluation with a warm cache only (one folder per task, filled first)")
-    parser.add_argument("--child", nargs=7, metavar=("TASK", "KNOTS", "OBJECTIVE", "EVALUATION", "GAINS", "AGAIN",
-                                                     "STRATEGY"), help=argparse.SUPPRESS)
+    parser.add_argument("--threads", metavar="N,...",
+                        help="thread counts of the knot functions to measure, e.g. 1,2 (default: the planner's)")
+    parser.add_argument("--child", nargs=8, metavar=("TASK", "KNOTS", "OBJECTIVE", "EVALUATION", "GAINS", "AGAIN",
+                                                     "STRATEGY", "THREADS"), help=argparse.SUPPRESS)
     parser.add_argument("--compare-child", nargs=2, metavar=("TASK", "KNOTS"), help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.child:
-        task, knots, objective, evaluation, gains, again, strategy = args.child
-        print(json.dumps(child(task, int(knots), objective, evaluation, gains, again == "again", strategy)),
-              flush=True)
+        task, knots, objective, evaluation, gains, again, strategy, threads = args.child
+        print(json.dumps(child(task, int(knots), objective, evaluation, gains, again == "again", strategy,
+                               None if threads == "default" else int(threads))), flush=True)
         return 0
     if args.compare_child:
         print(json.dumps(compare_child(args.compare_child[0], int(args.compare_child[1]))), flush=True)
@@ -349,6 +399,9 @@ def main(argv=None) -> int:
     results, comparison, growth = [], [], []
     tasks, evaluations = args.tasks.split(","), args.evaluation.split(",")
     strategies = args.strategy.split(",")
+    thread_counts = args.threads.split(",") if args.threads else ["default"]
+    if not all(t.isdigit() and int(t) >= 1 for t in thread_counts if t != "default"):
+        raise SystemExit(f"--threads: whole numbers >= 1, not '{args.threads}'")
     for strategy in strategies:
         strategy_settings(strategy)   # a wrong entry stops here, before any measurement
     for task in [] if args.compare_only else tasks:
@@ -356,17 +409,19 @@ def main(argv=None) -> int:
         try:
             if cache is not None and "compiled" in evaluations:  # fills the cache; not recorded
                 in_child("--child", task, args.knots.split(",")[0], args.objective, "compiled", args.torque_gains,
-                         "once", "direct", cache=cache)
+                         "once", "direct", "1", cache=cache)
             for evaluation in evaluations:
                 for knots in (int(k) for k in args.knots.split(",")):
                     for strategy in strategies:
-                        for result in measured(task, knots, evaluation, args, strategy, cache):
-                            results.append(result)
-                            print("\n".join(run_rows(result)), flush=True)
+                        for threads in thread_counts:
+                            for result in measured(task, knots, evaluation, args, strategy, cache, threads):
+                                result["threads_listed"] = bool(args.threads)
+                                results.append(result)
+                                print("\n".join(run_rows(result)), flush=True)
         finally:
             if cache is not None:
                 shutil.rmtree(cache, ignore_errors=True)
-        for evaluation in evaluations:
+        for evaluation in evaluations if len(thread_counts) == 1 else []:   # a fit over one thread count
             for label in COMPILED_LABELS if evaluation == "compiled" else [evaluation]:
                 for strategy in strategies:
                     name = label + (f", {strategy}" if strategy != "direct" else "")

@@ -20,6 +20,7 @@ variants) build each NLP once; it removes its temporary files on
 from __future__ import annotations
 
 import hashlib
+import os
 import shutil
 import threading
 import weakref
@@ -32,7 +33,7 @@ from . import __version__, supervisor
 from .analysis.clearance import clearance_meta
 from .analysis.knot_response import knot_responses
 from .analysis.linear_margin import best_linear_margin, certify_gains
-from .errors import SolveFailed
+from .errors import InputError, SolveFailed
 from .planfile import Plan, min_normal_force_meta, preload_meta, response_gains_key
 from .problem.point_weights import combined_margin
 from .problem.requirement import as_json as requirements_json
@@ -52,6 +53,12 @@ from .transcription.structure import structure_of
 # How a planner evaluates the NLP (see Planner); compiled falls back to mapped without a C compiler.
 EVALUATIONS = ("compiled", "expanded", "mapped")
 DEFAULT_EVALUATION = "expanded"
+# Threads evaluating the mapped knot functions (compiled and mapped evaluations) when the planner is
+# not told: this environment variable, else every core the process may use but no more than one per
+# KNOTS_PER_THREAD knots (short plans stay serial: at 8 knots two threads evaluated the robust stage
+# 1.27 times slower than one; benchmarks/RESULTS.md, "Threaded knot functions"); 1 is serial.
+THREADS_ENVIRONMENT = "BRACE_THREADS"
+KNOTS_PER_THREAD = 10
 _NOTICES: list[str] = []
 _SAID: set[str] = set()
 
@@ -61,6 +68,33 @@ def _notice(text: str) -> None:
     if text not in _SAID:
         _SAID.add(text)
         _NOTICES.append(text)
+
+
+def usable_cores() -> int:
+    """Cores this process may run on (its CPU affinity where the system reports it)."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # no affinity on this system
+        return max(1, os.cpu_count() or 1)
+
+
+def evaluation_threads(threads: int | None = None, knots: int | None = None) -> int:
+    """Threads for the mapped knot functions: ``threads``, else ``$BRACE_THREADS``, else
+    :func:`usable_cores`, then (the cores only) at most one per :data:`KNOTS_PER_THREAD` of ``knots``.
+
+    A bad ``$BRACE_THREADS`` is an :class:`InputError`; a bad ``threads`` a ValueError.
+    """
+    if threads is None:
+        text = os.environ.get(THREADS_ENVIRONMENT, "").strip()
+        if not text:
+            cores = usable_cores()
+            return cores if knots is None else max(1, min(cores, knots // KNOTS_PER_THREAD))
+        if not text.isdigit() or int(text) < 1:
+            raise InputError(f"${THREADS_ENVIRONMENT}", "", "a whole number >= 1 (threads per solve)", text)
+        return int(text)
+    if isinstance(threads, bool) or not isinstance(threads, int) or threads < 1:
+        raise ValueError(f"threads must be a whole number >= 1 or None, not {threads!r}")
+    return threads
 
 
 def take_notice() -> list[str]:
@@ -75,7 +109,8 @@ class StageReport:
     """One solver run: objective, neutral status, iterations, times [s], violation, knot count.
 
     ``eval_time`` is the part of ``solve_time`` spent evaluating the NLP's
-    functions and derivatives.
+    functions and derivatives, ``eval_split`` that time per function [s]
+    (:attr:`optimizer.solver.backend.SolverResult.eval_split`).
     """
 
     objective: str
@@ -88,6 +123,7 @@ class StageReport:
     message: str
     eval_time: float = 0.0
     knots: int = 0
+    eval_split: dict = field(default_factory=dict)
 
     def as_dict(self) -> dict:
         return dict(self.__dict__)
@@ -203,6 +239,14 @@ class Planner:
         zero for the robustness rows); with ``continuation``, the full-grid
         stage from the coarse robust stage's whole primal-dual point moved
         onto the full grid (:meth:`coarse_to_fine`). Off by default.
+    threads : int, optional
+        Threads evaluating the knot functions of the ``compiled`` and
+        ``mapped`` evaluations (the knots split into that many blocks, never
+        more blocks than knots; plans do not depend on it); 1 is serial. None
+        (default): ``$BRACE_THREADS``, else every usable core but at most
+        one per :data:`KNOTS_PER_THREAD` knots (:func:`evaluation_threads`,
+        :meth:`threads_for`). The ``expanded`` evaluation is one scalar graph
+        and always serial.
 
     A planner serializes its own solves (one lock per planner): use one
     planner per thread to solve in parallel.
@@ -210,7 +254,8 @@ class Planner:
 
     def __init__(self, objective: str | None = None, knots: int | None = None, backend: str = DEFAULT_BACKEND,
                  options: dict | None = None, *, evaluation: str = DEFAULT_EVALUATION,
-                 torque_gains: str = "eliminated", continuation: int | None = None, warm_start: bool = False):
+                 torque_gains: str = "eliminated", continuation: int | None = None, warm_start: bool = False,
+                 threads: int | None = None):
         if objective is not None:
             objective_named(objective)
         if evaluation not in EVALUATIONS:
@@ -223,6 +268,9 @@ class Planner:
                                          or continuation < 2):
             raise ValueError(f"continuation must be a whole number >= 2 or None, not {continuation!r}")
         self.continuation, self.warm_start = continuation, bool(warm_start)
+        if threads is not None or evaluation != "expanded":
+            evaluation_threads(threads)   # a bad setting (or $BRACE_THREADS) stops here
+        self.threads = threads
         self._symbolic: dict[str, SymbolicRobot] = {}
         self._transcriptions: dict[tuple, Transcription] = {}
         self._built: dict[tuple, BuiltNLP] = {}
@@ -271,8 +319,14 @@ class Planner:
         return dict(task.solver_options, **self.options)
 
     def transcription_key(self, task, objective: str) -> tuple:
-        """Everything a transcription reads that is not a parameter: robot, structure, objective, gain form, evaluation."""
-        return (robot_key(task.robot), structure_of(task), objective, self.torque_gains, self.evaluation)
+        """Everything a transcription reads that is not a parameter: robot, structure, objective, gain form,
+        evaluation, threads (:meth:`threads_for`)."""
+        return (robot_key(task.robot), structure_of(task), objective, self.torque_gains, self.evaluation,
+                self.threads_for(task))
+
+    def threads_for(self, task) -> int:
+        """Threads evaluating the knot functions of ``task`` (at its own knot count); 1 when expanded."""
+        return 1 if self.expands else evaluation_threads(self.threads, task.knots)
 
     def build_key(self, task, objective: str, warm: bool = False) -> tuple:
         """:meth:`transcription_key` plus what the built solver reads: backend, expansion, options, warm start."""
@@ -294,7 +348,8 @@ class Planner:
             if key not in self._transcriptions:
                 transcription = Transcription(task.robot, self.symbolic_robot(task.robot), structure_of(task),
                                               objective_named(objective), torque_gains=self.torque_gains,
-                                              compiled=self.evaluation == "compiled")
+                                              compiled=self.evaluation == "compiled",
+                                              threads=self.threads_for(task))
                 if transcription.compile_failure is not None:
                     _notice(f"knot functions not compiled: {transcription.compile_failure}; "
                             "evaluating them uncompiled (slower iterations)")
@@ -467,7 +522,8 @@ class Planner:
             _append_log(built.log, log_start, log_path, objective)
         outcome.stages.append(StageReport(objective, result.status, result.success, result.iterations,
                                           result.wall_time, built.unreported_build_time, result.max_violation,
-                                          result.message, result.eval_time, task.knots))
+                                          result.message, result.eval_time, task.knots,
+                                          dict(result.eval_split)))
         built.unreported_build_time = 0.0  # reported once, with the first solve that paid for it
         outcome.last = layout.unpack(result.x)
         outcome.violations = transcription.constraints.violations(result.g, transcription.lbg, transcription.ubg)
@@ -520,17 +576,19 @@ _SHARED: dict[tuple, Planner] = {}
 _SHARED_LOCK = threading.Lock()
 
 
-def shared_planner(evaluation: str = DEFAULT_EVALUATION, torque_gains: str = "eliminated") -> Planner:
+def shared_planner(evaluation: str = DEFAULT_EVALUATION, torque_gains: str = "eliminated",
+                   threads: int | None = None) -> Planner:
     """The planner :func:`solve` uses, one per setting (its files go when the interpreter exits)."""
     with _SHARED_LOCK:
-        key = (evaluation, torque_gains)
+        key = (evaluation, torque_gains, threads)
         if key not in _SHARED:
-            _SHARED[key] = Planner(evaluation=evaluation, torque_gains=torque_gains)
+            _SHARED[key] = Planner(evaluation=evaluation, torque_gains=torque_gains, threads=threads)
         return _SHARED[key]
 
 
 def solve(task, objective: str | None = None, *, knots: int | None = None, progress=None,
-          log_path=None, evaluation: str = DEFAULT_EVALUATION, torque_gains: str = "eliminated") -> SolveOutcome:
+          log_path=None, evaluation: str = DEFAULT_EVALUATION, torque_gains: str = "eliminated",
+          threads: int | None = None) -> SolveOutcome:
     """Plan ``task`` with ``objective`` (default: the task's own); a thin wrapper around :class:`Planner`.
 
     Parameters
@@ -546,7 +604,7 @@ def solve(task, objective: str | None = None, *, knots: int | None = None, progr
         stage has no margin variables.
     log_path : path, optional
         The solver's logs of every stage are appended to this file.
-    evaluation, torque_gains
+    evaluation, torque_gains, threads
         As for :class:`Planner`.
 
     Returns
@@ -559,7 +617,8 @@ def solve(task, objective: str | None = None, *, knots: int | None = None, progr
         raise KeyError(f"unknown objective '{objective}'; known: {', '.join(OBJECTIVES)}")
     if knots is not None:
         task = task.with_knots(knots)
-    return shared_planner(evaluation, torque_gains).solve(task, objective, progress=progress, log_path=log_path)
+    return shared_planner(evaluation, torque_gains, threads).solve(task, objective, progress=progress,
+                                                                   log_path=log_path)
 
 
 def _listener(progress, objective, transcription):

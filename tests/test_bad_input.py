@@ -206,6 +206,8 @@ CASES = {
     "task-knots-below-2": (task_case(changed(TASK, horizon__knots=1)), r"field 'horizon.knots'.*a whole number >= 2"),
     "task-knots-huge": (task_case(changed(TASK, horizon__knots=10 ** 7)), r"field 'horizon.knots'.*a whole number <= 2000"),
     "cli-knots-below-2": (task_case(TASK, extra=("--knots", "1")), r"command line: field '--knots'.*from 2 to 2000"),
+    "cli-threads-zero": (task_case(TASK, extra=("--threads", "0")),
+                         r"command line: field '--threads': expected a whole number from 1 to 512, got 0"),
     "cli-memory-limit-no-unit": (task_case(TASK, extra=("--memory-limit", "8")),
                                  r"command line: field '--memory-limit': expected a size with a unit, like 8G or 512M, got '8'"),
     "task-target-outside-horizon": (task_case(changed(TASK, hand_targets__0__window=[1.5, 2.5])),

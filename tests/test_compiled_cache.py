@@ -186,3 +186,62 @@ def test_cache_command_shows_and_clears(own_cache, capsys):
     assert main(["cache", "clear", "--cache-dir", str(own_cache)]) == 0
     assert "cleared" in capsys.readouterr().out
     assert not list(own_cache.rglob("*.so"))
+
+
+def _nlp_classes(transcription) -> set[str]:
+    """Class names of every function inside the transcription's NLP (``ThreadMap`` for a threaded map)."""
+    nlp = transcription.nlp
+    whole = ca.Function("nlp", [nlp["x"], nlp["p"]], [nlp["f"], nlp["g"]])
+    return {f.class_name() for f in whole.find_functions()}
+
+
+def test_threaded_knot_functions_give_the_serial_plan(ramp):
+    # Four threads over 6 knots (5 for the integration steps) also splits the knots unevenly.
+    with Planner(evaluation="compiled", threads=1) as serial, Planner(evaluation="compiled", threads=4) as threaded:
+        one, four = serial.solve(ramp, "robust"), threaded.solve(ramp, "robust")
+        transcription = threaded.transcription(ramp, "robust")
+        assert "ThreadMap" in _nlp_classes(transcription)
+        assert "ThreadMap" not in _nlp_classes(serial.transcription(ramp, "robust"))
+        # Pinocchio rnea: the threaded map of the equations of motion over the knots is rnea / (m g) at each knot.
+        model, rng = ramp.robot.model, np.random.default_rng(5)
+        q = np.column_stack([pin.randomConfiguration(model, -np.ones(model.nq), np.ones(model.nq))
+                             for _ in range(KNOTS)])
+        v, a = rng.standard_normal((model.nv, KNOTS)), rng.standard_normal((model.nv, KNOTS))
+        dynamics = transcription._map(transcription.functions.dynamics, KNOTS)
+        nc = transcription.structure.nc
+        residual = np.array(dynamics(q, v, a, np.zeros((model.nv - 6, KNOTS)), np.zeros((3 * nc, KNOTS))))
+        weight = ramp.robot.mass * np.linalg.norm(ramp.robot.gravity)
+        for k in range(KNOTS):
+            want = pin.rnea(model, model.createData(), q[:, k], v[:, k], a[:, k]) / weight
+            assert np.allclose(residual[:, k], want, atol=1e-10), k
+    assert one.success and four.success
+    # The serial evaluation is the reference: each knot is evaluated by the same code on the same numbers,
+    # so the solver takes the same path (same iterations) to the same plan.
+    assert [s.iterations for s in four.stages] == [s.iterations for s in one.stages]
+    for name in ("q", "v", "a", "tau", "contact_forces", "margin"):
+        want = getattr(one.plan, name)
+        assert np.allclose(getattr(four.plan, name), want, rtol=1e-9, atol=1e-9 * max(1.0, np.abs(want).max())), name
+    report = check_plan(four.plan)  # Pinocchio re-check: dynamics, integration, contacts, limits
+    assert report.passed, [r.reason() for r in report.failures()]
+
+
+def test_thread_count_from_the_planner_the_environment_or_the_cores(monkeypatch, tmp_path, capsys):
+    from optimizer.planner import KNOTS_PER_THREAD, THREADS_ENVIRONMENT, evaluation_threads, usable_cores
+
+    ramp = load_task(ROOT / "tasks" / "steep_ramp.yaml")
+    cores = len(os.sched_getaffinity(0))
+    monkeypatch.delenv(THREADS_ENVIRONMENT, raising=False)
+    assert evaluation_threads() == usable_cores() == cores
+    assert evaluation_threads(knots=KNOTS_PER_THREAD - 1) == 1           # short plans stay serial
+    assert Planner(evaluation="compiled").threads_for(ramp.with_knots(200 * KNOTS_PER_THREAD)) == cores
+    monkeypatch.setenv(THREADS_ENVIRONMENT, "3")
+    assert evaluation_threads() == 3 and evaluation_threads(1) == 1 and evaluation_threads(knots=6) == 3
+    assert Planner(evaluation="compiled").threads_for(ramp) == 3
+    assert Planner(evaluation="expanded").threads_for(ramp) == 1
+    with pytest.raises(ValueError):
+        Planner(evaluation="compiled", threads=0)
+    monkeypatch.setenv(THREADS_ENVIRONMENT, "two")
+    code = main(["solve", str(ROOT / "tasks" / "steep_ramp.yaml"), "--check-only", "--skip-checks",
+                 "--out", str(tmp_path / "plan.npz")])
+    err = capsys.readouterr().err.strip()
+    assert code == 2 and err.count("\n") == 0 and "$BRACE_THREADS: expected a whole number >= 1" in err, err

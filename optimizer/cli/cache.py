@@ -39,6 +39,27 @@ def add_evaluation_option(parser: argparse.ArgumentParser) -> None:
                              f"iterations); default {DEFAULT_EVALUATION}")
 
 
+MAX_THREADS = 512
+
+
+def add_threads_option(parser: argparse.ArgumentParser, default_text: str) -> None:
+    parser.add_argument("--threads", type=int, metavar="N",
+                        help="threads evaluating the knot functions of the compiled and mapped evaluations "
+                             f"(1: serial; the expanded evaluation is always serial); default {default_text}")
+
+
+def threads_option(args) -> int | None:
+    """``--threads`` checked (None when not given); a bad ``$BRACE_THREADS`` is reported here too."""
+    from ..planner import evaluation_threads
+
+    if args.threads is None:
+        evaluation_threads()  # raises InputError naming the variable when it is not a whole number >= 1
+        return None
+    if not 1 <= args.threads <= MAX_THREADS:
+        raise InputError("command line", "--threads", f"a whole number from 1 to {MAX_THREADS}", args.threads)
+    return args.threads
+
+
 def apply_cache_option(args) -> None:
     """Use ``--cache-dir`` when given (for this process and the workers it starts)."""
     if getattr(args, "cache_dir", None):

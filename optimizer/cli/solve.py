@@ -29,7 +29,8 @@ from ..memory import SIZE_TEXT, available_memory, format_size, parse_size
 from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
 from ..notices import SAFETY
-from .cache import add_cache_option, add_evaluation_option, apply_cache_option, compiler_note
+from .cache import (add_cache_option, add_evaluation_option, add_threads_option, apply_cache_option,
+                    compiler_note, threads_option)
 from .shortfalls import shortfall_lines, use_colour
 
 if TYPE_CHECKING:
@@ -62,6 +63,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              f"(default {100 * DEFAULT_WARN_FRACTION:.0f} %% of the robot's weight)")
     add_cache_option(parser)
     add_evaluation_option(parser)
+    add_threads_option(parser, "$BRACE_THREADS, else one per usable core")
 
 
 def run(args) -> int:
@@ -81,6 +83,7 @@ def _run(args) -> int:
             raise InputError(CLI, "--knots", f"a whole number from 2 to {MAX_KNOTS}", args.knots)
         task = task.with_knots(args.knots)
     task = with_cli_requirement(task, args)
+    threads = threads_option(args)
     objective = args.objective or task.objective
     out = output_path(args, objective)
     limit = memory_limit(args, task)
@@ -102,7 +105,7 @@ def _run(args) -> int:
           f"robot '{task.robot.name}' ({task.robot.mass:.1f} kg)")
     started = time.perf_counter()
     outcome = solve(task, objective, progress=None if args.quiet else _print_progress, log_path=log_path,
-                    evaluation=args.evaluation)
+                    evaluation=args.evaluation, threads=threads)
     elapsed = time.perf_counter() - started
     for text in take_notice() if note is None else []:
         print(f"note: {text}")

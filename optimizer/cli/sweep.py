@@ -18,7 +18,8 @@ import sys
 from pathlib import Path
 
 from ..errors import InputError
-from .cache import add_cache_option, add_evaluation_option, apply_cache_option, compiler_note
+from .cache import (add_cache_option, add_evaluation_option, add_threads_option, apply_cache_option,
+                    compiler_note, threads_option)
 from .notices import SAFETY
 
 # Stopping: the supervisor passes Ctrl-C / SIGTERM on and waits this long [s] for the sweep to
@@ -38,6 +39,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--quiet", action="store_true", help="no progress line")
     add_cache_option(parser)
     add_evaluation_option(parser)
+    add_threads_option(parser, "1 per worker (the workers already share the cores)")
 
 
 def run(args) -> int:
@@ -52,6 +54,7 @@ def run(args) -> int:
     from ..sweep.runner import run_sweep
     from ..sweep.spec import load_sweep
 
+    threads = 1 if args.threads is None else threads_option(args)
     sweep = load_sweep(args.sweep)
     out = Path(args.out) if args.out else Path("sweeps") / sweep.name
     engine = engine_for(args.workers, args.scheduler)
@@ -64,7 +67,8 @@ def run(args) -> int:
         print(note, flush=True)
     line = ProgressLine(quiet=args.quiet)
     with _sigterm_interrupts():
-        outcome = run_sweep(sweep, out, engine, report=line, evaluation=args.evaluation)
+        outcome = run_sweep(sweep, out, engine, report=line, evaluation=args.evaluation,
+                             threads=threads)
     line.finish()
     figures = _figures(out, outcome.rows)
     print("\n".join(summary_lines(outcome, out, figures)))

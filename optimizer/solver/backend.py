@@ -36,7 +36,9 @@ class SolverResult:
     at ``x`` (the Lagrangian ``f + lam_g . g + lam_x . x``; None when the
     backend has none); ``eval_time`` the part of ``wall_time`` spent
     evaluating the NLP's functions and derivatives (the rest is the solver's
-    own work: factorizations, line search).
+    own work: factorizations, line search), ``eval_split`` that time per
+    function evaluated [s] (``f``, ``grad_f``, ``g``, ``jac_g``, ``hess_l``;
+    empty when the backend does not report it).
     """
 
     x: np.ndarray
@@ -51,6 +53,7 @@ class SolverResult:
     lam_g: np.ndarray = field(repr=False, default=None)
     lam_x: np.ndarray = field(repr=False, default=None)
     eval_time: float = 0.0
+    eval_split: dict = field(repr=False, default_factory=dict)
 
 
 class BuiltSolver(Protocol):

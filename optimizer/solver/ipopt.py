@@ -192,11 +192,11 @@ class IpoptSolver:
         status = STATUS.get(name, "failed")
         x, g = np.array(out["x"]).ravel(), np.array(out["g"]).ravel()
         violation = max(max_excess(g, lbg, ubg), max_excess(x, lbx, ubx))
-        evaluation = sum(float(value) for key, value in stats.items()
-                         if key.startswith("t_wall_nlp_") and isinstance(value, (int, float)))
+        split = {key[len("t_wall_nlp_"):]: float(value) for key, value in stats.items()
+                 if key.startswith("t_wall_nlp_") and isinstance(value, (int, float))}
         return SolverResult(x, status, status in SUCCESS, int(stats.get("iter_count", 0)), wall,
                             float(out["f"]), violation, name, g, np.array(out["lam_g"]).ravel(),
-                            np.array(out["lam_x"]).ravel(), eval_time=evaluation)
+                            np.array(out["lam_x"]).ravel(), eval_time=sum(split.values()), eval_split=split)
 
 
 class IpoptBackend:

@@ -39,8 +39,10 @@ class VariantJob:
     ``task_path`` the base task file it resolves paths against, ``model`` the
     model quantities, ``objectives`` those still to solve, ``time_limit`` [s]
     for all of them, ``warm`` the neighbour's solved arrays per stage (or
-    empty), ``warm_from`` that neighbour's id and ``evaluation`` how the
-    worker's planner evaluates the NLP (:data:`optimizer.planner.EVALUATIONS`).
+    empty), ``warm_from`` that neighbour's id, ``evaluation`` how the
+    worker's planner evaluates the NLP (:data:`optimizer.planner.EVALUATIONS`)
+    and ``threads`` how many threads it evaluates the knot functions on (1:
+    serial, the default, since the pool already runs one worker per core).
     """
 
     id: str
@@ -53,6 +55,7 @@ class VariantJob:
     warm: dict = field(default_factory=dict)
     warm_from: str = ""
     evaluation: str = DEFAULT_EVALUATION
+    threads: int = 1
 
 
 @dataclass
@@ -89,11 +92,12 @@ def run_variant(job: VariantJob) -> VariantResult:
 _PLANNERS: dict[str, Planner] = {}
 
 
-def worker_planner(evaluation: str = DEFAULT_EVALUATION):
-    """This worker process's planner: its built solvers serve every variant of one shape."""
-    if evaluation not in _PLANNERS:
-        _PLANNERS[evaluation] = Planner(evaluation=evaluation)
-    return _PLANNERS[evaluation]
+def worker_planner(evaluation: str = DEFAULT_EVALUATION, threads: int = 1):
+    """This worker process's planner (``threads`` per solve): its built solvers serve every variant of one shape."""
+    key = (evaluation, threads)
+    if key not in _PLANNERS:
+        _PLANNERS[key] = Planner(evaluation=evaluation, threads=threads)
+    return _PLANNERS[key]
 
 
 def _solve_variant(job: VariantJob, base: dict, started: float) -> VariantResult:
@@ -106,7 +110,7 @@ def _solve_variant(job: VariantJob, base: dict, started: float) -> VariantResult
     if proven:
         reason = "pre-solve: " + proven[0].text()
         return VariantResult(job.id, [_failure(job, base, o, FAILED, reason, started) for o in job.objectives])
-    planner = worker_planner(job.evaluation)
+    planner = worker_planner(job.evaluation, job.threads)
     seed = planner.seed(task, start=job.warm.get("feasible"))
     out = VariantResult(job.id, [])
     if not seed.success:

@@ -66,11 +66,14 @@ class SweepOutcome:
     engine: str
 
 
-def run_sweep(sweep, out, engine, report=None, evaluation: str = DEFAULT_EVALUATION) -> SweepOutcome:
+def run_sweep(sweep, out, engine, report=None, evaluation: str = DEFAULT_EVALUATION,
+              threads: int = 1) -> SweepOutcome:
     """Solve every variant of ``sweep`` not yet stored in ``out`` on ``engine``.
 
     ``report(progress)`` is called after every stored result; ``evaluation``
-    is how the workers evaluate the NLP (:class:`optimizer.planner.Planner`). Returns a
+    is how the workers evaluate the NLP and ``threads`` on how many threads
+    each worker evaluates its knot functions (:class:`optimizer.planner.Planner`;
+    default 1: the workers already share the cores). Returns a
     :class:`SweepOutcome`; the summary is written even when interrupted.
     """
     out = Path(out)
@@ -95,7 +98,7 @@ def run_sweep(sweep, out, engine, report=None, evaluation: str = DEFAULT_EVALUAT
                 progress.reused_solved += record.get("status") == SOLVED
         if todo:
             jobs.append((variant, VariantJob(variant.id, variant.values, mapping, str(sweep.task_path), model, todo,
-                                             sweep.time_limit, evaluation=evaluation), digests))
+                                             sweep.time_limit, evaluation=evaluation, threads=threads), digests))
     interrupted = False
     try:
         _schedule(sweep, out, engine, jobs, progress, report)

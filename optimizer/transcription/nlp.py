@@ -83,10 +83,15 @@ class Transcription:
         libraries (:mod:`optimizer.transcription.compiled`), else why they
         stayed uncompiled; ``compile_time`` [s] is what compiling (or
         loading the cached libraries) took.
+    threads : int
+        Threads evaluating each mapped knot function (CasADi
+        ``map(n, "thread", threads)``: the knots split into ``threads``
+        blocks evaluated at once, each block in knot order); 1 evaluates
+        the knots one after another. The NLP's values do not depend on it.
     """
 
-    def __init__(self, robot, symbolic, structure: Structure, objective, map_mode: str = "serial",
-                 torque_gains: str = "eliminated", compiled: bool = False):
+    def __init__(self, robot, symbolic, structure: Structure, objective, torque_gains: str = "eliminated",
+                 compiled: bool = False, threads: int = 1):
         self.robot, self.structure, self.objective = robot, structure, objective
         self.torque_gains = torque_gains
         self.weight = robot.mass * float(np.linalg.norm(robot.gravity))
@@ -99,7 +104,9 @@ class Transcription:
         started = time.perf_counter()
         self.compile_failure = compile_knot_functions(self.functions) if compiled else None
         self.compile_time = time.perf_counter() - started  # [s] generating, compiling or loading the libraries
-        self.map_mode = map_mode
+        if isinstance(threads, bool) or not isinstance(threads, int) or threads < 1:
+            raise ValueError(f"threads must be a whole number >= 1, not {threads!r}")
+        self.threads = threads
         self.variables = self._variable_layout()
         self.parameters = parameter_layout(structure, robot)
         self.constraints = ConstraintStack()
@@ -146,7 +153,9 @@ class Transcription:
         return layout
 
     def _map(self, function, count):
-        return function.map(count, self.map_mode)
+        """``function`` mapped over ``count`` knots, on up to :attr:`threads` threads (never more than knots)."""
+        threads = min(self.threads, count)
+        return function.map(count, "thread", threads) if threads > 1 else function.map(count, "serial")
 
     # -- constraint groups -------------------------------------------------
     def _dynamics(self, V, P):
