@@ -1,12 +1,14 @@
-"""Stepping demos: what a foot preload does to both plans of landing_pick and wall_brace.
+"""Stepping demos: what a foot preload and a friction reserve do to both plans of landing_pick and wall_brace.
 
     python benchmarks/stepping_preload.py [--knots 20] [--tasks landing_pick,wall_brace]
                                           [--variants none,all-30,...] [--write benchmarks/RESULTS.md]
+                                          [--heading 'Stepping demos preload']
 
 The torque-optimal plans of the stepping demos nearly unload a rear foot
 while a front foot swings, and their nominal replay in MuJoCo falls. Each
 variant gives some feet of ``tasks/<task>.yaml`` a ``preload`` (the task
-file's own preloads removed first), solves the torque and the robust plan,
+file's own preloads removed first) and, if it says so, a
+``friction_reserve``, solves the torque and the robust plan,
 replays both without a push (``brace simulate`` defaults) and certifies the
 robust plan (smallest and mean certified margin over the knots), as
 ``crawl_preload.py`` does for the crawl space. Prints Markdown; ``--write``
@@ -35,22 +37,26 @@ from results_file import publish, simulation_run_line
 TASKS = ("landing_pick", "wall_brace")
 ALL_FEET = ("foot_fl", "foot_fr", "foot_rl", "foot_rr")
 REAR_FEET = ("foot_rl", "foot_rr")
-# label -> (feet given the preload, preload [N])
+# label -> (feet given the preload, preload [N], friction reserve: the share of friction kept unplanned)
 VARIANTS = {
-    "none": ((), 0.0),
-    "all feet 20 N": (ALL_FEET, 20.0),
-    "all feet 30 N": (ALL_FEET, 30.0),
-    "all feet 40 N": (ALL_FEET, 40.0),
-    "rear feet 30 N": (REAR_FEET, 30.0),
-    "rear feet 40 N": (REAR_FEET, 40.0),
-    "rear feet 80 N": (REAR_FEET, 80.0),
-    "rear feet 100 N": (REAR_FEET, 100.0),
+    "none": ((), 0.0, 0.0),
+    "all feet 20 N": (ALL_FEET, 20.0, 0.0),
+    "all feet 30 N": (ALL_FEET, 30.0, 0.0),
+    "all feet 40 N": (ALL_FEET, 40.0, 0.0),
+    "rear feet 30 N": (REAR_FEET, 30.0, 0.0),
+    "rear feet 40 N": (REAR_FEET, 40.0, 0.0),
+    "rear feet 80 N": (REAR_FEET, 80.0, 0.0),
+    "rear feet 100 N": (REAR_FEET, 100.0, 0.0),
+    "friction reserve 0.15": ((), 0.0, 0.15),
+    "friction reserve 0.3": ((), 0.0, 0.3),
+    "friction reserve 0.15 + rear feet 40 N": (REAR_FEET, 40.0, 0.15),
+    "friction reserve 0.3 + rear feet 40 N": (REAR_FEET, 40.0, 0.3),
 }
 
 
 def variant_task(name: str, label: str, knots: int):
-    """Task ``name`` with ``label``'s preloads (its own removed first), at ``knots`` knots."""
-    feet, preload = VARIANTS[label]
+    """Task ``name`` with ``label``'s preloads (its own removed first) and friction reserve, at ``knots`` knots."""
+    feet, preload, reserve = VARIANTS[label]
     path = ROOT / "tasks" / f"{name}.yaml"
     data = copy.deepcopy(read_yaml_mapping(path, TaskError))
     table = data["stance"]["feet"]
@@ -60,6 +66,8 @@ def variant_task(name: str, label: str, knots: int):
         if frame in feet:
             entry["preload"] = preload
         table[frame] = entry
+    if reserve:
+        data["friction_reserve"] = reserve
     return task_from_mapping(data, path).with_knots(knots)
 
 
@@ -71,12 +79,13 @@ def row(name: str, label: str, knots: int) -> str:
 
 def section(args, rows, elapsed, load_before, load_after) -> str:
     return "\n".join([
-        "## Stepping demos preload", "",
+        f"## {args.heading}", "",
         simulation_run_line(f"python benchmarks/stepping_preload.py --knots {args.knots} --tasks {args.tasks} "
                             f"--variants '{args.variants}'", elapsed, load_before, load_after) + " "
         "(shared machine; no timing is read from this run).", "",
         f"Each task at {args.knots} knots with a `preload` on the feet of each row (the task's own preloads "
-        "removed first). " + CELLS_NOTE, "",
+        "removed first) and, where the row says so, a `friction_reserve` (the share of every friction "
+        "coefficient the plans leave unused). " + CELLS_NOTE, "",
         "| task | variant | torque plan: feet [mm] | hand [mm] | losses | passes | robust plan: feet [mm] | "
         "hand [mm] | losses | passes | robust margin, smallest / mean [N] |",
         "| --- | --- | ---: | ---: | ---: | --- | ---: | ---: | ---: | --- | ---: |",
@@ -89,6 +98,7 @@ def main(argv=None) -> int:
     parser.add_argument("--tasks", default=",".join(TASKS))
     parser.add_argument("--variants", default=",".join(VARIANTS), help="comma-separated labels of VARIANTS")
     parser.add_argument("--write", metavar="RESULTS.md")
+    parser.add_argument("--heading", default="Stepping demos preload", help="the results file's section to replace")
     args = parser.parse_args(argv)
     names = [t.strip() for t in args.tasks.split(",") if t.strip()]
     labels = [v.strip() for v in args.variants.split(",") if v.strip()]
@@ -98,7 +108,7 @@ def main(argv=None) -> int:
     started, load_before = time.perf_counter(), os.getloadavg()[0]
     rows = [row(name, label, args.knots) for name in names for label in labels]
     publish(section(args, rows, time.perf_counter() - started, load_before, os.getloadavg()[0]), args.write,
-            "Stepping demos preload")
+            args.heading)
     return 0
 
 
