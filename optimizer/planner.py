@@ -54,11 +54,11 @@ from .transcription.structure import structure_of
 EVALUATIONS = ("compiled", "expanded", "mapped")
 DEFAULT_EVALUATION = "expanded"
 # Threads evaluating the mapped knot functions (compiled and mapped evaluations) when the planner is
-# not told: this environment variable, else every core the process may use but no more than one per
-# KNOTS_PER_THREAD knots (short plans stay serial: at 8 knots two threads evaluated the robust stage
-# 1.27 times slower than one; benchmarks/RESULTS.md, "Threaded knot functions"); 1 is serial.
+# not told: this environment variable, else one (serial). Two threads made the 60-knot robust stage
+# only 0.94 times as long on an idle 2-core machine and the whole plan from a fresh process slower
+# (its build longer), and on a busy one every stage slower; benchmarks/RESULTS.md, "Threaded knot
+# functions" and "..., idle machine".
 THREADS_ENVIRONMENT = "BRACE_THREADS"
-KNOTS_PER_THREAD = 10
 _NOTICES: list[str] = []
 _SAID: set[str] = set()
 
@@ -70,25 +70,15 @@ def _notice(text: str) -> None:
         _NOTICES.append(text)
 
 
-def usable_cores() -> int:
-    """Cores this process may run on (its CPU affinity where the system reports it)."""
-    try:
-        return max(1, len(os.sched_getaffinity(0)))
-    except AttributeError:  # no affinity on this system
-        return max(1, os.cpu_count() or 1)
-
-
-def evaluation_threads(threads: int | None = None, knots: int | None = None) -> int:
-    """Threads for the mapped knot functions: ``threads``, else ``$BRACE_THREADS``, else
-    :func:`usable_cores`, then (the cores only) at most one per :data:`KNOTS_PER_THREAD` of ``knots``.
+def evaluation_threads(threads: int | None = None) -> int:
+    """Threads for the mapped knot functions: ``threads``, else ``$BRACE_THREADS``, else 1 (serial).
 
     A bad ``$BRACE_THREADS`` is an :class:`InputError`; a bad ``threads`` a ValueError.
     """
     if threads is None:
         text = os.environ.get(THREADS_ENVIRONMENT, "").strip()
         if not text:
-            cores = usable_cores()
-            return cores if knots is None else max(1, min(cores, knots // KNOTS_PER_THREAD))
+            return 1
         if not text.isdigit() or int(text) < 1:
             raise InputError(f"${THREADS_ENVIRONMENT}", "", "a whole number >= 1 (threads per solve)", text)
         return int(text)
@@ -243,8 +233,7 @@ class Planner:
         Threads evaluating the knot functions of the ``compiled`` and
         ``mapped`` evaluations (the knots split into that many blocks, never
         more blocks than knots; plans do not depend on it); 1 is serial. None
-        (default): ``$BRACE_THREADS``, else every usable core but at most
-        one per :data:`KNOTS_PER_THREAD` knots (:func:`evaluation_threads`,
+        (default): ``$BRACE_THREADS``, else 1 (:func:`evaluation_threads`,
         :meth:`threads_for`). The ``expanded`` evaluation is one scalar graph
         and always serial.
 
@@ -326,7 +315,7 @@ class Planner:
 
     def threads_for(self, task) -> int:
         """Threads evaluating the knot functions of ``task`` (at its own knot count); 1 when expanded."""
-        return 1 if self.expands else evaluation_threads(self.threads, task.knots)
+        return 1 if self.expands else evaluation_threads(self.threads)
 
     def build_key(self, task, objective: str, warm: bool = False) -> tuple:
         """:meth:`transcription_key` plus what the built solver reads: backend, expansion, options, warm start."""

@@ -225,17 +225,16 @@ def test_threaded_knot_functions_give_the_serial_plan(ramp):
     assert report.passed, [r.reason() for r in report.failures()]
 
 
-def test_thread_count_from_the_planner_the_environment_or_the_cores(monkeypatch, tmp_path, capsys):
-    from optimizer.planner import KNOTS_PER_THREAD, THREADS_ENVIRONMENT, evaluation_threads, usable_cores
+def test_thread_count_from_the_planner_or_the_environment(monkeypatch, tmp_path, capsys):
+    from optimizer.planner import THREADS_ENVIRONMENT, evaluation_threads
 
     ramp = load_task(ROOT / "tasks" / "steep_ramp.yaml")
-    cores = len(os.sched_getaffinity(0))
     monkeypatch.delenv(THREADS_ENVIRONMENT, raising=False)
-    assert evaluation_threads() == usable_cores() == cores
-    assert evaluation_threads(knots=KNOTS_PER_THREAD - 1) == 1           # short plans stay serial
-    assert Planner(evaluation="compiled").threads_for(ramp.with_knots(200 * KNOTS_PER_THREAD)) == cores
+    assert evaluation_threads() == 1                                      # serial unless told
+    assert Planner(evaluation="compiled").threads_for(ramp.with_knots(200)) == 1
+    assert Planner(evaluation="compiled", threads=2).threads_for(ramp) == 2
     monkeypatch.setenv(THREADS_ENVIRONMENT, "3")
-    assert evaluation_threads() == 3 and evaluation_threads(1) == 1 and evaluation_threads(knots=6) == 3
+    assert evaluation_threads() == 3 and evaluation_threads(1) == 1
     assert Planner(evaluation="compiled").threads_for(ramp) == 3
     assert Planner(evaluation="expanded").threads_for(ramp) == 1
     with pytest.raises(ValueError):

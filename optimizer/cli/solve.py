@@ -63,7 +63,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                              f"(default {100 * DEFAULT_WARN_FRACTION:.0f} %% of the robot's weight)")
     add_cache_option(parser)
     add_evaluation_option(parser)
-    add_threads_option(parser, "$BRACE_THREADS, else one per usable core")
+    add_threads_option(parser, "$BRACE_THREADS, else 1")
 
 
 def run(args) -> int:
