@@ -314,7 +314,7 @@ class Planner:
                 self.threads_for(task))
 
     def threads_for(self, task) -> int:
-        """Threads evaluating the knot functions of ``task`` (at its own knot count); 1 when expanded."""
+        """Threads evaluating the knot functions of ``task``'s NLP; 1 when expanded."""
         return 1 if self.expands else evaluation_threads(self.threads)
 
     def build_key(self, task, objective: str, warm: bool = False) -> tuple:

@@ -234,16 +234,17 @@ def measure_approach(facts: PlanFacts) -> Worst:
         return worst_entry(shortfall[:, :0], [])
     clearance, t = float(facts.meta["approach_clearance"]), np.asarray(plan.t, float)
     speed = facts.meta.get("touchdown_speed")
+    final = None if speed is None else clearance / float(speed)   # s: the final approach
     normals = knot_surfaces(facts.meta, active.shape[0]).normals
     for k, c in _touchdowns(active):
         touch, n = k + 1, normals[k + 1, c]
         lift = _last_stance_knot(active, touch, c)
         step = t[touch] - t[touch - 1]
-        final = 0.0 if speed is None else clearance / float(speed)
         for j in range(lift + 1, touch):
             distance = n @ (facts.positions[j, c] - plan.contact_targets[touch, c])
-            if speed is None:
-                shortfall[j, c] = clearance - distance if j == touch - 1 else -np.inf
+            if final is None:
+                if j == touch - 1:
+                    shortfall[j, c] = clearance - distance
             elif j == touch - 1 or t[j] >= 0.5 * (t[lift] + t[touch]) + step:
                 shortfall[j, c] = (0.0 if t[touch] - t[j] < final - 1e-12 else clearance) - distance
     return worst_entry(shortfall, facts.contact_names)

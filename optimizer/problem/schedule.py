@@ -71,8 +71,8 @@ class Swing:
     never the last swing knot); ``landing`` the index of the interval it
     lands in (footholds are numbers, not structure: see :meth:`Schedule.ends`);
     ``final`` the first knot of the final approach (less than
-    ``approach_clearance / touchdown_speed`` s before touchdown; ``touch``
-    when none is).
+    ``approach_clearance / touchdown_speed`` s before touchdown, never
+    before mid-swing; ``touch`` when no knot is).
     """
 
     contact: int
@@ -80,12 +80,7 @@ class Swing:
     touch: int
     mid: int
     landing: int
-    final: int = -1
-
-    @property
-    def final_knot(self) -> int:
-        """First knot of the final approach (never before mid-swing)."""
-        return self.touch if self.final < 0 else max(self.final, self.mid)
+    final: int
 
     @property
     def knots(self) -> range:
@@ -100,12 +95,12 @@ class Swing:
     @property
     def approaching(self) -> range:
         """Knots from mid-swing to the final approach: kept off the landing surface by the clearance."""
-        return range(self.mid, self.final_knot)
+        return range(self.mid, self.final)
 
     @property
     def settling(self) -> range:
         """Knots of the final approach before touchdown: on the robot's side of the landing plane."""
-        return range(self.final_knot, self.touch)
+        return range(self.final, self.touch)
 
 
 @dataclass(frozen=True)
@@ -227,7 +222,7 @@ class Schedule:
                 mid = min(air[:-1], key=lambda k: abs(times[k] - middle))
                 touch = air[-1] + 1
                 final = next((k for k in air if times[touch] - times[k] < self.final_approach - 1e-12), touch)
-                out.append(Swing(c, air[0] - 1, touch, mid, i, final))
+                out.append(Swing(c, air[0] - 1, touch, mid, i, max(final, mid)))
         return out
 
     @property

@@ -67,7 +67,7 @@ def approach_points(task) -> dict:
     schedule, times, out = task.schedule, task.times, {}
     step = 0.01  # m beyond the clearance, so the guess starts inside the approach rows
     for swing in schedule.swings(times):
-        for knot, side in ((swing.lift + 1, "lift-off"), (swing.final_knot - 1, "landing")):
+        for knot, side in ((swing.lift + 1, "lift-off"), (swing.final - 1, "landing")):
             if knot == swing.mid or (side == "lift-off" and knot > swing.mid) or (side == "landing" and knot < swing.mid):
                 continue
             stance = schedule.side_of(swing, side, task.contacts)
