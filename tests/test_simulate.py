@@ -29,6 +29,7 @@ import yaml
 
 from certify_checks import demo_standing, standing_plan
 from optimizer.cli import main
+from optimizer.cli.simulate import underload_lines
 from optimizer.errors import PlanFileError
 from optimizer.planfile import build_model, save_plan
 from optimizer.planner import solve
@@ -314,6 +315,28 @@ def test_a_stepping_replay_keeps_stance_feet_on_their_footholds_and_reaches_the_
     assert report["ok"], report
     assert [f["stances"] for f in report["feet"]][:2] == [[[a, b] for c, a, b, _ in intervals if c == f]
                                                           for f in (0, 1)]
+
+
+def test_a_foot_given_less_than_half_its_planned_load_is_named_with_its_knot(capsys):
+    plan = standing(6)
+    report = simulator(plan).nominal()
+    # Newton: standing still, each foot carries about its planned share of the weight.
+    assert all(foot["underloaded"] is None for foot in report["feet"]), report["feet"]
+    # The same torques with foot 1's planned force claimed 2.5 times larger: the replay (MuJoCo's contact
+    # forces, which follow the torques, not the claim) gives that foot under half of it from the first knot.
+    claimed = copy.deepcopy(plan)
+    claimed.contact_forces[:, 1] *= 2.5
+    doc = simulator(claimed).nominal()
+    marked = {foot["frame"]: foot["underloaded"] for foot in doc["feet"] if foot["underloaded"]}
+    assert list(marked) == [plan.meta["contact_frames"][1]], marked
+    at = marked[plan.meta["contact_frames"][1]]
+    planned = float(claimed.contact_forces[at["knot"], 1, 2])   # a flat floor: the normal is world z
+    assert at["planned_n"] == pytest.approx(planned) and at["replayed_n"] < 0.5 * planned
+    assert at["replayed_n"] == pytest.approx(planned / 2.5, rel=0.05)
+    assert at["certified_margin_n"] == pytest.approx(float(plan.margin[at["knot"]]))
+    line, = underload_lines(doc["feet"])
+    assert line.startswith(f"  loads    {plan.meta['contact_frames'][1]} first carried under half its planned load "
+                           f"at knot {at['knot']}")
 
 
 def test_a_swinging_foot_is_free_but_a_lifted_stance_foot_is_lost(landing_pick_plan):

@@ -183,6 +183,8 @@ def nominal_lines(doc: dict) -> list:
                          f"{1e3 * s['rules']['touchdown']:.0f} ms after a touchdown")
         lines.append(f"  feet     largest distance of a stance foot from its foothold {_mm(worst['distance_m'])} "
                      f"({worst['frame']}, limit {_mm(s['foot_tolerance'])}); contact losses: {losses or 'none'}")
+    if not n["ok"]:
+        lines += underload_lines(feet)
     clipped = n["torque_clipped_s"]
     lines.append("  torques  " + ("never clipped" if not clipped else
                                   "clipped: " + ", ".join(f"{k} {1e3 * v:.0f} ms" for k, v in clipped.items())))
@@ -191,6 +193,16 @@ def nominal_lines(doc: dict) -> list:
         if not ok) + ")"
     lines.append(f"  result: nominal replay {verdict}")
     return lines
+
+
+def underload_lines(feet) -> list:
+    """The stance foot that first carried under half its planned load, with the certified margin there."""
+    first = [(f["underloaded"]["t_s"], f["frame"], f["underloaded"]) for f in feet if f.get("underloaded")]
+    if not first:
+        return []
+    _, name, at = min(first, key=lambda item: item[0])
+    return [f"  loads    {name} first carried under half its planned load at knot {at['knot']} (t = {at['t_s']:.2f} s): "
+            f"{at['replayed_n']:.1f} N against {at['planned_n']:.1f} N; certified margin there {at['certified_margin_n']:.1f} N"]
 
 
 def push_lines(doc: dict) -> list:

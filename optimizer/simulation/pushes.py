@@ -325,6 +325,10 @@ def linear_limit_along(response, u_dir, gains) -> float:
     return float(sizes.min(initial=np.inf))
 
 
+# A stance foot is underloaded when the replay gives it less than this share of its planned normal force.
+UNDERLOAD = 0.5
+
+
 def zero_force_spans(lost) -> np.ndarray:
     """Lengths (in steps) of the runs of True in the boolean series ``lost``."""
     padded = np.concatenate([[False], np.asarray(lost, bool), [False]])
@@ -361,8 +365,29 @@ def foot_report(sim: Simulator, rec) -> list:
                      "slip_m": float(slip.max(initial=0.0)),
                      "longest_without_force_s": float(spans.max(initial=0.0)),
                      "contact_losses": int(np.count_nonzero(spans > s.rules.contact_loss)),
-                     "stances": [[st.first, st.last] for st in own]})
+                     "stances": [[st.first, st.last] for st in own],
+                     "underloaded": first_underload(sim, rec, judged, c)})
     return feet
+
+
+def first_underload(sim: Simulator, rec, judged, c: int) -> dict | None:
+    """The first judged knot at which contact ``c`` carried less than :data:`UNDERLOAD` of its planned normal
+    force: the knot, its time [s], the planned normal force (N, along its stance surface's normal), the
+    replayed one (N, the mean over the knot's step centred on the knot time) and the plan's certified margin
+    there (N); None when it never did."""
+    plan, t = sim.plan, rec.time
+    half = 0.5 * float(plan.t[1] - plan.t[0]) if plan.t.size > 1 else 0.0
+    for k, tk in enumerate(plan.t):
+        rows = (np.abs(t - tk) <= half) & (judged[:, c] >= 0)
+        if not rows.any():
+            continue
+        stance = sim.stances.intervals[int(np.bincount(judged[rows, c]).argmax())]
+        planned = float(plan.contact_forces[k, c] @ stance.normal)
+        replayed = float(rec.normal_force[rows, c].mean())
+        if replayed < UNDERLOAD * planned:
+            return {"knot": k, "t_s": float(tk), "planned_n": planned, "replayed_n": replayed,
+                    "certified_margin_n": float(plan.margin[k])}
+    return None
 
 
 def nominal_report(sim: Simulator, rec) -> dict:
