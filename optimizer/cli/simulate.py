@@ -196,12 +196,14 @@ def nominal_lines(doc: dict) -> list:
 
 
 def underload_lines(feet) -> list:
-    """The stance foot that first carried under half its planned load, with the certified margin there."""
+    """The stance foot that first carried under the report's share (``share``) of its planned load, with the certified
+    margin there."""
     first = [(f["underloaded"]["t_s"], f["frame"], f["underloaded"]) for f in feet if f.get("underloaded")]
     if not first:
         return []
     _, name, at = min(first, key=lambda item: item[0])
-    return [f"  loads    {name} first carried under half its planned load at knot {at['knot']} (t = {at['t_s']:.2f} s): "
+    return [f"  loads    {name} first carried under {100 * at['share']:.0f} % of its planned load at knot {at['knot']} "
+            f"(t = {at['t_s']:.2f} s): "
             f"{at['replayed_n']:.1f} N against {at['planned_n']:.1f} N; certified margin there {at['certified_margin_n']:.1f} N"]
 
 

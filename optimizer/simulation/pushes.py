@@ -373,8 +373,8 @@ def foot_report(sim: Simulator, rec) -> list:
 def first_underload(sim: Simulator, rec, judged, c: int) -> dict | None:
     """The first judged knot at which contact ``c`` carried less than :data:`UNDERLOAD` of its planned normal
     force: the knot, its time [s], the planned normal force (N, along its stance surface's normal), the
-    replayed one (N, the mean over the knot's step centred on the knot time) and the plan's certified margin
-    there (N); None when it never did."""
+    replayed one (N, the mean over the knot's step centred on the knot time), the plan's certified margin
+    there (N) and :data:`UNDERLOAD` itself (``share``); None when it never did."""
     plan, t = sim.plan, rec.time
     half = 0.5 * float(plan.t[1] - plan.t[0]) if plan.t.size > 1 else 0.0
     for k, tk in enumerate(plan.t):
@@ -386,7 +386,7 @@ def first_underload(sim: Simulator, rec, judged, c: int) -> dict | None:
         replayed = float(rec.normal_force[rows, c].mean())
         if replayed < UNDERLOAD * planned:
             return {"knot": k, "t_s": float(tk), "planned_n": planned, "replayed_n": replayed,
-                    "certified_margin_n": float(plan.margin[k])}
+                    "certified_margin_n": float(plan.margin[k]), "share": UNDERLOAD}
     return None
 
 
