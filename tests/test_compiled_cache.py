@@ -105,7 +105,7 @@ def test_a_cached_library_is_reused_and_a_broken_one_rebuilt(own_cache):
     f = small_function()
     x, y = np.array([0.3, -1.2, 0.5]), 2.0
     first, built = compiled.compiled_functions({"f": f})
-    assert built == ["f"] and np.allclose(first["f"](x, y), f(x, y), atol=1e-12)
+    assert built == ["f"] and np.allclose(np.array(first["f"](x, y)), np.array(f(x, y)), atol=1e-12)
     again, built = compiled.compiled_functions({"f": f})
     assert built == []  # valid entry: loaded, not compiled
     library = next(own_cache.rglob("*.so"))
