@@ -63,9 +63,7 @@ class StageFloorRobust(objectives.Robust):
         layout.add("floor", 1, ctx.knots, scale=ctx.weight)
 
     def add_constraints(self, V, P, stack, ctx):
-        objectives.RobustSum.add_constraints(self, V, P, stack, ctx)
-        margins = objectives.knot_margins(V, P, ctx)
-        stack.add("margin floor", (margins - V["floor"]) / ctx.weight, range(ctx.knots), 0.0, float("inf"))
+        super().add_constraints(V, P, stack, ctx)   # the margin floor rows, one floor per knot
         stack.add("floor link", (V["floor"][:, 1:] - V["floor"][:, :-1]) / ctx.weight, range(1, ctx.knots))
 
     def cost(self, V, P, ctx):
@@ -78,18 +76,8 @@ class StageFloorRobust(objectives.Robust):
 class StageTranscription(Transcription):
     """brace's NLP with an explicit configuration step: ``q[k+1] = integrate(q[k], h (v[k] + h a[k]))``."""
 
-    def _dynamics(self, V, P):
-        K, f, h = self.structure.knots, self.functions, P["step"]
-        self.constraints.add("equations of motion", self._map(f.dynamics, K)(V["q"], V["v"], V["a"], V["tau"],
-                                                                             V["lam"]), range(K))
-        self.constraints.add("velocity integration", V["v"][:, 1:] - V["v"][:, :-1] - h * V["a"][:, :-1],
-                             range(1, K))
-        velocity = V["v"][:, :-1] + h * V["a"][:, :-1]
-        self.constraints.add("configuration integration",
-                             self._map(f.step, K - 1)(V["q"][:, :-1], V["q"][:, 1:], velocity, h), range(1, K))
-        if not self.structure.fixed_start:
-            quat = V["q"][3:7, 0]
-            self.constraints.add("unit quaternion", ca.dot(quat, quat) - 1.0, [0])
+    def _step_velocities(self, V, P):
+        return V["v"][:, :-1] + P["step"] * V["a"][:, :-1]
 
 
 def block_knots(transcription, block) -> list[int]:
@@ -126,7 +114,7 @@ def stage_order(transcription):
     return np.array(columns), np.array(order), nx, nu, ng
 
 
-def stage_start(planner, seed, transcription):
+def stage_start(seed, transcription):
     """``(x0, p, lbx, ubx)`` of the robust stage in ``transcription``'s own order, from the seed."""
     from optimizer.planner import _initial_gains
     task = seed.task
@@ -179,14 +167,14 @@ def task_rows(task_name, knots, max_iter) -> list[dict]:
         staged = StageTranscription(robot, symbolic, structure_of(task), StageFloorRobust())
     ipopt = {"ipopt": {"tol": 1e-6, "constr_viol_tol": 1e-7, "mu_strategy": "adaptive", "linear_solver": "mumps",
                        "print_level": 0, "sb": "yes", "max_iter": max_iter}}
-    rows = [run("Ipopt, brace's NLP", own, own.nlp, stage_start(planner, seed, own), own.lbg, own.ubg, "ipopt", ipopt)]
+    rows = [run("Ipopt, brace's NLP", own, own.nlp, stage_start(seed, own), own.lbg, own.ubg, "ipopt", ipopt)]
     columns, order, nx, nu, ng = stage_order(staged)
     x = ca.MX.sym("z", staged.variables.size)
     f, g = ca.Function("nlp", [staged.nlp["x"], staged.nlp["p"]], [staged.nlp["f"], staged.nlp["g"]])(
         x[np.argsort(columns).tolist()], staged.nlp["p"])
     nlp = {"x": x, "p": staged.nlp["p"], "f": f, "g": g[order.tolist()]}
     lbg, ubg = staged.lbg[order], staged.ubg[order]
-    start = stage_start(planner, seed, staged)
+    start = stage_start(seed, staged)
     rows.append(run("Ipopt, stage form", staged, nlp, start, lbg, ubg, "ipopt", ipopt, columns))
     fatrop = {"structure_detection": "manual", "N": knots - 1, "nx": nx, "nu": nu, "ng": ng,
               "equality": (lbg == ubg).tolist(), "fatrop": {"print_level": 0, "max_iter": max_iter, "tol": 1e-6}}

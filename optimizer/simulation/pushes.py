@@ -350,6 +350,7 @@ def foot_report(sim: Simulator, rec) -> list:
     plan, s = sim.plan, sim.settings
     dt = sim.scene.model.opt.timestep
     judged = sim.stances.judged_series(rec.time, s.rules.touchdown)
+    windows = knot_windows(plan.t, rec.time)
     feet = []
     for c, name in enumerate(plan.meta["contact_frames"]):
         distance, slip = np.zeros(rec.time.size), np.zeros(rec.time.size)
@@ -366,26 +367,32 @@ def foot_report(sim: Simulator, rec) -> list:
                      "longest_without_force_s": float(spans.max(initial=0.0)),
                      "contact_losses": int(np.count_nonzero(spans > s.rules.contact_loss)),
                      "stances": [[st.first, st.last] for st in own],
-                     "underloaded": first_underload(sim, rec, judged, c)})
+                     "underloaded": first_underload(sim, rec, judged, windows, c)})
     return feet
 
 
-def first_underload(sim: Simulator, rec, judged, c: int) -> dict | None:
+def knot_windows(knot_times, times) -> list:
+    """Per knot, the samples of ``times`` [s] within half a knot step of its time (boolean masks)."""
+    knot_times = np.asarray(knot_times, float)
+    half = 0.5 * float(knot_times[1] - knot_times[0]) if knot_times.size > 1 else 0.0
+    return [np.abs(times - tk) <= half for tk in knot_times]
+
+
+def first_underload(sim: Simulator, rec, judged, windows, c: int) -> dict | None:
     """The first judged knot at which contact ``c`` carried less than :data:`UNDERLOAD` of its planned normal
     force: the knot, its time [s], the planned normal force (N, along its stance surface's normal), the
-    replayed one (N, the mean over the knot's step centred on the knot time), the plan's certified margin
+    replayed one (N, the mean over the knot's window of :func:`knot_windows`), the plan's certified margin
     there (N) and :data:`UNDERLOAD` itself (``share``); None when it never did."""
-    plan, t = sim.plan, rec.time
-    half = 0.5 * float(plan.t[1] - plan.t[0]) if plan.t.size > 1 else 0.0
-    for k, tk in enumerate(plan.t):
-        rows = (np.abs(t - tk) <= half) & (judged[:, c] >= 0)
+    plan = sim.plan
+    for k, window in enumerate(windows):
+        rows = window & (judged[:, c] >= 0)
         if not rows.any():
             continue
         stance = sim.stances.intervals[int(np.bincount(judged[rows, c]).argmax())]
         planned = float(plan.contact_forces[k, c] @ stance.normal)
         replayed = float(rec.normal_force[rows, c].mean())
         if replayed < UNDERLOAD * planned:
-            return {"knot": k, "t_s": float(tk), "planned_n": planned, "replayed_n": replayed,
+            return {"knot": k, "t_s": float(plan.t[k]), "planned_n": planned, "replayed_n": replayed,
                     "certified_margin_n": float(plan.margin[k]), "share": UNDERLOAD}
     return None
 

@@ -166,12 +166,16 @@ class Transcription:
         h = P["step"]
         self.constraints.add("velocity integration", V["v"][:, 1:] - V["v"][:, :-1] - h * V["a"][:, :-1],
                              steps, unit="rad/s", who=velocity_names(self.robot))
-        step = self._map(f.step, K - 1)(V["q"][:, :-1], V["q"][:, 1:], V["v"][:, 1:], h)
+        step = self._map(f.step, K - 1)(V["q"][:, :-1], V["q"][:, 1:], self._step_velocities(V, P), h)
         self.constraints.add("configuration integration", step, steps, unit="rad or m",
                              who=configuration_names(self.robot))
         if not self.structure.fixed_start:
             quat = V["q"][3:7, 0]
             self.constraints.add("unit quaternion", ca.dot(quat, quat) - 1.0, [0], who=["base orientation"])
+
+    def _step_velocities(self, V, P):
+        """The velocity each configuration step integrates, (nv, K-1): ``v[k+1]`` (semi-implicit Euler)."""
+        return V["v"][:, 1:]
 
     def _by_pattern(self, name, expr, knots, rows_of, lower=0.0, upper=0.0, unit="", who=()):
         """Add ``expr`` (rows, len(knots)) once per stance pattern, keeping at each knot the rows
