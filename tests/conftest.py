@@ -10,6 +10,11 @@ litter made by brace (or by a library through brace) and fails the session.
 
 The session also gets a fresh cache folder of its own (``BRACE_CACHE_DIR``),
 removed at the end.
+
+With pytest-xdist (the README's test command runs two workers) both folders
+are made once, by the controlling process, and every worker inherits them;
+the litter check runs there too, after the workers have exited, so each
+worker's own scratch space must be gone by then (its exit cleanup).
 """
 from __future__ import annotations
 
@@ -48,13 +53,21 @@ def litter(folder: Path) -> list[str]:
                   if not p.name.startswith("pytest-of-") and (own is None or p != own))
 
 
-@pytest.fixture(scope="session", autouse=True)
-def no_temporary_files_left():
-    """After the last test: the session's temporary folder holds nothing brace made."""
-    yield
-    if _SUITE_TMP is not None:
-        left = litter(_SUITE_TMP)
-        assert not left, f"temporary files left behind in {_SUITE_TMP}: {left}"
+@pytest.hookimpl(trylast=True)  # after pytest-xdist has stopped its workers
+def pytest_sessionfinish(session, exitstatus):
+    """After the last test: the session's temporary folder holds nothing brace made, else the run fails."""
+    if _SUITE_TMP is None:
+        return
+    left = litter(_SUITE_TMP)
+    if left:
+        reporter = session.config.pluginmanager.get_plugin("terminalreporter")
+        message = f"temporary files left behind in {_SUITE_TMP}: {left}"
+        if reporter is not None:
+            reporter.ensure_newline()
+            reporter.write_line(message, red=True, bold=True)
+        else:
+            print(message)
+        session.exitstatus = pytest.ExitCode.TESTS_FAILED
 
 
 def pytest_unconfigure(config):

@@ -1,4 +1,4 @@
-"""The stepping demo plans (``landing_pick``, ``wall_brace``) at few knots, solved once per session.
+"""The stepping demo plans (``landing_pick``, ``wall_brace``) at few knots, solved once per test process.
 
 One feasibility seed per task serves both objectives. Shared by the schedule
 and simulation tests (a module-level cache: every test module imports this
