@@ -63,6 +63,7 @@ class Plan:
     contact_forces : ndarray, shape (K, nc, 3)
         Force of the environment on the robot, world frame [N].
     contact_active : ndarray of bool, shape (K, nc)
+        In stance and carrying force (false while swinging and at a lift-off knot).
     contact_targets : ndarray, shape (K, nc, 3)
         Footholds, world frame [m]; NaN where not active.
     margin : ndarray, shape (K,)

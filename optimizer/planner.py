@@ -704,7 +704,7 @@ def _finished_plan(task, objective, arrays, outcome, backend: str) -> Plan:
 
 def _plan_arrays(task, objective, arrays, margin, solver_meta) -> Plan:
     K, nc = task.knots, len(task.contacts)
-    active = task.schedule.activity(task.times)
+    active = task.schedule.loaded(task.times)
     forces = arrays["lam"].T.reshape(K, nc, 3).copy()
     forces[~active] = 0.0   # fixed at zero by their bounds; exact zeros, as the plan contract says
     return Plan(

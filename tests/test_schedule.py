@@ -193,10 +193,13 @@ def test_swing_feet_carry_no_force_and_clear_the_terrain(name, objective):
         normal = LANDING_PLANES[name][0]
         assert np.linalg.norm(velocity - (velocity @ normal) * normal) < 1e-5
         assert np.allclose(position, plan.contact_targets[swing.touch, swing.contact], atol=1e-5)
-        # lift-off: the last step before it moved the foot by nothing (stance at both ends)
-        before, _ = foot_kinematics(plan, swing.lift - 1, frame)
+        # lift-off: the foot is still on the foothold it leaves at the lift-off knot, without force
+        # there (that knot's force would act over the step in which the foot leaves)
+        leaving = plan.contact_targets[swing.lift - 1, swing.contact]
         at, _ = foot_kinematics(plan, swing.lift, frame)
-        assert np.linalg.norm(at - before) < 1e-5
+        assert np.linalg.norm(at - leaving) < 1e-5
+        assert plan.contact_active[swing.lift - 1, swing.contact] and not plan.contact_active[swing.lift, swing.contact]
+        assert np.all(plan.contact_forces[swing.lift, swing.contact] == 0.0)
 
 
 @pytest.mark.parametrize("name", STEPPING)

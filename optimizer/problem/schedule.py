@@ -66,8 +66,9 @@ class StanceInterval:
 class Swing:
     """A swing between two stance intervals at a given knot count.
 
-    ``contact`` index; ``lift`` the last stance knot before, ``touch`` the
-    first after; ``mid`` the mid-swing knot (nearest the swing's middle time,
+    ``contact`` index; ``lift`` the last knot on the foothold before (the
+    lift-off knot: on it, without force, :meth:`Schedule.loaded`), ``touch``
+    the first stance knot after; ``mid`` the mid-swing knot (nearest the swing's middle time,
     never the last swing knot); ``landing`` the index of the interval it
     lands in (footholds are numbers, not structure: see :meth:`Schedule.ends`);
     ``final`` the first knot of the final approach (less than
@@ -173,10 +174,25 @@ class Schedule:
                 out[:, c] |= (times >= iv.t_start - 1e-9 * step) & (times <= iv.t_end + 1e-9 * step)
         return out
 
+    def loaded(self, times) -> np.ndarray:
+        """(K, nc) bool: contact in stance and carrying force at each knot.
+
+        :meth:`activity` without each swing's lift-off knot: the foot stays
+        on its foothold there but carries no force, since a knot's force acts
+        over the step after it (``v[k+1] = v[k] + h a[k]``), which is the step
+        in which the foot leaves. Touchdown needs nothing alike: the foot is
+        on its foothold at both ends of the step after its touchdown knot.
+        """
+        out = self.activity(times)
+        for swing in self.swings(times):
+            out[swing.lift, swing.contact] = False
+        return out
+
     def targets(self, times) -> np.ndarray:
-        """(K, nc, 3) footholds [m] of the stance interval at each knot; NaN while swinging."""
+        """(K, nc, 3) footholds [m] of the stance interval at each knot it carries force (:meth:`loaded`);
+        NaN elsewhere."""
         out = np.full((len(times), len(self.intervals), 3), np.nan)
-        active = self.activity(times)
+        active = self.loaded(times)
         for c, intervals in enumerate(self.intervals):
             for k, t in enumerate(times):
                 if active[k, c]:

@@ -115,7 +115,7 @@ def initial_guess(task) -> dict[str, np.ndarray]:
     q = interpolate(model, keyframes(task), times)
     v, a = integrated_rates(model, q, times)
     tau, lam = np.zeros((robot.nj, K)), np.zeros((3 * len(task.contacts), K))
-    active = task.schedule.activity(times)
+    active = task.schedule.loaded(times)
     for k in range(K):
         stance = [c for c, on in zip(contacts_at(task, times[k]), active[k]) if on]
         support = static_support_lp(robot, q[:, k], stance, task.facets)

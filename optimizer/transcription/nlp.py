@@ -243,15 +243,22 @@ class Transcription:
                          LIMIT_BACKOFF, INF, unit="m g", who=list(self.structure.contact_frames))
 
     def _swings(self, V, P):
-        """Per swing: the foot at touchdown without velocity along the landing surface (``t_i . J_c v = 0``,
-        2 rows) and along its normal at most the touchdown speed (``|n . J_c v| <= s``, 2 rows); at
+        """Per swing: the foot on its foothold at the lift-off knot (3 rows; it carries no force there, so
+        the stance rows leave it out); the foot at touchdown without velocity along the landing surface
+        (``t_i . J_c v = 0``, 2 rows) and along its normal at most the touchdown speed (``|n . J_c v| <= s``, 2 rows); at
         mid-swing its height (world z) at least the swing's parameter (terrain top under the path plus the
         swing height); at every approach row its distance off the row's surface plane at least the row's
         offset (the approach clearance, none on the final approach)."""
         frames = self.structure.contact_frames
+        nc = self.structure.nc
         for i, swing in enumerate(self.structure.swings):
             frame = frames[swing.contact]
             rows = slice(3 * swing.contact, 3 * swing.contact + 3)
+            if swing.lift > 0 or not self.structure.fixed_start:  # a fixed start meets its footholds already
+                lift = swing.lift
+                error = self.functions.stance(V["q"][:, lift], P["footholds"][:, lift * nc:(lift + 1) * nc])
+                self.constraints.add(f"lift-off {frame}@{lift}", error[rows], [lift], unit="m", family="swing",
+                                     who=[f"{frame} on its foothold at lift-off ({axis})" for axis in "xyz"])
             if swing.touch < self.structure.knots - 1:  # the last knot is at rest by its bounds
                 _, velocity = self.functions.foot_motion(V["q"][:, swing.touch], V["v"][:, swing.touch])
                 tangents = P["touchdown_tangents"][:, i]

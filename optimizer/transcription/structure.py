@@ -74,8 +74,10 @@ class Structure:
     self_labels : tuple of str
         Per self pair ``"<shape> vs <shape>"``, for reports.
     activity : tuple of tuple of bool
-        (K, nc): contact in stance at the knot; empty means every contact at
-        every knot. Swinging contacts carry no force, gains or limit rows.
+        (K, nc): contact in stance and carrying force at the knot
+        (:meth:`~optimizer.problem.schedule.Schedule.loaded`: not at a
+        lift-off knot); empty means every contact at every knot. Other
+        contacts carry no force, gains or limit rows.
     swings : tuple of Swing
         Each swing's lift-off, touchdown and mid-swing knots
         (:mod:`optimizer.problem.schedule`).
@@ -143,7 +145,7 @@ def structure_of(task) -> Structure:
     # At rest q[K-1] equals q[K-2]: a target binding both would be a repeated equality.
     last = task.knots - 1
     slots = [s for s in slots if not (s.knot == last and (last - 1, s.frame) in taken)]
-    activity = task.schedule.activity(times)
+    activity = task.schedule.loaded(times)
     swings = tuple(task.schedule.swings(times))
     return Structure(
         activity=tuple(tuple(bool(x) for x in row) for row in activity) if not activity.all() else (),
