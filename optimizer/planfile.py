@@ -247,6 +247,8 @@ def _sizes_from_meta(path: Path, meta: dict) -> dict:
         f.number("approach_clearance", lo=0.0)
     if f.has("touchdown_speed"):
         f.number("touchdown_speed", lo=0.0, lo_open=True)
+    if f.has("load_ramp"):
+        f.number("load_ramp", lo=0.0)
     limits = f.sub("torque_limits")
     for side in ("lower", "upper"):
         _limit_vector(limits, side, nj)

@@ -148,6 +148,10 @@ class Schedule:
         m/s: the largest speed of the foot along the landing surface's
         normal at touchdown; with ``approach_clearance`` it sets the final
         approach, ``approach_clearance / touchdown_speed`` s long.
+    load_ramp : float
+        s over which a stepping foot's normal force may grow from its floor
+        to the robot's weight after touchdown, and shrink back to it before
+        lift-off (:meth:`load_caps`); 0: no such rows.
     path : path-like
         The task file (for error messages).
     """
@@ -156,6 +160,7 @@ class Schedule:
     swing_height: float = DEFAULT_SWING_HEIGHT
     approach_clearance: float = DEFAULT_APPROACH_CLEARANCE
     touchdown_speed: float = DEFAULT_TOUCHDOWN_SPEED
+    load_ramp: float = 0.0
     path: object = None
     field_name: str = "stance.schedule"
     frames: list = field(default_factory=list)
@@ -187,6 +192,24 @@ class Schedule:
         for swing in self.swings(times):
             out[swing.lift, swing.contact] = False
         return out
+
+    def load_caps(self, times) -> list[tuple[int, int, int]]:
+        """The load-ramp rows at these knot times: ``(contact, knot, steps)`` for every loaded knot less
+        than ``load_ramp`` s from its foot's nearest unloaded knot of a swing, ``steps`` knot steps away
+        (the lift-off knot after it, or the last knot in the air before it). The row caps the foot's
+        normal force at its floor plus the robot's weight times ``steps h / load_ramp``."""
+        if self.load_ramp <= 0.0 or len(times) < 2:
+            return []
+        step, loaded, out = times[1] - times[0], self.loaded(times), {}
+        for swing in self.swings(times):
+            for k in range(len(times)):
+                if not loaded[k, swing.contact]:
+                    continue
+                steps = swing.lift - k if k < swing.lift else k - (swing.touch - 1)
+                if 0 < steps and steps * step < self.load_ramp - 1e-12:
+                    key = (swing.contact, k)
+                    out[key] = min(out.get(key, steps), steps)
+        return sorted((c, k, s) for (c, k), s in out.items())
 
     def targets(self, times) -> np.ndarray:
         """(K, nc, 3) footholds [m] of the stance interval at each knot it carries force (:meth:`loaded`);

@@ -391,11 +391,11 @@ def with_friction_reserve(contacts, schedule: Schedule, reserve: float) -> list[
     return [dataclasses.replace(c, friction=planned_value(c.friction, reserve)) for c in contacts]
 
 
-SCHEDULE_NUMBERS = {"swing_height", "approach_clearance", "touchdown_speed"}   # stance.schedule keys that are not contact frames
+SCHEDULE_NUMBERS = {"swing_height", "approach_clearance", "touchdown_speed", "load_ramp"}   # stance.schedule keys that are not contact frames
 
 
 def read_schedule(stance: Fields, contacts, terrain, duration: float) -> Schedule:
-    """``stance.schedule``: ``{swing_height: m, approach_clearance: m, touchdown_speed: m/s, <frame>: [{window: [t0, t1] s, xy | position}, ...]}``.
+    """``stance.schedule``: ``{swing_height: m, approach_clearance: m, touchdown_speed: m/s, load_ramp: s, <frame>: [{window: [t0, t1] s, xy | position}, ...]}``.
 
     Each entry is a stance interval; a foothold is ``xy`` on the terrain (with
     an optional ``surface``) or an explicit ``position`` (explicit contacts);
@@ -420,6 +420,7 @@ def read_schedule(stance: Fields, contacts, terrain, duration: float) -> Schedul
     schedule.approach_clearance = section.number("approach_clearance", DEFAULT_APPROACH_CLEARANCE, lo=0.0, hi=0.5)
     schedule.touchdown_speed = section.number("touchdown_speed", DEFAULT_TOUCHDOWN_SPEED, lo=0.0, hi=5.0,
                                               lo_open=True)
+    schedule.load_ramp = section.number("load_ramp", 0.0, lo=0.0, hi=10.0)
     for key in section.data:
         require_text_key(section, key)
         if key not in SCHEDULE_NUMBERS:

@@ -58,6 +58,8 @@ for _name, _words, _hint in (
      "under the centre of mass, or lower min_normal_force"),
     ("preload", "preload per contact (the planned normal force)", "the named feet cannot press that hard along "
      "the motion: lower their preload, or place them where the other feet can push back"),
+    ("load ramp", "load ramp of stepping feet (the planned normal force near a swing)", "shorten "
+     "stance.schedule.load_ramp, or give the stances on both sides of the swing more time"),
     ("hand target", "hand targets", "lower the hand target or bring it closer to the body, or move the feet "
      "(e.g. the rear feet closer) toward it"),
     ("robust balance", "robustness: balance of the disturbance response", "shrink the disturbance shape, or solve "

@@ -218,6 +218,7 @@ class Transcription:
                          who=[c for c in frames for _ in range(3)])
         names = f.limits.names
         self._preloads(V, P)
+        self._load_caps(V, P)
         if self.objective.robust:
             scales = ca.repmat(f.room_scales(P["tau_lower"], P["tau_upper"]), 1, K)
             self._by_pattern("limit rooms", (self._rooms(V["tau"], V["lam"], P) - V["rooms"]) / scales, range(K),
@@ -241,6 +242,21 @@ class Transcription:
         _, rooms = self._map(self.functions.friction, K)(V["lam"], P["facets"], P["normals"], P["preload"])
         self._by_pattern("preload", rooms, range(K), lambda pattern: [c for c in preloaded if pattern[c]],
                          LIMIT_BACKOFF, INF, unit="m g", who=list(self.structure.contact_frames))
+
+    def _load_caps(self, V, P):
+        """Each load-ramp row (``Structure.load_caps``): the plan's own normal force of a stepping foot at
+        most its floor (its minimum normal force, or its preload when larger) plus the robot's weight
+        times ``steps h / load_ramp``; plain rows on the planned force, like the preload's."""
+        s = self.structure
+        for c, k, steps in s.load_caps:
+            floor = P["min_normal_force"][c]
+            if c in s.preloaded:
+                floor = ca.fmax(floor, P["preload"][c])
+            force = ca.dot(P["normals"][:, k * s.nc + c], V["lam"][3 * c:3 * c + 3, k])
+            cap = floor + self.weight * steps * P["step"] / s.load_ramp
+            frame = s.contact_frames[c]
+            self.constraints.add(f"load ramp {frame}@{k}", (cap - force) / self.weight, [k], 0.0, INF,
+                                 unit="m g", family="load ramp", who=[f"{frame} normal force within its load ramp"])
 
     def _swings(self, V, P):
         """Per swing: the foot on its foothold at the lift-off knot (3 rows; it carries no force there, so

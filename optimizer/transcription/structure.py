@@ -85,6 +85,11 @@ class Structure:
         The approach rows of the swings (a swinging foot kept off the plane
         of the surface it left or lands on, at one knot); each row's plane
         and clearance are a parameter.
+    load_caps : tuple of (int, int, int)
+        The load-ramp rows, ``(contact, knot, steps)``
+        (:meth:`~optimizer.problem.schedule.Schedule.load_caps`).
+    load_ramp : float
+        Their ramp time [s]; with the rows, structure.
     preloaded : tuple of int
         Contacts whose preload exceeds their minimum normal force: each gets
         a ``preload`` row per stance knot (the plan's own force only, not its
@@ -106,6 +111,8 @@ class Structure:
     swings: tuple = ()
     swing_rows: tuple = ()
     preloaded: tuple = ()
+    load_caps: tuple = ()
+    load_ramp: float = 0.0
 
     def active(self, k: int) -> tuple:
         """Contacts in stance at knot ``k`` (bools, length nc)."""
@@ -151,6 +158,8 @@ def structure_of(task) -> Structure:
         activity=tuple(tuple(bool(x) for x in row) for row in activity) if not activity.all() else (),
         swings=swings,
         swing_rows=tuple(swing_rows(swings)),
+        load_caps=tuple(task.schedule.load_caps(times)),
+        load_ramp=float(task.schedule.load_ramp),
         preloaded=tuple(c for c, contact in enumerate(task.contacts) if contact.preload > contact.min_normal_force),
         knots=task.knots,
         contact_frames=tuple(c.frame for c in task.contacts),
