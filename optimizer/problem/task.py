@@ -391,11 +391,13 @@ def with_friction_reserve(contacts, schedule: Schedule, reserve: float) -> list[
     return [dataclasses.replace(c, friction=planned_value(c.friction, reserve)) for c in contacts]
 
 
-SCHEDULE_NUMBERS = {"swing_height", "approach_clearance", "touchdown_speed", "load_ramp"}   # stance.schedule keys that are not contact frames
+# stance.schedule keys that are not contact frames
+SCHEDULE_NUMBERS = {"swing_height", "approach_clearance", "touchdown_speed", "load_ramp"}
 
 
 def read_schedule(stance: Fields, contacts, terrain, duration: float) -> Schedule:
-    """``stance.schedule``: ``{swing_height: m, approach_clearance: m, touchdown_speed: m/s, load_ramp: s, <frame>: [{window: [t0, t1] s, xy | position}, ...]}``.
+    """``stance.schedule``: ``{swing_height: m, approach_clearance: m, touchdown_speed: m/s, load_ramp: s,
+    <frame>: [{window: [t0, t1] s, xy | position}, ...]}``.
 
     Each entry is a stance interval; a foothold is ``xy`` on the terrain (with
     an optional ``surface``) or an explicit ``position`` (explicit contacts);
