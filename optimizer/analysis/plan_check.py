@@ -212,7 +212,8 @@ def _touchdowns(active):
 
 
 def _last_stance_knot(active, touch: int, c: int) -> int:
-    """The last knot before ``touch`` with contact ``c`` in stance (the lift-off knot)."""
+    """The last knot before ``touch`` with contact ``c`` in stance (carrying force): the knot before the
+    lift-off knot, where the foot stands on its foothold unloaded."""
     return int(np.flatnonzero(active[:touch, c])[-1])
 
 

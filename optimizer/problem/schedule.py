@@ -206,7 +206,7 @@ class Schedule:
                 if not loaded[k, swing.contact]:
                     continue
                 steps = swing.lift - k if k < swing.lift else k - (swing.touch - 1)
-                if 0 < steps and steps * step < self.load_ramp - 1e-12:
+                if steps * step < self.load_ramp - 1e-12:   # steps >= 1: loaded knots are outside the swing
                     key = (swing.contact, k)
                     out[key] = min(out.get(key, steps), steps)
         return sorted((c, k, s) for (c, k), s in out.items())

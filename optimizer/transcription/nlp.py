@@ -262,9 +262,10 @@ class Transcription:
         """Per swing: the foot on its foothold at the lift-off knot (3 rows; it carries no force there, so
         the stance rows leave it out); the foot at touchdown without velocity along the landing surface
         (``t_i . J_c v = 0``, 2 rows) and along its normal at most the touchdown speed
-        (``|n . J_c v| <= s``, 2 rows); at mid-swing its height (world z) at least the swing's parameter (terrain top under the path plus the
-        swing height); at every approach row its distance off the row's surface plane at least the row's
-        offset (the approach clearance, none on the final approach)."""
+        (``|n . J_c v| <= s``, 2 rows); at mid-swing its height (world z) at least the swing's parameter
+        (terrain top under the path plus the swing height); at every approach row its distance off the
+        row's surface plane at least the row's offset (the approach clearance, none on the final
+        approach)."""
         frames = self.structure.contact_frames
         nc = self.structure.nc
         for i, swing in enumerate(self.structure.swings):
