@@ -31,17 +31,16 @@ from certify_checks import demo_standing, standing_plan
 from optimizer.cli import main
 from optimizer.cli.simulate import underload_lines
 from optimizer.errors import PlanFileError
-from optimizer.planfile import build_model, save_plan
+from optimizer.planfile import save_plan
 from optimizer.planner import solve
 from optimizer.problem.task import load_task
 from optimizer.robot.model import load_robot
-from optimizer.simulation.inputs import simulation_inputs
-from optimizer.simulation.pushes import Settings, Simulator
 from optimizer.report.palette import FIGURE_DPI
 from optimizer.report.simulation import SIZE
 from optimizer.simulation.rollout import SurvivalRules
 from optimizer.simulation.scene import build_scene
 from optimizer.simulation.surfaces import scene_surfaces
+from replay_checks import assert_tracks, simulator
 from stepping_plans import stepping_plan
 
 TASKS = ["stair_landing", "steep_ramp", "trench", "crawl_space"]
@@ -58,11 +57,6 @@ def robust_plans():
         assert outcome.success, [(s.objective, s.status) for s in outcome.stages]
         plans[name] = outcome.plan
     return plans
-
-
-def simulator(plan, settings: Settings | None = None) -> Simulator:
-    inputs = simulation_inputs(plan, build_model("plan", plan.meta["urdf"]))
-    return Simulator(plan, inputs.surfaces, inputs.targets, inputs.hand_frame, settings)
 
 
 def standing(knots: int = 6):
@@ -130,17 +124,6 @@ def test_every_foothold_lies_on_a_terrain_surface_facing_its_normal(robust_plans
 @pytest.mark.parametrize("task_name", TASKS)
 def test_nominal_replay_keeps_feet_and_reaches_hand_targets(robust_plans, task_name):
     assert_tracks(simulator(robust_plans[task_name]).nominal())
-
-
-def assert_tracks(report):
-    """Nominal replay acceptance: every foot within 5 mm of its foothold, no contact lost, every
-    hand target within 2 cm (MuJoCo's contact dynamics are the outside reference)."""
-    for foot in report["feet"]:
-        assert foot["distance_m"] <= 0.005, foot
-        assert foot["contact_losses"] == 0, foot
-    assert report["targets"], "the demo tasks have hand targets"
-    for target in report["targets"]:
-        assert target["error_m"] <= 0.02, target
 
 
 @pytest.mark.slow

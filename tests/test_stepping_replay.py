@@ -8,16 +8,9 @@ from __future__ import annotations
 
 import pytest
 
-from optimizer.planfile import build_model
 from optimizer.planner import Planner
 from optimizer.problem.task import load_task
-from optimizer.simulation.inputs import simulation_inputs
-from optimizer.simulation.pushes import Simulator
-
-
-def nominal(plan) -> dict:
-    inputs = simulation_inputs(plan, build_model("plan", plan.meta["urdf"]))
-    return Simulator(plan, inputs.surfaces, inputs.targets, inputs.hand_frame).nominal()
+from replay_checks import assert_tracks, simulator
 
 
 @pytest.mark.slow
@@ -31,8 +24,4 @@ def test_the_landing_pick_torque_plan_keeps_its_feet_with_its_preload_and_load_r
     with Planner(evaluation="compiled") as planner:
         outcome = planner.solve_from_seed(planner.seed(task), "torque")
     assert outcome.success, [(s.objective, s.status) for s in outcome.stages]
-    report = nominal(outcome.plan)
-    for foot in report["feet"]:
-        assert foot["distance_m"] <= 0.005, foot
-        assert foot["contact_losses"] == 0, foot
-    assert report["targets"] and all(t["error_m"] <= 0.02 for t in report["targets"]), report["targets"]
+    assert_tracks(simulator(outcome.plan).nominal())
