@@ -2,13 +2,16 @@
 
     python benchmarks/objective_margins.py solve --tasks-dir tasks --tasks steep_ramp,crawl_space --knots 60
                                            --objectives torque,robust-min,robust-sum --out AFTER.json
+                                           [--evaluation compiled] [--options '{"tol": 1e-6}']
     python benchmarks/objective_margins.py compare BEFORE.json AFTER.json [--names robust=robust-sum]
                                            [--write benchmarks/RESULTS.md]
 
 ``solve`` plans each task of ``--tasks-dir`` at ``--knots`` with the planner's defaults (one feasibility
 seed, then every objective of ``--objectives`` from it) and writes, per task and objective, the smallest
-and mean certified margin over the knots (N, the plan's ``margin``), the objective stage's iterations
-and whether it succeeded. It uses only ``Planner``, ``seed``, ``solve_from_seed`` and ``load_task``, so
+and mean certified margin over the knots (N, the plan's ``margin``), the seed's and the objective
+stage's iterations and whether it succeeded. ``--evaluation`` and ``--options`` (a JSON object of Ipopt
+options over brace's defaults) are handed to the planner when given, so one checkout can compare two
+solver settings. It uses only ``Planner``, ``seed``, ``solve_from_seed`` and ``load_task``, so
 the same file runs on an older checkout of brace (``PYTHONPATH=OLD python benchmarks/objective_margins.py
 solve ...``): the "before" of a comparison, on the task files of that checkout.
 
@@ -35,7 +38,8 @@ def solve(args) -> None:
     rows = []
     for name in args.tasks.split(","):
         task = load_task(Path(args.tasks_dir) / f"{name}.yaml").with_knots(args.knots)
-        with Planner() as planner:
+        settings = {"evaluation": args.evaluation} if args.evaluation else {}
+        with Planner(options=json.loads(args.options) if args.options else None, **settings) as planner:
             seed = planner.seed(task)
             for objective in args.objectives.split(","):
                 started = time.perf_counter()
@@ -44,9 +48,11 @@ def solve(args) -> None:
                 rows.append({"task": name, "objective": objective, "success": bool(outcome.success),
                              "smallest": float(margin.min()), "mean": float(margin.mean()),
                              "iterations": int(outcome.stages[-1].iterations),
+                             "seed_iterations": int(seed.outcome.stages[-1].iterations),
                              "seconds": time.perf_counter() - started})
                 print(rows[-1], flush=True)
-    Path(args.out).write_text(json.dumps({"knots": args.knots, "tasks_dir": str(args.tasks_dir), "rows": rows},
+    Path(args.out).write_text(json.dumps({"knots": args.knots, "tasks_dir": str(args.tasks_dir),
+                                          "evaluation": args.evaluation, "options": args.options, "rows": rows},
                                          indent=1), encoding="utf-8")
 
 
@@ -61,12 +67,12 @@ def compare(args) -> None:
     before, after = (json.loads(Path(p).read_text(encoding="utf-8")) for p in (args.before, args.after))
     renamed = dict(pair.split("=", 1) for pair in args.names.split(",") if pair)
     now = {(r["task"], r["objective"]): r for r in after["rows"]}
-    lines = [f"## {SECTION}", "",
+    lines = [f"## {args.section}", "",
              f"Files: `{args.before}` against `{args.after}` ({before['knots']} knots; compare command: "
              f"`python benchmarks/objective_margins.py compare {' '.join(sys.argv[2:])}`).", "",
              "| task | objective (before -> after) | smallest before / after [N] | ratio | mean before / after [N] "
-             "| ratio | iterations before / after |",
-             "| --- | --- | ---: | ---: | ---: | ---: | ---: |"]
+             "| ratio | iterations before / after | seed iterations before / after |",
+             "| --- | --- | ---: | ---: | ---: | ---: | ---: | ---: |"]
     for r in before["rows"]:
         new_name = renamed.get(r["objective"], r["objective"])
         a = now.get((r["task"], new_name))
@@ -75,8 +81,9 @@ def compare(args) -> None:
         name = r["objective"] if new_name == r["objective"] else f"{r['objective']} -> {new_name}"
         lines.append(f"| {r['task']} | {name} | {r['smallest']:.3f} / {a['smallest']:.3f} | "
                      f"{ratio(a['smallest'], r['smallest'])} | {r['mean']:.2f} / {a['mean']:.2f} | "
-                     f"{ratio(a['mean'], r['mean'])} | {r['iterations']} / {a['iterations']} |")
-    publish("\n".join(lines) + "\n", args.write, SECTION)
+                     f"{ratio(a['mean'], r['mean'])} | {r['iterations']} / {a['iterations']} | "
+                     f"{r.get('seed_iterations', '-')} / {a.get('seed_iterations', '-')} |")
+    publish("\n".join(lines) + "\n", args.write, args.section)
 
 
 def main() -> None:
@@ -87,12 +94,15 @@ def main() -> None:
     run.add_argument("--tasks", default="steep_ramp,crawl_space,stair_landing,trench")
     run.add_argument("--knots", type=int, default=60)
     run.add_argument("--objectives", default="torque,robust-min,robust-sum")
+    run.add_argument("--evaluation", help="the planner's evaluation (default: the planner's default)")
+    run.add_argument("--options", help="JSON object of Ipopt options over brace's defaults")
     run.add_argument("--out", required=True)
     table = commands.add_parser("compare")
     table.add_argument("before")
     table.add_argument("after")
     table.add_argument("--names", default="", help="OLD=NEW,...: objectives renamed in between")
     table.add_argument("--write", metavar="RESULTS.md")
+    table.add_argument("--section", default=SECTION, help=f"heading of the section written (default {SECTION})")
     args = parser.parse_args()
     solve(args) if args.command == "solve" else compare(args)
 

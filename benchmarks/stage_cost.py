@@ -14,8 +14,10 @@ Two measurements per task, in this process, with brace's cache folder (``$BRACE_
 * **Ipopt options.** One feasibility seed, then the robust stage from it once per entry of
   ``--options`` (each a JSON object of Ipopt options over brace's defaults, a solver of its own).
   Reported: iterations, the stage's time per iteration split into evaluating the NLP and Ipopt's own
-  work (factorizations, line search), and the certified margins. The first entry is measured again
-  last, so the spread of the repeated entry shows the machine's noise.
+  work (factorizations, line search), the part of Ipopt's own work spent in its primal-dual linear
+  systems (factorizing and solving the KKT matrix with MUMPS, from Ipopt's
+  ``print_timing_statistics``), and the certified margins. The first entry is measured again last, so
+  the spread of the repeated entry shows the machine's noise.
 
 Prints Markdown; ``--write`` replaces the section "Robust-stage iterations, per-iteration cost"
 (``--section`` names another). ``--flags=`` (empty) leaves the compiler flags out.
@@ -27,6 +29,7 @@ import datetime
 import json
 import os
 import platform
+import shlex
 import sys
 import time
 from pathlib import Path
@@ -77,6 +80,18 @@ def flag_rows(task, flags: list[str]) -> list[str]:
             f"{spent[flag] / first:.2f} |" for flag in flags]
 
 
+TIMING = {"print_timing_statistics": "yes"}
+
+
+def linear_system_time(log: Path) -> float:
+    """Wall time [s] Ipopt spent in its primal-dual linear systems, from the timing statistics in ``log``
+    (the line ``PDSystemSolverTotal....: cpu (sys: s wall: w)``); NaN when the log has none."""
+    for line in log.read_text(errors="replace").splitlines():
+        if line.startswith("PDSystemSolverTotal"):
+            return float(line.rsplit("wall:", 1)[1].strip(" )"))
+    return float("nan")
+
+
 def option_rows(task, option_sets: list[dict]) -> list[str]:
     """The robust stage from one seed, once per Ipopt option set (the first again at the end)."""
     from optimizer.planner import Planner
@@ -84,17 +99,19 @@ def option_rows(task, option_sets: list[dict]) -> list[str]:
     with Planner(evaluation="compiled") as seeder:
         seed = seeder.seed(task)
         if not seed.success:
-            return [f"| {task.path.stem} | seed failed | | | | | |"]
+            return [f"| {task.path.stem} | seed failed | | | | | | |"]
         for options in [*option_sets, option_sets[0]]:
-            with Planner(evaluation="compiled", options=options) as planner:
+            with Planner(evaluation="compiled", options={**TIMING, **options}) as planner:
                 outcome = planner.solve_from_seed(seed, "robust")
+                linear = linear_system_time(planner.built(seed.task, "robust").log)
             stage = outcome.stages[-1]
             per = max(stage.iterations, 1)
             margin = "failed" if outcome.plan is None else \
                 f"{outcome.plan.margin.min():.4g} / {outcome.plan.margin.mean():.4g}"
             rows.append(f"| {task.path.stem} | `{json.dumps(options) if options else 'defaults'}` | "
                         f"{stage.status} | {stage.iterations} | {stage.eval_time / per * 1e3:.0f} | "
-                        f"{(stage.solve_time - stage.eval_time) / per * 1e3:.0f} | {margin} |")
+                        f"{(stage.solve_time - stage.eval_time) / per * 1e3:.0f} | {linear / per * 1e3:.0f} | "
+                        f"{margin} |")
             print(rows[-1], flush=True)
     return rows
 
@@ -130,8 +147,8 @@ def main(argv=None) -> int:
         f"## {args.section}", "",
         f"Script: `python benchmarks/stage_cost.py --tasks {args.tasks} --knots {args.knots} --flags={args.flags} "
         f"--flag-tasks {','.join(flag_tasks)} "
-        + (f"--section '{args.section}' " if args.section != SECTION else "") +
-        f"--options '{args.options}'` ({datetime.date.today().isoformat()}, {os.cpu_count()} cores, "
+        + (f"--section {shlex.quote(args.section)} " if args.section != SECTION else "") +
+        f"--options {shlex.quote(args.options)}` ({datetime.date.today().isoformat()}, {os.cpu_count()} cores, "
         f"{platform.processor() or platform.machine()}, Python {platform.python_version()}, "
         f"`OPENBLAS_NUM_THREADS=1`, Ipopt + MUMPS through CasADi, compiled evaluation); whole run "
         f"{(time.perf_counter() - started) / 60:.1f} min. Machine load (`uptime`) at the start and the end: "
@@ -142,9 +159,11 @@ def main(argv=None) -> int:
             "| task | flag | compile [s] | evaluation [ms] | ratio |", "| --- | --- | ---: | ---: | ---: |",
             *flag_table, ""] if flag_table else []),
         "Robust stage from one seed per Ipopt option set (the first set repeated last: its spread is the "
-        "machine's noise); per iteration the time evaluating the NLP and Ipopt's own work [ms]:", "",
-        "| task | Ipopt options | status | iterations | eval [ms/it] | own [ms/it] | margin min / mean [N] |",
-        "| --- | --- | --- | ---: | ---: | ---: | --- |", *option_table]
+        "machine's noise); per iteration the time evaluating the NLP, Ipopt's own work, and the part of "
+        "that in its linear systems (factorizing and solving the KKT matrix) [ms]:", "",
+        "| task | Ipopt options | status | iterations | eval [ms/it] | own [ms/it] | of it linear systems "
+        "[ms/it] | margin min / mean [N] |",
+        "| --- | --- | --- | ---: | ---: | ---: | ---: | --- |", *option_table]
     publish("\n".join(lines) + "\n", args.write, args.section)
     return 0
 
