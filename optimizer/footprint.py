@@ -16,7 +16,7 @@ top of what the process holds already.
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import casadi as ca
 
@@ -75,6 +75,10 @@ class MemoryEstimate:
         per_knot = self.bytes_per_node * sum(s.nodes_per_knot for s in self.stages)
         spare = ceiling - self.at(0)
         return max(int(spare // per_knot), 0) if per_knot > 0 else self.knots
+
+    def built_at(self, bytes_per_node: float) -> "MemoryEstimate":
+        """The same NLP sizes counted at another build's ``bytes_per_node`` (another evaluation's solvers)."""
+        return replace(self, bytes_per_node=bytes_per_node)
 
     def describe(self) -> str:
         stages = " + ".join(s.objective for s in self.stages)

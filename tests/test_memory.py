@@ -97,6 +97,9 @@ def test_a_solve_over_the_limit_is_refused_before_any_build(tmp_path):
     assert "for 120 knots" in err[0] and "more than the 600 MB set as the memory limit" in err[0], err
     fits = int(err[0].split("--knots ")[1].split(")")[0])
     assert 2 <= fits < 120
+    # the compiled build's solvers need several times less per node: more knots fit under the same limit
+    leaner = int(err[0].split("with --evaluation compiled up to ")[1].split(" knots")[0])
+    assert fits < leaner < 120
     assert "building" not in done.stdout          # refused before any solver was built
     assert not out.parent.exists()                # no plan, no log
 
@@ -167,3 +170,6 @@ def test_brace_solve_estimates_for_the_evaluation_it_is_given(tmp_path):
     done = run_cli([*argv, "--evaluation", "compiled"], tmp_path)
     assert done.returncode == 0, done.stderr
     assert "brace solve: memory: about" in done.stdout and "for 120 knots" in done.stdout
+    # the refusal points at the compiled evaluation with the figure that run then estimates
+    advised = refused.stderr.split("with --evaluation compiled it needs about ")[1].split(" and fits")[0]
+    assert f"brace solve: memory: about {advised} for 120 knots" in done.stdout, (refused.stderr, done.stdout)

@@ -221,7 +221,8 @@ def check_memory(task, objective: str, limit: int | None, evaluation: str | None
     from ..planner import DEFAULT_EVALUATION, shared_planner
 
     supervisor.phase("estimating the memory the solve needs")
-    estimate = estimate_memory(task, objective, shared_planner(evaluation or DEFAULT_EVALUATION))
+    planner = shared_planner(evaluation or DEFAULT_EVALUATION)
+    estimate = estimate_memory(task, objective, planner)
     available = available_memory()
     if limit is not None:
         ceiling, what = limit, "set as the memory limit"
@@ -236,13 +237,27 @@ def check_memory(task, objective: str, limit: int | None, evaluation: str | None
         advice = (f"the largest knot count that fits is {fits} (--knots {fits})" if fits >= 2
                   else "not even 2 knots fit")
         raise TooLargeForMemory(f"the solve needs {estimate.describe()}, more than the {format_size(ceiling)} {what}; "
-                                f"{advice}; nothing was built (a higher --memory-limit overrides the estimate)")
+                                f"{advice}{leaner_advice(estimate, ceiling, planner)}; nothing was built "
+                                "(a higher --memory-limit overrides the estimate)")
     print(f"brace solve: memory: {estimate.describe()}; {format_size(ceiling)} {what}")
     if estimate.total > CLOSE * ceiling:
         print(f"  warning: the estimate is {100 * estimate.total / ceiling:.0f} % of the {format_size(ceiling)} "
               f"{what}; the solve may run out of memory (fewer knots need less)")
     if limit is not None and available is not None and estimate.total - estimate.baseline > available.size:
         print(f"  warning: only {format_size(available.size)} is {available.source}, less than the estimate")
+
+
+def leaner_advice(estimate, ceiling: float, planner) -> str:
+    """For a refused expanded solve: what ``--evaluation compiled`` would need (its solvers keep the knot
+    functions mapped, several times less memory per node), as '; with ...' text, or '' when the planner
+    does not expand or the compiled build would not fit 2 knots either."""
+    if not planner.expands:
+        return ""
+    leaner = estimate.built_at(planner.backend.build_bytes_per_node(False))
+    if leaner.total <= ceiling:
+        return f"; with --evaluation compiled it needs about {format_size(leaner.total)} and fits"
+    fits = leaner.largest_knots(ceiling)
+    return f"; with --evaluation compiled up to {fits} knots fit" if fits >= 2 else ""
 
 
 def _print_phase(text: str) -> None:
