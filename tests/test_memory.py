@@ -173,3 +173,17 @@ def test_brace_solve_estimates_for_the_evaluation_it_is_given(tmp_path):
     # the refusal points at the compiled evaluation with the figure that run then estimates
     advised = refused.stderr.split("with --evaluation compiled it needs about ")[1].split(" and fits")[0]
     assert f"brace solve: memory: about {advised} for 120 knots" in done.stdout, (refused.stderr, done.stdout)
+
+
+def test_the_warning_near_the_limit_names_the_leaner_evaluation_only_for_expanded_solves(capsys):
+    """Above 80 % of the limit `brace solve` warns; for an expanded build it names `--evaluation compiled`,
+    whose figure per node is several times smaller (benchmarks/RESULTS.md "Memory, compiled evaluation")."""
+    import optimizer.cli.solve as solve_cli
+
+    task = load_task(RAMP).with_knots(20)
+    for evaluation in ("expanded", "compiled"):
+        estimate = estimate_memory(task, "robust", shared_planner(evaluation))
+        solve_cli.check_memory(task, "robust", int(estimate.total / 0.9), evaluation)
+        out = capsys.readouterr().out
+        assert "warning: the estimate is 90 %" in out, out
+        assert ("--evaluation compiled" in out) == (evaluation == "expanded"), out

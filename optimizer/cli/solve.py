@@ -242,7 +242,8 @@ def check_memory(task, objective: str, limit: int | None, evaluation: str | None
     print(f"brace solve: memory: {estimate.describe()}; {format_size(ceiling)} {what}")
     if estimate.total > CLOSE * ceiling:
         print(f"  warning: the estimate is {100 * estimate.total / ceiling:.0f} % of the {format_size(ceiling)} "
-              f"{what}; the solve may run out of memory (fewer knots need less)")
+              f"{what}; the solve may run out of memory (fewer knots need less"
+              + (", and so does --evaluation compiled)" if planner.expands else ")"))
     if limit is not None and available is not None and estimate.total - estimate.baseline > available.size:
         print(f"  warning: only {format_size(available.size)} is {available.source}, less than the estimate")
 
