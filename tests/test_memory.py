@@ -90,7 +90,8 @@ def run_cli(argv, tmp_path):
 
 def test_a_solve_over_the_limit_is_refused_before_any_build(tmp_path):
     out = tmp_path / "plans" / "ramp.npz"
-    done = run_cli(["solve", str(RAMP), "--knots", "120", "--memory-limit", "600M", "--out", str(out)], tmp_path)
+    done = run_cli(["solve", str(RAMP), "--knots", "120", "--memory-limit", "600M", "--evaluation", "expanded",
+                    "--out", str(out)], tmp_path)
     assert done.returncode == 2, done.stderr
     err = [line for line in done.stderr.splitlines() if line.strip()]
     assert len(err) == 1 and "Traceback" not in done.stderr
@@ -165,7 +166,7 @@ def test_brace_solve_estimates_for_the_evaluation_it_is_given(tmp_path):
     "Memory"), the compiled one at a fraction of it: under a 2 GB limit `brace solve` refuses the first and
     lets the second through (--check-only: nothing is built)."""
     argv = ["solve", str(RAMP), "--knots", "120", "--memory-limit", "2G", "--check-only", "--skip-checks"]
-    refused = run_cli(argv, tmp_path)
+    refused = run_cli([*argv, "--evaluation", "expanded"], tmp_path)
     assert refused.returncode == 2 and "more than the 2.0 GB set as the memory limit" in refused.stderr, refused.stderr
     done = run_cli([*argv, "--evaluation", "compiled"], tmp_path)
     assert done.returncode == 0, done.stderr
@@ -187,3 +188,41 @@ def test_the_warning_near_the_limit_names_the_leaner_evaluation_only_for_expande
         out = capsys.readouterr().out
         assert "warning: the estimate is 90 %" in out, out
         assert ("--evaluation compiled" in out) == (evaluation == "expanded"), out
+
+
+def test_brace_solve_chooses_the_compiled_evaluation_from_30_knots_when_a_compiler_is_there(monkeypatch):
+    """`--evaluation auto`, brace solve's default: compiled from AUTO_COMPILED_KNOTS knots on (where even the
+    first compiled plan of a shape was faster than the expanded one, benchmarks/RESULTS.md "Solve, compiled
+    evaluation and cache"), expanded below and whenever no C compiler is found; a named evaluation is kept."""
+    from optimizer.cli.cache import AUTO_COMPILED_KNOTS, chosen_evaluation
+    from optimizer.transcription.compiled import COMPILER_ENVIRONMENT
+
+    monkeypatch.setenv(COMPILER_ENVIRONMENT, sys.executable)     # a command that exists stands for the compiler
+    assert chosen_evaluation("auto", AUTO_COMPILED_KNOTS) == "compiled"
+    assert chosen_evaluation("auto", AUTO_COMPILED_KNOTS - 1) == "expanded"
+    assert chosen_evaluation("expanded", 240) == "expanded" and chosen_evaluation("mapped", 6) == "mapped"
+    monkeypatch.setenv(COMPILER_ENVIRONMENT, "no-such-compiler-here")
+    assert chosen_evaluation("auto", 240) == "expanded"
+
+
+@pytest.mark.parametrize("compiler", ["present", "missing"])
+def test_brace_solve_estimates_memory_for_the_evaluation_it_chose(compiler, tmp_path):
+    """At 60 knots brace solve's automatic choice is the compiled evaluation when the compiler is found and the
+    expanded one when not: its memory estimate is the one printed with that evaluation named."""
+    from optimizer.transcription.compiled import COMPILER_ENVIRONMENT
+
+    def estimate(*extra):
+        env = dict(os.environ, OPENBLAS_NUM_THREADS="1", PYTHONPATH=str(ROOT),
+                   **{COMPILER_ENVIRONMENT: sys.executable if compiler == "present" else "no-such-compiler-here"})
+        done = subprocess.run([sys.executable, "-m", "optimizer", "solve", str(RAMP), "--knots", "60", "--check-only",
+                               "--skip-checks", "--memory-limit", "64G", *extra], capture_output=True, text=True,
+                              env=env, timeout=300, cwd=tmp_path)
+        assert done.returncode == 0, done.stderr
+        line = next(line for line in done.stdout.splitlines() if line.startswith("brace solve: memory:"))
+        number, unit = line.split("about ")[1].split()[:2]
+        return float(number) * {"MB": 2**20, "GB": 2**30}[unit]
+
+    chosen, compiled, expanded = estimate(), estimate("--evaluation", "compiled"), estimate("--evaluation", "expanded")
+    assert expanded > 2 * compiled                   # several times less per node (see above)
+    # the same estimate up to what each process held when it estimated (a few MB)
+    assert chosen == pytest.approx(compiled if compiler == "present" else expanded, rel=0.05)

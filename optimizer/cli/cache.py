@@ -29,14 +29,37 @@ def add_cache_option(parser: argparse.ArgumentParser) -> None:
                              "$XDG_CACHE_HOME/brace, else ~/.cache/brace)")
 
 
-def add_evaluation_option(parser: argparse.ArgumentParser) -> None:
+# `brace solve --evaluation auto` (its default): the compiled evaluation from this many knots on when a C
+# compiler is found, else the expanded one. Steep ramp, robust, one fresh process each on an idle 2-core
+# machine (benchmarks/RESULTS.md, "Solve, compiled evaluation and cache"): at 30 knots the first compiled
+# plan of a shape, compiler included, took 30.8 s against 34.1 s expanded and later ones 12.7 s; at 60
+# knots 59.7 and 35.0 s against 64.2 s; peak memory 0.32 / 0.46 GB against 1.11 / 2.08 GB. Below 30 knots
+# the compiler's fixed 20-30 s is not won back on the first plan.
+AUTO = "auto"
+AUTO_COMPILED_KNOTS = 30
+
+
+def add_evaluation_option(parser: argparse.ArgumentParser, auto: bool = False) -> None:
+    """``--evaluation``; with ``auto`` it also takes (and defaults to) ``auto``, see :func:`chosen_evaluation`."""
     from ..planner import DEFAULT_EVALUATION, EVALUATIONS
 
-    parser.add_argument("--evaluation", choices=EVALUATIONS, default=DEFAULT_EVALUATION,
-                        help="how the solver evaluates the problem: compiled (C code compiled once per robot and "
-                             "task shape, kept in the cache folder: the fastest plan from a fresh process), "
-                             "expanded (one graph: slow build, fast iterations) or mapped (fast build, slow "
-                             f"iterations); default {DEFAULT_EVALUATION}")
+    default = AUTO if auto else DEFAULT_EVALUATION
+    choices = (*EVALUATIONS, AUTO) if auto else EVALUATIONS
+    chooser = (f"auto (compiled from {AUTO_COMPILED_KNOTS} knots on when a C compiler is found, else expanded), "
+               if auto else "")
+    parser.add_argument("--evaluation", choices=choices, default=default,
+                        help=f"how the solver evaluates the problem: {chooser}compiled (C code compiled once per "
+                             "robot and task shape, kept in the cache folder: the fastest plan from a fresh "
+                             "process), expanded (one graph: slow build, fast iterations) or mapped (fast build, "
+                             f"slow iterations); default {default}")
+
+
+def chosen_evaluation(requested: str, knots: int) -> str:
+    """The evaluation a command uses: ``requested``, or for ``auto`` compiled from
+    :data:`AUTO_COMPILED_KNOTS` knots on when a C compiler is found, else expanded."""
+    if requested != AUTO:
+        return requested
+    return "compiled" if knots >= AUTO_COMPILED_KNOTS and compiler_note() is None else "expanded"
 
 
 MAX_THREADS = 512

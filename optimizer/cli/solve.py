@@ -29,8 +29,8 @@ from ..memory import SIZE_TEXT, available_memory, format_size, parse_size
 from ..problem.task import MAX_KNOTS, load_task
 from ..transcription.objectives import OBJECTIVES
 from ..notices import SAFETY
-from .cache import (add_cache_option, add_evaluation_option, add_threads_option, apply_cache_option,
-                    compiler_note, threads_option)
+from .cache import (AUTO, add_cache_option, add_evaluation_option, add_threads_option, apply_cache_option,
+                    chosen_evaluation, compiler_note, threads_option)
 from .shortfalls import shortfall_lines, use_colour
 
 if TYPE_CHECKING:
@@ -62,7 +62,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="flag knots whose certified margin is below this, N, where nothing is required "
                              f"(default {100 * DEFAULT_WARN_FRACTION:.0f} %% of the robot's weight)")
     add_cache_option(parser)
-    add_evaluation_option(parser)
+    add_evaluation_option(parser, auto=True)
     add_threads_option(parser, "$BRACE_THREADS, else 1")
 
 
@@ -90,22 +90,24 @@ def _run(args) -> int:
     run_checks(task, args.skip_checks)
     if not args.skip_checks and not requirement_reachable(task):
         return 1
-    check_memory(task, objective, limit, args.evaluation)
+    evaluation = chosen_evaluation(args.evaluation, task.knots)
+    check_memory(task, objective, limit, evaluation)
     if args.check_only:
         print(f"brace solve: task '{task.name}' is valid" + ("" if args.skip_checks else "; pre-solve checks passed"))
         return 0
     from ..planner import solve, take_notice
 
-    note = compiler_note() if args.evaluation == "compiled" else None
+    note = compiler_note() if evaluation == "compiled" else None
     if note:
         print(note)
     log_path = out.with_suffix(".ipopt.log")
     write_log_header(log_path, f"Ipopt logs of brace solve {args.task} --objective {objective}\n")
     print(f"brace solve: task '{task.name}', objective {objective}, {task.knots} knots over {task.duration:.2f} s, "
-          f"robot '{task.robot.name}' ({task.robot.mass:.1f} kg)")
+          f"robot '{task.robot.name}' ({task.robot.mass:.1f} kg), {evaluation} evaluation"
+          + (" (auto)" if args.evaluation == AUTO else ""))
     started = time.perf_counter()
     outcome = solve(task, objective, progress=None if args.quiet else _print_progress, log_path=log_path,
-                    evaluation=args.evaluation, threads=threads)
+                    evaluation=evaluation, threads=threads)
     elapsed = time.perf_counter() - started
     for text in take_notice() if note is None else []:
         print(f"note: {text}")
