@@ -1,8 +1,10 @@
 """``brace cache show|clear``: the folder of built solver parts (compiled knot functions) kept between runs.
 
-Also the ``--cache-dir`` option of ``brace solve`` and ``brace sweep`` and
-the one-line note when no C compiler is found (plans then use the
-uncompiled evaluation: same plans, slower iterations).
+Also the ``--cache-dir`` and ``--evaluation`` options of ``brace solve`` and
+``brace sweep`` (with ``brace solve``'s automatic choice of evaluation,
+:func:`chosen_evaluation`) and the one-line note when no C compiler is
+found (plans then use the uncompiled evaluation: same plans, slower
+iterations).
 """
 from __future__ import annotations
 
@@ -34,7 +36,7 @@ def add_cache_option(parser: argparse.ArgumentParser) -> None:
 # machine (benchmarks/RESULTS.md, "Solve, compiled evaluation and cache"): at 30 knots the first compiled
 # plan of a shape, compiler included, took 30.8 s against 34.1 s expanded and later ones 12.7 s; at 60
 # knots 59.7 and 35.0 s against 64.2 s; peak memory 0.32 / 0.46 GB against 1.11 / 2.08 GB. Below 30 knots
-# the compiler's fixed 20-30 s is not won back on the first plan.
+# the compiler's fixed 20-33 s is not won back on the first plan.
 AUTO = "auto"
 AUTO_COMPILED_KNOTS = 30
 
