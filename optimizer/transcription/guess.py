@@ -108,18 +108,41 @@ def integrated_rates(model, q, times) -> tuple[np.ndarray, np.ndarray]:
     return v, a
 
 
+# Below this slack of the static support LP (limits violated by more than their own scale: m g / nc for
+# a contact row, half the torque range for a torque row) the posture cannot be held still and the LP's
+# forces are arbitrary along the relaxed rows: on the stepping demos' three-foot knots they reached 1e4-3e6
+# N of opposed tangential forces, and the feasibility solve spent most of its iterations undoing them.
+# Such a knot takes the forces and torques of the nearest holdable knot instead (benchmarks/RESULTS.md,
+# "Initial guess at knots that cannot be held still").
+UNHOLDABLE_SLACK = -1.0
+
+
 def initial_guess(task) -> dict[str, np.ndarray]:
-    """Physical arrays ``q`` (nq, K), ``v``, ``a`` (nv, K), ``tau`` (nj, K), ``lam`` (3 nc, K)."""
+    """Physical arrays ``q`` (nq, K), ``v``, ``a`` (nv, K), ``tau`` (nj, K), ``lam`` (3 nc, K).
+
+    Forces [N] and torques [N m] come from the static support LP of the loaded contacts at each knot;
+    a knot the LP cannot hold (slack below :data:`UNHOLDABLE_SLACK`) repeats the nearest holdable
+    knot's, earlier on a tie, with zero on its contacts in the air.
+    """
     robot, times = task.robot, task.times
     model, K = robot.model, task.knots
     q = interpolate(model, keyframes(task), times)
     v, a = integrated_rates(model, q, times)
     tau, lam = np.zeros((robot.nj, K)), np.zeros((3 * len(task.contacts), K))
     active = task.schedule.loaded(times)
+    holdable = np.zeros(K, bool)
     for k in range(K):
         stance = [c for c, on in zip(contacts_at(task, times[k]), active[k]) if on]
         support = static_support_lp(robot, q[:, k], stance, task.facets)
-        if np.all(np.isfinite(support.forces)):
+        if support.slack >= UNHOLDABLE_SLACK:
             lam[np.repeat(active[k], 3), k], tau[:, k] = support.forces.reshape(-1), support.tau
+            holdable[k] = True
+    good = np.flatnonzero(holdable)
+    for k in np.flatnonzero(~holdable) if good.size else []:
+        before, after = good[good < k], good[good > k]
+        near = before[-1] if before.size and (not after.size or k - before[-1] <= after[0] - k) else after[0]
+        keep = np.repeat(active[k], 3)
+        lam[keep, k], tau[:, k] = lam[keep, near], tau[:, near]
     tau = np.clip(tau, robot.torque_lower[:, None], robot.torque_upper[:, None])
     return {"q": q, "v": v, "a": a, "tau": tau, "lam": lam}
+
