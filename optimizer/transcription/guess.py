@@ -138,11 +138,11 @@ def initial_guess(task) -> dict[str, np.ndarray]:
             lam[np.repeat(active[k], 3), k], tau[:, k] = support.forces.reshape(-1), support.tau
             holdable[k] = True
     good = np.flatnonzero(holdable)
-    for k in np.flatnonzero(~holdable) if good.size else []:
-        before, after = good[good < k], good[good > k]
-        near = before[-1] if before.size and (not after.size or k - before[-1] <= after[0] - k) else after[0]
-        keep = np.repeat(active[k], 3)
-        lam[keep, k], tau[:, k] = lam[keep, near], tau[:, near]
+    if good.size:
+        for k in np.flatnonzero(~holdable):
+            near = good[np.argmin(np.abs(good - k))]            # the first minimum: earlier on a tie
+            keep = np.repeat(active[k], 3)
+            lam[keep, k], tau[:, k] = lam[keep, near], tau[:, near]
     tau = np.clip(tau, robot.torque_lower[:, None], robot.torque_upper[:, None])
     return {"q": q, "v": v, "a": a, "tau": tau, "lam": lam}
 
