@@ -9,7 +9,6 @@ iterations).
 from __future__ import annotations
 
 import argparse
-import shutil
 import sys
 
 from ..cache import ENVIRONMENT, cache_contents, cache_dir, clear_cache, set_cache_dir
@@ -59,9 +58,11 @@ def add_evaluation_option(parser: argparse.ArgumentParser, auto: bool = False) -
 def chosen_evaluation(requested: str, knots: int) -> str:
     """The evaluation a command uses: ``requested``, or for ``auto`` compiled from
     :data:`AUTO_COMPILED_KNOTS` knots on when a C compiler is found, else expanded."""
+    from ..transcription.compiled import compiler_found
+
     if requested != AUTO:
         return requested
-    return "compiled" if knots >= AUTO_COMPILED_KNOTS and compiler_note() is None else "expanded"
+    return "compiled" if knots >= AUTO_COMPILED_KNOTS and compiler_found() else "expanded"
 
 
 MAX_THREADS = 512
@@ -93,9 +94,9 @@ def apply_cache_option(args) -> None:
 
 def compiler_note() -> str | None:
     """One line when no C compiler is found, else None."""
-    from ..transcription.compiled import COMPILER_ENVIRONMENT, compiler
+    from ..transcription.compiled import COMPILER_ENVIRONMENT, compiler, compiler_found
 
-    if shutil.which(compiler()) is None:
+    if not compiler_found():
         return (f"note: no C compiler '{compiler()}' found (set {COMPILER_ENVIRONMENT}); the knot functions are "
                 "evaluated uncompiled: same plans, slower iterations")
     return None

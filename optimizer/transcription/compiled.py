@@ -47,6 +47,11 @@ def compiler() -> str:
     return os.environ.get(COMPILER_ENVIRONMENT) or DEFAULT_COMPILER
 
 
+def compiler_found() -> bool:
+    """Whether the C compiler command (:func:`compiler`) is on the search path."""
+    return shutil.which(compiler()) is not None
+
+
 def library_key(function: ca.Function, command: str) -> str:
     """Digest of everything the compiled library of ``function`` depends on (hex)."""
     digest = hashlib.sha256()
@@ -97,7 +102,7 @@ def compiled_functions(originals: dict[str, ca.Function]) -> tuple[dict[str, ca.
     entries waits and then loads them). Raises :class:`CompileFailure`.
     """
     command = compiler()
-    if shutil.which(command) is None:
+    if not compiler_found():
         raise CompileFailure(f"no C compiler '{command}' found (set {COMPILER_ENVIRONMENT} to one)")
     paths = {name: entry_path(SECTION, library_key(f, command) + ".so") for name, f in originals.items()}
     missing = sorted({path for path in paths.values() if not valid_entry(path)})
