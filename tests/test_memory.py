@@ -88,8 +88,9 @@ def size_after(text: str, lead: str) -> float:
     return float(number) * {"MB": 2**20, "GB": 2**30}[unit]
 
 
-def run_cli(argv, tmp_path):
-    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", PYTHONPATH=str(ROOT))
+def run_cli(argv, tmp_path, **environment):
+    """``brace ARGV`` in a fresh process in ``tmp_path``, with ``environment`` added to this one's."""
+    env = dict(os.environ, OPENBLAS_NUM_THREADS="1", PYTHONPATH=str(ROOT), **environment)
     return subprocess.run([sys.executable, "-m", "optimizer", *argv], capture_output=True, text=True,
                           env=env, timeout=300, cwd=tmp_path)
 
@@ -219,12 +220,11 @@ def test_brace_solve_estimates_memory_for_the_evaluation_it_chose(compiler, tmp_
     expanded one when not: its memory estimate is the one printed with that evaluation named."""
     from optimizer.transcription.compiled import COMPILER_ENVIRONMENT
 
+    command = sys.executable if compiler == "present" else "no-such-compiler-here"
+
     def estimate(*extra):
-        env = dict(os.environ, OPENBLAS_NUM_THREADS="1", PYTHONPATH=str(ROOT),
-                   **{COMPILER_ENVIRONMENT: sys.executable if compiler == "present" else "no-such-compiler-here"})
-        done = subprocess.run([sys.executable, "-m", "optimizer", "solve", str(RAMP), "--knots", "60", "--check-only",
-                               "--skip-checks", "--memory-limit", "64G", *extra], capture_output=True, text=True,
-                              env=env, timeout=300, cwd=tmp_path)
+        done = run_cli(["solve", str(RAMP), "--knots", "60", "--check-only", "--skip-checks", "--memory-limit", "64G",
+                        *extra], tmp_path, **{COMPILER_ENVIRONMENT: command})
         assert done.returncode == 0, done.stderr
         return size_after(done.stdout, "brace solve: memory: about ")
 

@@ -145,4 +145,3 @@ def initial_guess(task) -> dict[str, np.ndarray]:
             lam[keep, k], tau[:, k] = lam[keep, near], tau[:, near]
     tau = np.clip(tau, robot.torque_lower[:, None], robot.torque_upper[:, None])
     return {"q": q, "v": v, "a": a, "tau": tau, "lam": lam}
-
